@@ -1,0 +1,1 @@
+"""Pure computation on geometry: layout model, flattening, extraction, rules."""

@@ -1,0 +1,34 @@
+"""What every rule module provides: an id, a default severity, four-part
+documentation and one check function."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Callable, Iterable
+
+from ..findings import Finding, Severity
+
+
+@dataclass(frozen=True)
+class RuleDoc:
+    flags: str  # what it flags
+    why: str  # why it matters (the physics, one paragraph)
+    example: str  # a script fragment that triggers it
+    fix: str  # how to fix it
+
+
+@dataclass(frozen=True)
+class Rule:
+    id: str
+    severity: Severity
+    summary: str  # one line, for `latchwatch rules` and SARIF shortDescription
+    doc: RuleDoc
+    check: Callable[["object"], Iterable[Finding]]  # takes a CheckContext
+
+    def help_text(self) -> str:
+        d = self.doc
+        return (
+            f"{self.id} ({self.severity.label})\n\n{self.summary}\n\n"
+            f"What it flags\n{d.flags}\n\nWhy it matters\n{d.why}\n\n"
+            f"Example\n{d.example}\n\nHow to fix it\n{d.fix}\n"
+        )

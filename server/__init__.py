@@ -1,0 +1,1 @@
+"""Processes, files, terminals and editors: sandbox, command line, language server, output formats."""
