@@ -1,0 +1,97 @@
+"""What a rule's check function sees: the run, the technology, the flattened layout
+and its extraction (computed once, on first use), and a way to build findings."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from functools import cached_property
+
+from .extract import Extraction, extract
+from .findings import Finding, Related, Severity
+from .flatten import FlatLayout
+from .provenance import Provenance, display_path
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from .run_outcome import RunOutcome
+from .technology import Technology
+
+
+@dataclass(frozen=True)
+class CheckOptions:
+    project_root: str | None = None  # frames under it are user frames
+    display_base: str | None = None  # paths inside it are shown relative to it
+    top: str | None = None  # check this cell as the top
+    exact_devices: bool = False  # compute every device's tap distance to 1 nm
+
+
+class CheckContext:
+    def __init__(self, outcome: RunOutcome, tech: Technology, options: CheckOptions,
+                 flat: FlatLayout | None = None):
+        self.outcome, self.tech, self.options, self.flat = outcome, tech, options, flat
+        self._cache: dict = {}
+
+    @cached_property
+    def provenance(self) -> Provenance:
+        return Provenance(self.flat, self.options.project_root, self.options.display_base)
+
+    @cached_property
+    def extraction(self) -> Extraction:
+        return extract(self.flat, self.tech)
+
+    def memo(self, key, compute):
+        """Share one computation between rules (for example the tap distances)."""
+        if key not in self._cache:
+            self._cache[key] = compute()
+        return self._cache[key]
+
+    @property
+    def script_path(self) -> str:
+        return display_path(self.outcome.script, self.options.display_base)
+
+    def related_shape(self, shape: int, message: str, location=None) -> Related:
+        loc = self.provenance.locate_shape(shape)
+        return Related(message, loc["file"], loc["line"], _point(location))
+
+    def shape_finding(self, rule, shape: int, message: str, *, location=None, bbox=None,
+                      value=None, limit=None, unit=None, related=(), figures=None) -> Finding:
+        """A finding on the line that drew flat shape ``shape``."""
+        loc = self.provenance.locate_shape(shape)
+        return Finding(
+            rule=rule.id, severity=rule.severity, message=message,
+            location=_point(location), bbox=_box(bbox), value=_round(value), limit=limit, unit=unit,
+            corner=self.outcome.corner, related=tuple(related), figures=figures or {}, **loc,
+        )
+
+    def run_finding(self, rule, message: str, frames=(), **fields) -> Finding:
+        """A finding about the run itself, on its innermost user frame (or the script's first line)."""
+        from .provenance import is_user_file
+
+        user = [f for f in frames if is_user_file(f.file, self.options.project_root)]
+        stack = tuple(
+            type(f)(display_path(f.file, self.options.display_base), f.line, f.function, f.column, f.end_line, f.end_column)
+            for f in user
+        )
+        top = stack[0] if stack else None
+        return Finding(
+            rule=rule.id, severity=rule.severity, message=message,
+            file=top.file if top else self.script_path, line=top.line if top else 1,
+            end_line=(top.end_line or top.line) if top else 1,
+            column=top.column if top else None, end_column=top.end_column if top else None,
+            stack=stack, corner=self.outcome.corner, **fields,
+        )
+
+
+def _point(p):
+    return None if p is None else (round(float(p[0]), 6), round(float(p[1]), 6))
+
+
+def _box(b):
+    return None if b is None else tuple(round(float(v), 6) for v in b)
+
+
+def _round(v):
+    return None if v is None else round(float(v), 6)
+
+
+__all__ = ["CheckContext", "CheckOptions", "Severity"]

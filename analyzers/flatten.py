@@ -1,0 +1,244 @@
+"""Flatten a captured hierarchy into per-shape arrays, with numpy transforms.
+
+Each reference copy becomes an *instance*: an affine transform (2x2 matrix plus
+translation) and a parent pointer, so a finding can name the placements from the
+top cell down. Transforms follow the GDSII order: x-reflection, magnification,
+rotation, then translation; repetition offsets are added to the origin in the
+parent's coordinates. Arrays are expanded with numpy, never one copy at a time.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import shapely
+
+from .captured import CapturedLayout
+
+MAX_DEPTH = 64
+
+
+class HierarchyError(ValueError):
+    """The reference graph has a cycle or is deeper than MAX_DEPTH."""
+
+
+@dataclass
+class Instances:
+    """One row per placed copy of a cell; row 0.. are the top cell itself."""
+
+    cell: np.ndarray  # int32, the placed cell
+    parent: np.ndarray  # int32, parent instance or -1
+    ref: np.ndarray  # int32, index of the reference in the parent's cell, or -1
+    column: np.ndarray  # int32, repetition column (or explicit index)
+    row: np.ndarray  # int32, repetition row (-1 for explicit offsets)
+    matrix: np.ndarray  # (n, 2, 2)
+    offset: np.ndarray  # (n, 2)
+
+    def __len__(self) -> int:
+        return len(self.cell)
+
+
+@dataclass
+class FlatLayout:
+    captured: CapturedLayout
+    top: int
+    instances: Instances
+    polygons: np.ndarray  # shapely Polygons in top-cell coordinates
+    layer: np.ndarray  # int32
+    datatype: np.ndarray  # int32
+    stack: np.ndarray  # int32, stack id of the source polygon
+    instance: np.ndarray  # int32, instance holding the shape
+    source_polygon: np.ndarray  # int64, index of the polygon within its cell
+    label_text: np.ndarray  # object array of str
+    label_layer: np.ndarray
+    label_texttype: np.ndarray
+    label_xy: np.ndarray  # (k, 2)
+    label_stack: np.ndarray
+    label_instance: np.ndarray
+    invalid: np.ndarray  # flat indices of polygons that were invalid and got repaired
+    invalid_reason: np.ndarray  # GEOS's reason for each of them
+
+    @property
+    def top_name(self) -> str:
+        return self.captured.cells[self.top].name
+
+    def on_layer(self, spec: tuple[int, int] | None) -> np.ndarray:
+        """Indices of the shapes on one (layer, datatype) pair."""
+        if spec is None:
+            return np.zeros(0, dtype=np.int64)
+        return np.flatnonzero((self.layer == spec[0]) & (self.datatype == spec[1]))
+
+    def cell_of(self, shape: int) -> str:
+        return self.captured.cells[self.instances.cell[self.instance[shape]]].name
+
+
+def _reference_matrices(rotation, magnification, x_reflection):
+    cos, sin = np.cos(rotation) * magnification, np.sin(rotation) * magnification
+    flip = np.where(x_reflection, -1.0, 1.0)
+    # R(theta) * mag * diag(1, flip)
+    return np.stack(
+        [np.stack([cos, -sin * flip], axis=-1), np.stack([sin, cos * flip], axis=-1)], axis=-2
+    )
+
+
+def _reference_copies(cell):
+    """Every copy of every reference of ``cell``: (ref index, column, row, offset)."""
+    n_refs = cell.reference_count
+    explicit_counts = np.diff(cell.ref_explicit_offsets)
+    has_explicit = explicit_counts > 0
+    lattice_counts = np.maximum(cell.ref_columns, 1) * np.maximum(cell.ref_rows, 1)
+    counts = np.where(has_explicit, explicit_counts, lattice_counts).astype(np.int64)
+    ref = np.repeat(np.arange(n_refs), counts)
+    local = np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts)
+    cols = np.maximum(cell.ref_columns, 1)[ref]
+    column, row = local % cols, local // cols
+    lattice = column[:, None] * cell.ref_v1[ref] + row[:, None] * cell.ref_v2[ref]
+    explicit_idx = np.minimum(
+        cell.ref_explicit_offsets[ref] + local, max(len(cell.ref_explicit) - 1, 0)
+    )
+    explicit = cell.ref_explicit[explicit_idx] if len(cell.ref_explicit) else lattice
+    copy_explicit = has_explicit[ref]
+    offset = np.where(copy_explicit[:, None], explicit, lattice) + cell.ref_origin[ref]
+    column = np.where(copy_explicit, local, column)
+    row = np.where(copy_explicit, -1, row)
+    return ref, column.astype(np.int32), row.astype(np.int32), offset
+
+
+def expand_instances(captured: CapturedLayout, top: int) -> Instances:
+    """All placed copies of every cell under ``top``, level by level."""
+    cells = [np.array([top], dtype=np.int32)]
+    parents = [np.array([-1], dtype=np.int32)]
+    refs, columns, rows = [np.array([-1], np.int32)], [np.array([0], np.int32)], [np.array([0], np.int32)]
+    matrices, offsets = [np.eye(2)[None]], [np.zeros((1, 2))]
+    level_start, total = 0, 1
+    for _ in range(MAX_DEPTH):
+        level_cells = np.concatenate(cells)[level_start:]
+        level_mat = np.concatenate(matrices)[level_start:]
+        level_off = np.concatenate(offsets)[level_start:]
+        new_rows = 0
+        for cell_index in np.unique(level_cells):
+            cell = captured.cells[cell_index]
+            if cell.reference_count == 0:
+                continue
+            parent_rows = np.flatnonzero(level_cells == cell_index)
+            ref, col, row, copy_offset = _reference_copies(cell)
+            copy_matrix = _reference_matrices(
+                cell.ref_rotation[ref], cell.ref_magnification[ref], cell.ref_x_reflection[ref]
+            )
+            pm, po = level_mat[parent_rows], level_off[parent_rows]
+            # (parents, copies, 2, 2) and (parents, copies, 2)
+            mat = np.einsum("pij,cjk->pcik", pm, copy_matrix).reshape(-1, 2, 2)
+            off = (np.einsum("pij,cj->pci", pm, copy_offset) + po[:, None, :]).reshape(-1, 2)
+            n_par, n_copy = len(parent_rows), len(ref)
+            cells.append(np.tile(cell.ref_cell[ref], n_par).astype(np.int32))
+            parents.append(np.repeat(parent_rows + level_start, n_copy).astype(np.int32))
+            refs.append(np.tile(ref, n_par).astype(np.int32))
+            columns.append(np.tile(col, n_par))
+            rows.append(np.tile(row, n_par))
+            matrices.append(mat)
+            offsets.append(off)
+            new_rows += n_par * n_copy
+        if new_rows == 0:
+            break
+        level_start, total = total, total + new_rows
+    else:
+        raise HierarchyError(
+            f"cell {captured.cells[top].name!r}: references nest deeper than {MAX_DEPTH} levels (a cycle?)"
+        )
+    return Instances(
+        cell=np.concatenate(cells), parent=np.concatenate(parents), ref=np.concatenate(refs),
+        column=np.concatenate(columns), row=np.concatenate(rows),
+        matrix=np.concatenate(matrices), offset=np.concatenate(offsets),
+    )
+
+
+def _transform_points(points, matrix, offset):
+    """points (m, 2) under each of k transforms -> (k, m, 2)."""
+    return np.einsum("kij,mj->kmi", matrix, points) + offset[:, None, :]
+
+
+def _polygons_from_rings(coords, offsets):
+    """Shapely polygons from concatenated ring vertices; rectangles take a fast path."""
+    counts = np.diff(offsets)
+    if len(counts) == 0:
+        return np.empty(0, dtype=object)
+    if np.all(counts == counts[0]) and counts[0] >= 3:
+        return shapely.polygons(coords.reshape(len(counts), counts[0], 2))
+    ring_index = np.repeat(np.arange(len(counts)), counts)
+    rings = shapely.linearrings(coords, indices=ring_index)
+    return shapely.polygons(rings)
+
+
+def repair(polygons: np.ndarray):
+    """Make invalid polygons valid, keeping only their polygonal parts.
+
+    A degenerate polygon (zero area) becomes an empty geometry that no query hits."""
+    invalid = np.flatnonzero(~shapely.is_valid(polygons) | (shapely.area(polygons) <= 0))
+    if len(invalid) == 0:
+        return invalid, np.empty(0, dtype=object), polygons
+    bad = polygons[invalid]
+    reasons = np.array(shapely.is_valid_reason(bad), dtype=object)
+    reasons[shapely.area(bad) <= 0] = "zero area"
+    fixed = shapely.make_valid(bad)
+    parts, owner = shapely.get_parts(fixed, return_index=True)
+    keep = shapely.get_type_id(parts) == shapely.GeometryType.POLYGON
+    rebuilt = np.array([shapely.Polygon()] * len(bad), dtype=object)
+    if keep.any():
+        present, dense = np.unique(owner[keep], return_inverse=True)
+        rebuilt[present] = shapely.multipolygons(parts[keep], indices=dense)
+    out = polygons.copy()
+    out[invalid] = rebuilt
+    return invalid, reasons, out
+
+
+def flatten(captured: CapturedLayout, top: int) -> FlatLayout:
+    inst = expand_instances(captured, top)
+    order = np.argsort(inst.cell, kind="stable")
+    groups = np.split(order, np.flatnonzero(np.diff(inst.cell[order])) + 1) if len(order) else []
+    polys, layers, dts, stacks, owners, sources = [], [], [], [], [], []
+    lt, ll, ltt, lxy, lst, lin = [], [], [], [], [], []
+    for members in groups:
+        cell = captured.cells[inst.cell[members[0]]]
+        k = len(members)
+        if cell.polygon_count:
+            pts = _transform_points(cell.points, inst.matrix[members], inst.offset[members])
+            counts = np.diff(cell.poly_offsets)
+            all_offsets = np.concatenate([[0], np.cumsum(np.tile(counts, k))])
+            polys.append(_polygons_from_rings(pts.reshape(-1, 2), all_offsets))
+            layers.append(np.tile(cell.poly_layer, k))
+            dts.append(np.tile(cell.poly_datatype, k))
+            stacks.append(np.tile(cell.poly_stack, k))
+            owners.append(np.repeat(members, cell.polygon_count))
+            sources.append(np.tile(np.arange(cell.polygon_count), k))
+        if len(cell.label_text):
+            n = len(cell.label_text)
+            lt.append(np.tile(np.array(cell.label_text, dtype=object), k))
+            ll.append(np.tile(cell.label_layer, k))
+            ltt.append(np.tile(cell.label_texttype, k))
+            lxy.append(_transform_points(cell.label_origin, inst.matrix[members], inst.offset[members]).reshape(-1, 2))
+            lst.append(np.tile(cell.label_stack, k))
+            lin.append(np.repeat(members, n))
+
+    def cat(parts, dtype, shape=(0,)):
+        return np.concatenate(parts) if parts else np.zeros(shape, dtype=dtype)
+
+    polygons = cat(polys, object)
+    invalid, reasons, polygons = repair(polygons)
+    return FlatLayout(
+        captured=captured, top=top, instances=inst, invalid=invalid, invalid_reason=reasons,
+        polygons=polygons, layer=cat(layers, np.int32), datatype=cat(dts, np.int32),
+        stack=cat(stacks, np.int32), instance=cat(owners, np.int32), source_polygon=cat(sources, np.int64),
+        label_text=cat(lt, object), label_layer=cat(ll, np.int32), label_texttype=cat(ltt, np.int32),
+        label_xy=cat(lxy, float, (0, 2)), label_stack=cat(lst, np.int32), label_instance=cat(lin, np.int32),
+    )
+
+
+def placement_chain(flat: FlatLayout, instance: int) -> list[tuple[int, int]]:
+    """(instance, parent cell) pairs from the top cell down to ``instance``."""
+    chain = []
+    inst = flat.instances
+    while instance >= 0 and inst.parent[instance] >= 0:
+        chain.append((instance, int(inst.cell[inst.parent[instance]])))
+        instance = int(inst.parent[instance])
+    return chain[::-1]

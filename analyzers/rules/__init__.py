@@ -1,0 +1,33 @@
+"""The rule registry: an explicit tuple, in catalogue order (DESIGN 5.7)."""
+
+from __future__ import annotations
+
+from . import (
+    floating_well,
+    invalid_geometry,
+    no_geometry,
+    script_error,
+    script_limit,
+    script_timeout,
+    tap_distance,
+    uncontacted_tap,
+)
+from .base import Rule, RuleDoc
+
+RULES: tuple[Rule, ...] = (
+    tap_distance.RULE,
+    floating_well.RULE,
+    uncontacted_tap.RULE,
+    script_error.RULE,
+    script_timeout.RULE,
+    script_limit.RULE,
+    invalid_geometry.RULE,
+    no_geometry.RULE,
+)
+
+RULES_BY_ID = {rule.id: rule for rule in RULES}
+
+# Rules whose check needs the flattened layout; the others look at the run itself.
+RUN_RULES = frozenset({"script-error", "script-timeout", "script-limit", "no-geometry"})
+
+__all__ = ["RULES", "RULES_BY_ID", "RUN_RULES", "Rule", "RuleDoc"]

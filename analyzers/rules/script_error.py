@@ -1,0 +1,37 @@
+"""script-error: the layout script raised."""
+
+from __future__ import annotations
+
+from ..findings import Severity
+from .base import Rule, RuleDoc
+
+MESSAGE = "script raised {exc_type}: {message}"
+
+
+def check(ctx):
+    failure = ctx.outcome.failure
+    if ctx.flat is not None or failure is None or failure.kind != "error":
+        return
+    text = MESSAGE.format(exc_type=failure.exc_type or "an error", message=failure.message or "(no message)")
+    yield ctx.run_finding(RULE, text, failure.frames)
+
+
+RULE = Rule(
+    id="script-error",
+    severity=Severity.ERROR,
+    summary="The script raised; the finding sits on the raising line in user code.",
+    doc=RuleDoc(
+        flags=(
+            "A layout script that ended with an exception (including a syntax error, or SystemExit with a "
+            "non-zero status). The finding is anchored at the innermost frame of the traceback that lies in "
+            "your project and carries the exception type and message; the outer frames are listed as call sites."
+        ),
+        why=(
+            "A generator that fails for some parameter produces no layout, so none of its latch-up defences "
+            "can be checked: every other rule is silent for this run, which must not pass for a clean result."
+        ),
+        example="finger_pitch = width / (fingers - 1)   # ZeroDivisionError when fingers == 1",
+        fix="Fix the exception; the other rules run again as soon as the script completes.",
+    ),
+    check=check,
+)

@@ -1,0 +1,75 @@
+"""Small builders of captured layouts for analyzer unit tests (no child process)."""
+
+from __future__ import annotations
+
+from types import SimpleNamespace
+
+import numpy as np
+
+from latchwatch.analyzers.captured import CapturedCell, CapturedLayout
+from latchwatch.analyzers.findings import Frame
+
+# The demo technology's layers (server/technologies/demo.toml).
+NWELL, ACTIVE, POLY, NPLUS, PPLUS, CONTACT, METAL1 = (1, 0), (2, 0), (3, 0), (4, 0), (5, 0), (6, 0), (7, 0)
+
+
+class CellBuilder:
+    def __init__(self, name: str):
+        self.name = name
+        self.polys: list[tuple[tuple[int, int], np.ndarray, int]] = []
+        self.refs: list[dict] = []
+
+    def rect(self, layer, x0, y0, x1, y1, stack=-1):
+        self.polys.append((layer, np.array([(x0, y0), (x1, y0), (x1, y1), (x0, y1)], float), stack))
+        return self
+
+    def polygon(self, layer, points, stack=-1):
+        self.polys.append((layer, np.asarray(points, float), stack))
+        return self
+
+    def ref(self, cell_index, origin=(0, 0), rotation=0.0, magnification=1.0, x_reflection=False,
+            columns=1, rows=1, v1=(0, 0), v2=(0, 0), explicit=None, stack=-1):
+        self.refs.append(dict(cell=cell_index, origin=origin, rotation=rotation, mag=magnification,
+                              xr=x_reflection, columns=columns, rows=rows, v1=v1, v2=v2,
+                              explicit=explicit, stack=stack))
+        return self
+
+    def build(self) -> CapturedCell:
+        c = CapturedCell(self.name)
+        if self.polys:
+            c.poly_layer = np.array([p[0][0] for p in self.polys], np.int32)
+            c.poly_datatype = np.array([p[0][1] for p in self.polys], np.int32)
+            c.poly_offsets = np.concatenate([[0], np.cumsum([len(p[1]) for p in self.polys])]).astype(np.int64)
+            c.points = np.concatenate([p[1] for p in self.polys])
+            c.poly_stack = np.array([p[2] for p in self.polys], np.int32)
+        if self.refs:
+            r = self.refs
+            c.ref_cell = np.array([x["cell"] for x in r], np.int32)
+            c.ref_origin = np.array([x["origin"] for x in r], float)
+            c.ref_rotation = np.array([x["rotation"] for x in r], float)
+            c.ref_magnification = np.array([x["mag"] for x in r], float)
+            c.ref_x_reflection = np.array([x["xr"] for x in r], bool)
+            c.ref_columns = np.array([x["columns"] for x in r], np.int32)
+            c.ref_rows = np.array([x["rows"] for x in r], np.int32)
+            c.ref_v1 = np.array([x["v1"] for x in r], float)
+            c.ref_v2 = np.array([x["v2"] for x in r], float)
+            counts = [len(x["explicit"]) if x["explicit"] is not None else 0 for x in r]
+            c.ref_explicit_offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
+            ex = [np.asarray(x["explicit"], float) for x in r if x["explicit"] is not None]
+            c.ref_explicit = np.concatenate(ex) if ex else np.zeros((0, 2))
+            c.ref_stack = np.array([x["stack"] for x in r], np.int32)
+        return c
+
+
+def layout(*cells: CellBuilder, frames=(), stacks=(), source="test.py") -> CapturedLayout:
+    return CapturedLayout([c.build() for c in cells], list(frames), [tuple(s) for s in stacks], source)
+
+
+def outcome(captured: CapturedLayout | None, status="ok", failure=None, script="test.py"):
+    """A RunOutcome-shaped record (duck-typed so analyzer tests need no runner)."""
+    return SimpleNamespace(script=script, status=status, seconds=0.0, layout=captured, failure=failure,
+                           output="", sandbox={}, corner=None)
+
+
+def frame(line, file="/proj/test.py", function="<module>"):
+    return Frame(file, line, function)
