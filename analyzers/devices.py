@@ -42,7 +42,7 @@ def tap_distances(ctx, kind: str, exact: bool) -> KindResult:
         dtype=float,
     )
     index = TapIndex(taps.geoms, taps.body)
-    result = farthest_from_taps(pieces.geoms, pieces.body, index, None if exact else limits)
+    result = farthest_from_taps(pieces.geoms, pieces.body, index, limits, exact=exact)
     return KindResult(kind, pieces, taps, gated, limits, spacing, result)
 
 

@@ -179,7 +179,7 @@ def repair(polygons: np.ndarray):
         return invalid, np.empty(0, dtype=object), polygons
     bad = polygons[invalid]
     reasons = np.array(shapely.is_valid_reason(bad), dtype=object)
-    reasons[shapely.area(bad) <= 0] = "zero area"
+    reasons[reasons == "Valid Geometry"] = "zero area"
     fixed = shapely.make_valid(bad)
     parts, owner = shapely.get_parts(fixed, return_index=True)
     keep = shapely.get_type_id(parts) == shapely.GeometryType.POLYGON

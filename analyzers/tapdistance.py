@@ -92,15 +92,17 @@ def farthest_from_taps(
     taps: TapIndex,
     limit: np.ndarray | None = None,
     tol: float = DEFAULT_TOL,
+    exact: bool = False,
 ) -> FarthestPoints:
     """For each diffusion polygon, the farthest point from the nearest tap of its body.
 
-    With ``limit`` (per diffusion), work stops for a diffusion once it is proven within
-    its limit; its value is then nan. Without it every value is computed to ``tol``.
+    ``within_limit`` says which diffusions are proven within ``limit`` (per diffusion,
+    nan for none). Unless ``exact``, work stops for a diffusion once that is proven and
+    its value is then nan; violations and ``exact`` values are always computed to ``tol``.
 
     >>> import shapely, numpy as np
     >>> t = TapIndex(shapely.box([0.0], [0.0], [1.0], [1.0]), np.array([0]))
-    >>> r = farthest_from_taps(shapely.box([4.0], [0.0], [5.0], [1.0]), np.array([0]), t)
+    >>> r = farthest_from_taps(shapely.box([4.0], [0.0], [5.0], [1.0]), np.array([0]), t, exact=True)
     >>> round(float(r.value[0]), 6), r.point[0].tolist()
     (4.0, [5.0, 0.0])
     """
@@ -109,6 +111,7 @@ def farthest_from_taps(
     best_pt = np.zeros((n, 2))
     best_tap = np.full(n, -1, np.int64)
     cap = np.full(n, np.inf) if limit is None else np.where(np.isnan(limit), np.inf, limit) + SLACK
+    prune = np.full(n, -np.inf) if exact else cap
     if n == 0:
         return FarthestPoints(best, best_pt, best_tap, np.zeros(0, bool))
 
@@ -145,7 +148,7 @@ def farthest_from_taps(
             [cells[:, [0, 1]], cells[:, [2, 1]], cells[:, [2, 3]], cells[:, [0, 3]]], axis=1
         )
         upper = taps.corner_bound(corners, centre, ctap)
-        alive = (upper > best[cell_owner] + tol) & (upper > cap[cell_owner])
+        alive = (upper > best[cell_owner] + tol) & (upper > prune[cell_owner])
         if not alive.any():
             break
         cells, cell_owner, centre = cells[alive], cell_owner[alive], centre[alive]
@@ -161,7 +164,7 @@ def farthest_from_taps(
         cell_owner = np.tile(cell_owner, 4)
     within = (best <= cap) & ~no_tap
     value = best.copy()
-    if limit is not None:
+    if not exact:
         # Proven within the limit, but not computed to tol: no value to claim.
         value[within] = np.nan
     value[no_tap] = np.inf
