@@ -67,38 +67,59 @@ def explode(geoms: np.ndarray, owner: np.ndarray) -> tuple[np.ndarray, np.ndarra
     return parts[keep], owner[idx[keep]]
 
 
+def _covered_and_crossing(a: np.ndarray, regions: np.ndarray):
+    """Split the (a, region) intersecting pairs into a[i] wholly covered by region[j], and
+    pairs where a[i] crosses the region's edge. The regions are the query inputs, so
+    GEOS prepares each (large) region once instead of testing it against every piece."""
+    if len(a) == 0 or len(regions) == 0:
+        empty = np.zeros(0, np.int64)
+        return empty, empty, empty, empty
+    tree = shapely.STRtree(a)
+    hit_r, hit_a = tree.query(regions, predicate="intersects")
+    cov_r, cov_a = tree.query(regions, predicate="covers")
+    covered = np.zeros(len(a), dtype=bool)
+    covered[cov_a] = True
+    crossing = ~covered[hit_a]
+    return cov_a, cov_r, hit_a[crossing], hit_r[crossing]
+
+
 def clip_inside(a: np.ndarray, regions: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Parts of each a[i] inside each region it overlaps: (parts, a index, region index).
 
     Regions must be pairwise disjoint (for example merged wells)."""
-    ia, ir = overlap_pairs(a, regions)
-    if len(ia) == 0:
-        return np.empty(0, dtype=object), np.zeros(0, np.int64), np.zeros(0, np.int64)
-    pieces = shapely.intersection(a[ia], regions[ir])
-    pair = np.arange(len(ia))
-    parts, owner = explode(pieces, pair)
-    return parts, ia[owner], ir[owner]
+    cov_a, cov_r, cross_a, cross_r = _covered_and_crossing(a, regions)
+    pieces = shapely.intersection(a[cross_a], regions[cross_r])
+    parts, owner = explode(pieces, np.arange(len(cross_a)))
+    return (np.concatenate([a[cov_a], parts]), np.concatenate([cov_a, cross_a[owner]]),
+            np.concatenate([cov_r, cross_r[owner]]))
 
 
 def clip_outside(a: np.ndarray, regions: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Parts of each a[i] outside the union of the regions: (parts, a index)."""
-    ia, ir = overlap_pairs(a, regions)
+    cov_a, _, cross_a, cross_r = _covered_and_crossing(a, regions)
     rest = a.copy()
-    if len(ia):
-        covering = union_groups(regions[ir], ia, len(a))
+    rest[cov_a] = None
+    if len(cross_a):
+        covering = union_groups(regions[cross_r], cross_a, len(a))
         hit = np.flatnonzero(covering != None)  # noqa: E711 (elementwise)
+        hit = hit[rest[hit] != None]  # noqa: E711
         rest[hit] = shapely.difference(a[hit], covering[hit].astype(object))
-    return explode(rest, np.arange(len(a)))
+    keep = np.flatnonzero(rest != None)  # noqa: E711
+    return explode(rest[keep], keep)
 
 
 def clip_to_union(a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Parts of each a[i] inside the union of b (b may overlap itself): (parts, a index)."""
-    ia, ib = overlap_pairs(a, b)
-    if len(ia) == 0:
-        return np.empty(0, dtype=object), np.zeros(0, np.int64)
-    covering = union_groups(b[ib], ia, len(a))
+    cov_a, _, cross_a, cross_b = _covered_and_crossing(a, b)
+    covered = np.unique(cov_a)
+    keep = ~np.isin(cross_a, covered)
+    cross_a, cross_b = cross_a[keep], cross_b[keep]
+    if len(cross_a) == 0:
+        return a[covered], covered
+    covering = union_groups(b[cross_b], cross_a, len(a))
     hit = np.flatnonzero(covering != None)  # noqa: E711
-    return explode(shapely.intersection(a[hit], covering[hit].astype(object)), hit)
+    parts, owner = explode(shapely.intersection(a[hit], covering[hit].astype(object)), hit)
+    return np.concatenate([a[covered], parts]), np.concatenate([covered, owner])
 
 
 def area_overlap_any(a: np.ndarray, b: np.ndarray) -> np.ndarray:
