@@ -74,6 +74,15 @@ def _parser() -> argparse.ArgumentParser:
     show.add_argument("name")
     tcheck = tsub.add_parser("check", help="validate a technology file")
     tcheck.add_argument("file")
+
+    sv = sub.add_parser("serve", help="the language server (stdio by default)")
+    sv.add_argument("--tcp", metavar="HOST:PORT", help="listen on a TCP socket instead of stdio")
+
+    tr = sub.add_parser("trust", help="let the language server run scripts in a folder")
+    tr.add_argument("path", nargs="?", metavar="PATH", help="folder to trust (default: the current folder)")
+    trust_mode = tr.add_mutually_exclusive_group()
+    trust_mode.add_argument("--list", action="store_true", help="list the trusted folders")
+    trust_mode.add_argument("--remove", metavar="PATH", help="withdraw trust from a folder")
     return p
 
 
@@ -168,7 +177,21 @@ def _tech(args) -> int:
     return techfiles.tech_check_command(args.file, sys.stdout, sys.stderr)
 
 
-COMMANDS = {"check": _check, "rules": _rules, "tech": _tech}
+def _serve(args) -> int:
+    from .lsp import serve  # pygls is imported only for this command
+
+    return serve(args.tcp)
+
+
+def _trust(args) -> int:
+    from .trust import trust_command
+
+    if args.path is not None and (args.list or args.remove):
+        raise UsageError("trust: give a PATH, or --list, or --remove PATH, not both")
+    return trust_command(args.path, args.list, args.remove)
+
+
+COMMANDS = {"check": _check, "rules": _rules, "tech": _tech, "serve": _serve, "trust": _trust}
 
 
 def main(argv: list[str] | None = None) -> int:
