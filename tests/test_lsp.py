@@ -1,0 +1,481 @@
+"""`latchwatch serve` end to end, driven by pytest-lsp's client over stdio.
+
+Each test starts a real server with a private XDG_CONFIG_HOME (the user's trust store
+is never touched) and a project folder holding a latchwatch.toml with the demo
+technology (tap-distance limit 20 um, invented; DESIGN 5.4).
+"""
+
+from __future__ import annotations
+
+import asyncio
+import json
+import os
+import select
+import subprocess
+import sys
+import time
+import uuid
+from pathlib import Path
+
+import pytest
+from lsprotocol import types
+from pygls.protocol import default_converter
+from pygls.uris import from_fs_path
+from pytest_lsp import LanguageClient
+from pytest_lsp.client import DEFAULT_CLIENT_FEATURES, register_lsp_features
+
+SERVER = [sys.executable, "-m", "latchwatch.server.cli", "serve"]
+
+# An n-well with one contacted n-tap at its left end (x -3..-1) and a loop drawing three
+# 8 um P+ diffusions at x = 0, 14, 28. The farthest points lie 9, 23 and 37 um from the
+# tap, so against the 20 um limit two of the three fail, both on the loop's line 10.
+CELL = '''\
+import gdstk
+
+lib = gdstk.Library()
+cell = lib.new_cell("TOP")
+cell.add(gdstk.rectangle((-5, -2), (45, 8), layer=1))
+cell.add(gdstk.rectangle((-3, 0), (-1, 4), layer=2))
+cell.add(gdstk.rectangle((-3.2, -0.2), (-0.8, 4.2), layer=4))
+cell.add(gdstk.rectangle((-2.5, 1.5), (-1.5, 2.5), layer=6))
+for x in XS:
+    cell.add(gdstk.rectangle((x, 0), (x + 8, 4), layer=2))
+    cell.add(gdstk.rectangle((x - 0.2, -0.2), (x + 8.2, 4.2), layer=5))
+'''
+FAILING = CELL.replace("XS", "(0, 14, 28)")
+CLEAN = CELL.replace("XS", "(0, 4, 8)")
+LOOP_LINE = 9  # 0-based: the line drawing the active rectangles
+TAP_LINE = 5
+
+
+def make_project(folder: Path, script: str = FAILING, name: str = "cell.py", extra_config: str = "") -> Path:
+    folder.mkdir(parents=True, exist_ok=True)
+    (folder / "latchwatch.toml").write_text(f'tech = "demo"\n{extra_config}')
+    path = folder / name
+    path.write_text(script)
+    return path
+
+
+def running_processes_with(token: str) -> list[int]:
+    """PIDs whose command line mentions ``token`` (Linux /proc)."""
+    found = []
+    for entry in Path("/proc").iterdir():
+        if entry.name.isdigit():
+            try:
+                if token.encode() in (entry / "cmdline").read_bytes():
+                    found.append(int(entry.name))
+            except OSError:
+                continue
+    return found
+
+
+async def wait_until(predicate, timeout: float = 20.0, what: str = "condition"):
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        value = predicate()
+        if value:
+            return value
+        await asyncio.sleep(0.02)
+    raise AssertionError(f"timed out after {timeout} s waiting for {what}")
+
+
+def capabilities(pull: bool = False, progress: bool = False, configuration: bool = False,
+                 encodings: list[str] | None = None) -> types.ClientCapabilities:
+    return types.ClientCapabilities(
+        general=types.GeneralClientCapabilities(position_encodings=encodings) if encodings else None,
+        text_document=types.TextDocumentClientCapabilities(
+            diagnostic=types.DiagnosticClientCapabilities(related_document_support=True) if pull else None,
+            publish_diagnostics=types.PublishDiagnosticsClientCapabilities(related_information=True,
+                                                                          version_support=True),
+            hover=types.HoverClientCapabilities(content_format=[types.MarkupKind.Markdown]),
+        ),
+        window=types.WindowClientCapabilities(work_done_progress=progress),
+        workspace=types.WorkspaceClientCapabilities(configuration=configuration, workspace_folders=True),
+    )
+
+
+class Session:
+    """One server process and its client; every publishDiagnostics is kept in order."""
+
+    def __init__(self, env: dict[str, str]):
+        self.env = env
+        self.client = LanguageClient(converter_factory=default_converter)
+        self.published: list[types.PublishDiagnosticsParams] = []
+
+        def record(client: LanguageClient, params: types.PublishDiagnosticsParams):
+            params.diagnostics = list(params.diagnostics)
+            self.published.append(params)
+            client.diagnostics[params.uri] = params.diagnostics
+
+        register_lsp_features(self.client, {**DEFAULT_CLIENT_FEATURES,
+                                            types.TEXT_DOCUMENT_PUBLISH_DIAGNOSTICS: record})
+
+    async def start(self, root: Path, *, caps=None, options=None, folders=None, configuration=None):
+        if configuration:
+            for scope, value in configuration.items():
+                self.client.set_configuration(value, section="latchwatch", scope_uri=scope)
+        await self.client.start_io(*SERVER, env=self.env)
+        return await self.client.initialize_session(types.InitializeParams(
+            capabilities=caps or capabilities(), root_uri=from_fs_path(str(root)),
+            workspace_folders=folders, initialization_options=options))
+
+    def open(self, path: Path, text: str | None = None, version: int = 1) -> str:
+        uri = from_fs_path(str(path))
+        self.client.text_document_did_open(types.DidOpenTextDocumentParams(types.TextDocumentItem(
+            uri=uri, language_id="python", version=version, text=path.read_text() if text is None else text)))
+        return uri
+
+    def replace_all(self, uri: str, version: int, old: str, new: str) -> None:
+        """An incremental change replacing the whole of ``old`` by ``new``."""
+        lines = old.split("\n")
+        end = types.Position(len(lines) - 1, len(lines[-1]))
+        self.client.text_document_did_change(types.DidChangeTextDocumentParams(
+            text_document=types.VersionedTextDocumentIdentifier(uri=uri, version=version),
+            content_changes=[types.TextDocumentContentChangePartial(
+                range=types.Range(types.Position(0, 0), end), text=new)]))
+
+    def edit_line(self, uri: str, version: int, line: int, start: int, end: int, text: str) -> None:
+        self.client.text_document_did_change(types.DidChangeTextDocumentParams(
+            text_document=types.VersionedTextDocumentIdentifier(uri=uri, version=version),
+            content_changes=[types.TextDocumentContentChangePartial(
+                range=types.Range(types.Position(line, start), types.Position(line, end)), text=text)]))
+
+    def last(self, uri: str) -> types.PublishDiagnosticsParams | None:
+        for params in reversed(self.published):
+            if params.uri == uri:
+                return params
+        return None
+
+    async def published_for(self, uri: str, version: int | None = None, timeout: float = 30.0,
+                            where=lambda p: True) -> types.PublishDiagnosticsParams:
+        def ready():
+            p = self.last(uri)
+            return p if p is not None and (version is None or p.version == version) and where(p) else None
+        return await wait_until(ready, timeout, f"diagnostics for {uri} at version {version}")
+
+    async def stop(self):
+        try:
+            await asyncio.wait_for(self.client.shutdown_session(), 10)
+        finally:
+            await self.client.stop()
+
+
+@pytest.fixture
+def env(tmp_path):
+    return {**os.environ, "XDG_CONFIG_HOME": str(tmp_path / "xdg-config"), "XDG_CACHE_HOME": str(tmp_path / "xdg-cache")}
+
+
+@pytest.fixture
+async def session(env):
+    sessions = []
+
+    def new() -> Session:
+        sessions.append(Session(env))
+        return sessions[-1]
+
+    yield new
+    for s in sessions:
+        await s.stop()
+
+
+def trusted(folder: Path, **more) -> dict:
+    return {"latchwatch": {"trustedFolders": [str(folder)], "debounce": 50, **more}}
+
+
+async def test_open_publishes_merged_diagnostic_with_related_information(tmp_path, session):
+    script = make_project(tmp_path / "proj")
+    s = session()
+    result = await s.start(tmp_path / "proj", options=trusted(tmp_path / "proj"))
+    assert result.capabilities.diagnostic_provider is None  # this client did not ask for pull
+    uri = s.open(script)
+    published = await s.published_for(uri, version=1)
+    (diagnostic,) = published.diagnostics
+    assert diagnostic.range.start.line == LOOP_LINE
+    assert (diagnostic.source, diagnostic.code) == ("latchwatch", "tap-distance")
+    assert diagnostic.severity == types.DiagnosticSeverity.Error
+    assert diagnostic.message.startswith("2 of 3 P+ diffusions drawn here; worst: P+ diffusion is 37.00 um")
+    assert "others: 23.00 um" in diagnostic.message
+    assert diagnostic.code_description.href.startswith("file://")
+    doc = Path(diagnostic.code_description.href[len("file://"):])
+    assert doc.read_text().startswith("tap-distance (error)")
+    related = {(r.location.uri, r.location.range.start.line, r.message.split(" at ")[0])
+               for r in diagnostic.related_information}
+    assert (uri, TAP_LINE, "nearest n-well tap") in related
+
+
+async def test_edit_updates_and_close_clears(tmp_path, session):
+    script = make_project(tmp_path / "proj")
+    s = session()
+    await s.start(tmp_path / "proj", options=trusted(tmp_path / "proj"))
+    uri = s.open(script)
+    await s.published_for(uri, version=1, where=lambda p: len(p.diagnostics) == 1)
+    # Move the third diffusion from x=28 to x=8: one failure (23 um) remains.
+    loop_text = "for x in (0, 14, 28):"
+    s.edit_line(uri, 2, LOOP_LINE - 1, loop_text.index("28"), loop_text.index("28") + 2, "8")
+    published = await s.published_for(uri, version=2)
+    (diagnostic,) = published.diagnostics
+    assert diagnostic.message.startswith("1 of 3 P+ diffusions drawn here: P+ diffusion is 23.00 um")
+    s.edit_line(uri, 3, LOOP_LINE - 1, loop_text.index("14"), loop_text.index("14") + 2, "4")
+    assert (await s.published_for(uri, version=3)).diagnostics == []
+    s.client.text_document_did_close(types.DidCloseTextDocumentParams(types.TextDocumentIdentifier(uri)))
+    await wait_until(lambda: s.last(uri).version is None, what="clearing on close")
+    assert s.last(uri).diagnostics == []
+
+
+async def test_unsaved_buffer_runs_under_its_real_name(tmp_path, session):
+    # The file on disk is clean; the buffer differs. Siblings stay importable.
+    folder = tmp_path / "proj"
+    script = make_project(folder, CLEAN)
+    (folder / "spacing.py").write_text("XS = (0, 14, 28)\n")
+    buffer = CELL.replace("import gdstk\n", "import gdstk\nfrom spacing import XS\n")
+    s = session()
+    await s.start(folder, options=trusted(folder))
+    uri = s.open(script, text=buffer)
+    (diagnostic,) = (await s.published_for(uri, version=1)).diagnostics
+    assert diagnostic.range.start.line == LOOP_LINE + 1
+
+
+async def test_stale_result_loses_the_race_and_its_child_is_killed(tmp_path, session):
+    token = f"slow_{uuid.uuid4().hex}"
+    slow = "import time\ntime.sleep(30)\n" + FAILING
+    script = make_project(tmp_path / "proj", slow, name=f"{token}.py")
+    s = session()
+    await s.start(tmp_path / "proj", options=trusted(tmp_path / "proj", timeout=60))
+    uri = s.open(script)
+    await wait_until(lambda: running_processes_with(token), what="the slow child to start")
+    s.replace_all(uri, 2, slow, CLEAN)
+    published = await s.published_for(uri, version=2)
+    assert published.diagnostics == []
+    await wait_until(lambda: not running_processes_with(token), timeout=5, what="the superseded child to die")
+    assert all(p.version != 1 for p in s.published if p.uri == uri)
+
+
+async def test_closing_during_a_run_kills_the_child(tmp_path, session):
+    token = f"slow_{uuid.uuid4().hex}"
+    script = make_project(tmp_path / "proj", "import time\ntime.sleep(30)\n", name=f"{token}.py")
+    s = session()
+    await s.start(tmp_path / "proj", options=trusted(tmp_path / "proj", timeout=60))
+    uri = s.open(script)
+    await wait_until(lambda: running_processes_with(token), what="the slow child to start")
+    s.client.text_document_did_close(types.DidCloseTextDocumentParams(types.TextDocumentIdentifier(uri)))
+    await wait_until(lambda: not running_processes_with(token), timeout=5, what="the child to die on close")
+
+
+async def test_pull_diagnostics_with_result_ids(tmp_path, session):
+    script = make_project(tmp_path / "proj")
+    s = session()
+    result = await s.start(tmp_path / "proj", caps=capabilities(pull=True), options=trusted(tmp_path / "proj"))
+    assert result.capabilities.diagnostic_provider.identifier == "latchwatch"
+    uri = s.open(script)
+    report = await s.client.text_document_diagnostic_async(
+        types.DocumentDiagnosticParams(text_document=types.TextDocumentIdentifier(uri)))
+    assert report.kind == "full" and report.result_id
+    assert [d.range.start.line for d in report.items] == [LOOP_LINE]
+    again = await s.client.text_document_diagnostic_async(types.DocumentDiagnosticParams(
+        text_document=types.TextDocumentIdentifier(uri), previous_result_id=report.result_id))
+    assert again.kind == "unchanged" and again.result_id == report.result_id
+    await s.published_for(uri, version=1)  # push stays on
+
+
+async def test_hover_on_a_line_that_drew_diffusions(tmp_path, session):
+    script = make_project(tmp_path / "proj")
+    s = session()
+    await s.start(tmp_path / "proj", options=trusted(tmp_path / "proj"))
+    uri = s.open(script)
+    await s.published_for(uri, version=1)
+    hover = await s.client.text_document_hover_async(types.HoverParams(
+        text_document=types.TextDocumentIdentifier(uri), position=types.Position(LOOP_LINE, 8)))
+    text = hover.contents.value
+    assert "**3 P+ diffusions** drawn on this line" in text
+    assert "worst 37.00 um, best 9.00 um (limit 20.00 um)" in text
+    nothing = await s.client.text_document_hover_async(types.HoverParams(
+        text_document=types.TextDocumentIdentifier(uri), position=types.Position(0, 0)))
+    assert nothing is None
+
+
+async def test_code_actions_suppress_the_rule_or_everything(tmp_path, session):
+    script = make_project(tmp_path / "proj")
+    s = session()
+    await s.start(tmp_path / "proj", options=trusted(tmp_path / "proj"))
+    uri = s.open(script)
+    (diagnostic,) = (await s.published_for(uri, version=1)).diagnostics
+    actions = await s.client.text_document_code_action_async(types.CodeActionParams(
+        text_document=types.TextDocumentIdentifier(uri), range=diagnostic.range,
+        context=types.CodeActionContext(diagnostics=[diagnostic])))
+    titles = [a.title for a in actions]
+    assert titles == ["Suppress tap-distance on this line", "Suppress every latchwatch finding on this line"]
+    line = FAILING.splitlines()[LOOP_LINE]
+    (edit,) = actions[0].edit.changes[uri]
+    assert edit.range.start == types.Position(LOOP_LINE, 0) and edit.range.end == types.Position(LOOP_LINE, len(line))
+    assert edit.new_text == line + "  # latchwatch: ignore[tap-distance]"
+    assert actions[1].edit.changes[uri][0].new_text == line + "  # latchwatch: ignore"
+    # Applying the edit to the buffer suppresses the finding.
+    s.edit_line(uri, 2, LOOP_LINE, 0, len(line), edit.new_text)
+    assert (await s.published_for(uri, version=2)).diagnostics == []
+
+
+async def test_untrusted_folder_runs_nothing_until_trusted(tmp_path, session, env):
+    raising = FAILING + "raise RuntimeError('this must not run')\n"
+    script = make_project(tmp_path / "proj", raising)
+    s = session()
+    await s.start(tmp_path / "proj", options={"latchwatch": {"debounce": 50}})
+    uri = s.open(script)
+    (notice,) = (await s.published_for(uri, version=1)).diagnostics
+    assert notice.severity == types.DiagnosticSeverity.Information and notice.range.start.line == 0
+    assert f"latchwatch trust {tmp_path / 'proj'}" in notice.message
+    # A project file cannot grant trust: it is rejected, and nothing still runs.
+    (tmp_path / "proj" / "latchwatch.toml").write_text('tech = "demo"\ntrusted = true\n')
+    s.client.text_document_did_save(types.DidSaveTextDocumentParams(types.TextDocumentIdentifier(uri)))
+    await asyncio.sleep(0.5)
+    assert [d.code for d in s.last(uri).diagnostics] == ["trust"]
+    (tmp_path / "proj" / "latchwatch.toml").write_text('tech = "demo"\n')
+    subprocess.run(SERVER[:-1] + ["trust", str(tmp_path / "proj")], env=env, check=True, capture_output=True)
+    s.client.text_document_did_save(types.DidSaveTextDocumentParams(types.TextDocumentIdentifier(uri)))
+    published = await s.published_for(uri, where=lambda p: any(d.code == "script-error" for d in p.diagnostics))
+    (error,) = published.diagnostics  # a script that raised has no layout to check
+    assert error.range.start.line == len(FAILING.splitlines()) and "this must not run" in error.message
+
+
+async def test_settings_from_configuration_and_changes(tmp_path, session):
+    proj = tmp_path / "proj"
+    script = make_project(proj, FAILING + "print('hello from the cell')\n")
+    s = session()
+    await s.start(proj, caps=capabilities(configuration=True), options=trusted(proj),
+                  configuration={"": {"severity": {"tap-distance": "warning"}}})
+    uri = s.open(script)
+    (diagnostic,) = (await s.published_for(uri, version=1)).diagnostics
+    assert diagnostic.severity == types.DiagnosticSeverity.Warning  # editor setting over the default
+    await wait_until(lambda: any("hello from the cell" in m.message for m in s.client.log_messages),
+                     what="the script's output in the log")
+    s.client.set_configuration({"disable": ["tap-distance"]}, section="latchwatch")
+    s.client.workspace_did_change_configuration(types.DidChangeConfigurationParams(
+        settings={"latchwatch": {"disable": ["tap-distance"]}}))
+    await s.published_for(uri, version=1, where=lambda p: p.diagnostics == [])
+
+
+async def test_save_only_mode_waits_for_save(tmp_path, session):
+    script = make_project(tmp_path / "proj")
+    s = session()
+    await s.start(tmp_path / "proj", options=trusted(tmp_path / "proj", runOn="save"))
+    uri = s.open(script)
+    await s.published_for(uri, version=1)
+    s.replace_all(uri, 2, FAILING, CLEAN)
+    await asyncio.sleep(1.0)
+    assert s.last(uri).version == 1
+    s.client.text_document_did_save(types.DidSaveTextDocumentParams(types.TextDocumentIdentifier(uri)))
+    assert (await s.published_for(uri, version=2)).diagnostics == []
+
+
+async def test_multi_root_folders_use_their_own_project_files(tmp_path, session):
+    one = make_project(tmp_path / "one")
+    two = make_project(tmp_path / "two", extra_config='severity = { tap-distance = "info" }\n')
+    s = session()
+    folders = [types.WorkspaceFolder(from_fs_path(str(tmp_path / n)), n) for n in ("one", "two")]
+    await s.start(tmp_path, folders=folders, options={"latchwatch": {"trustedFolders": [str(tmp_path)]}})
+    uri_one, uri_two = s.open(one), s.open(two)
+    (first,) = (await s.published_for(uri_one, version=1)).diagnostics
+    (second,) = (await s.published_for(uri_two, version=1)).diagnostics
+    assert first.severity == types.DiagnosticSeverity.Error
+    assert second.severity == types.DiagnosticSeverity.Information
+
+
+async def test_finding_in_a_helper_module_shows_at_the_call(tmp_path, session):
+    proj = tmp_path / "proj"
+    helper_lines = [
+        "import gdstk",
+        "",
+        "",
+        "def strip(cell):",
+        "    for x in (0, 14, 28):",
+        "        cell.add(gdstk.rectangle((x, 0), (x + 8, 4), layer=2))",
+        "        cell.add(gdstk.rectangle((x - 0.2, -0.2), (x + 8.2, 4.2), layer=5))",
+    ]
+    make_project(proj, "\n".join(helper_lines) + "\n", name="helper.py")
+    main = "\n".join(FAILING.splitlines()[:8] + ["import helper", "helper.strip(cell)"]) + "\n"
+    script = proj / "main.py"
+    script.write_text(main)
+    s = session()
+    await s.start(proj, options=trusted(proj))
+    uri = s.open(script)
+    (here,) = (await s.published_for(uri, version=1)).diagnostics
+    assert here.range.start.line == 9 and here.message.startswith("drawn at helper.py:6 through this call")
+    helper_uri = from_fs_path(str(proj / "helper.py"))
+    (there,) = (await s.published_for(helper_uri)).diagnostics
+    assert there.range.start.line == 5
+
+
+async def test_utf8_position_encoding_when_the_client_asks(tmp_path, session):
+    script = make_project(tmp_path / "proj", FAILING.replace(
+        "    cell.add(gdstk.rectangle((x, 0)", "    µ = 1; cell.add(gdstk.rectangle((x, 0)"))
+    s = session()
+    result = await s.start(tmp_path / "proj", caps=capabilities(encodings=["utf-8"]), options=trusted(tmp_path / "proj"))
+    assert result.capabilities.position_encoding == "utf-8"
+    uri = s.open(script)
+    (diagnostic,) = (await s.published_for(uri, version=1)).diagnostics
+    line = script.read_text().splitlines()[LOOP_LINE]
+    # The range starts at `cell.add`, which follows a 2-byte character.
+    assert diagnostic.range.start.character == len(line[:line.index("cell.add")].encode("utf-8"))
+
+
+async def test_long_runs_report_progress(tmp_path, session):
+    script = make_project(tmp_path / "proj", "import time\ntime.sleep(1.6)\n" + FAILING)
+    s = session()
+    await s.start(tmp_path / "proj", caps=capabilities(progress=True), options=trusted(tmp_path / "proj"))
+    uri = s.open(script)
+    await s.published_for(uri, version=1)
+    await wait_until(lambda: any(isinstance(r[-1], types.WorkDoneProgressEnd)
+                                 for r in s.client.progress_reports.values() if r), what="progress end")
+    (reports,) = [r for r in s.client.progress_reports.values() if r]
+    assert isinstance(reports[0], types.WorkDoneProgressBegin) and "cell.py" in reports[0].message
+
+
+# --- bad input on the wire, below the client library --------------------------------
+
+def frame(body: bytes) -> bytes:
+    return b"Content-Length: %d\r\n\r\n" % len(body) + body
+
+
+def read_message(stream, timeout: float = 10.0) -> dict:
+    deadline = time.monotonic() + timeout
+    header = b""
+    while not header.endswith(b"\r\n\r\n"):
+        if not select.select([stream], [], [], max(0.0, deadline - time.monotonic()))[0]:
+            raise AssertionError("no answer from the server")
+        header += stream.read(1)
+    length = int(header.split(b"Content-Length:")[1].split(b"\r\n")[0])
+    return json.loads(stream.read(length))
+
+
+def read_response(stream, msg_id) -> dict:
+    while True:
+        message = read_message(stream)
+        if "method" not in message and message.get("id") == msg_id:
+            return message
+
+
+def test_malformed_messages_get_error_responses(tmp_path, env):
+    server = subprocess.Popen(SERVER, stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL,
+                              env=env, bufsize=0)
+    try:
+        send = lambda payload: server.stdin.write(frame(payload if isinstance(payload, bytes) else json.dumps(payload).encode()))
+        send({"jsonrpc": "2.0", "id": 1, "method": "initialize",
+              "params": {"processId": None, "rootUri": None, "capabilities": {}}})
+        assert "capabilities" in read_response(server.stdout, 1)["result"]
+        send(b"{this is not json")
+        assert read_response(server.stdout, None)["error"]["code"] == -32700  # JSON-RPC 2.0: parse error
+        send([1, 2, 3])
+        assert read_response(server.stdout, None)["error"]["code"] == -32600  # invalid request
+        send({"jsonrpc": "2.0", "id": 2, "method": "latchwatch/noSuchMethod", "params": {}})
+        assert read_response(server.stdout, 2)["error"]["code"] == -32601  # method not found
+        send({"jsonrpc": "2.0", "id": 3, "method": "textDocument/hover", "params": {"position": "nowhere"}})
+        assert read_response(server.stdout, 3)["error"]["code"] == -32602  # invalid params
+        send({"jsonrpc": "2.0", "id": 4, "method": "textDocument/hover", "params": {
+            "textDocument": {"uri": "file:///nowhere/never-opened.py"}, "position": {"line": 0, "character": 0}}})
+        assert read_response(server.stdout, 4)["result"] is None
+        send({"jsonrpc": "2.0", "id": 5, "method": "shutdown"})
+        assert read_response(server.stdout, 5)["result"] is None
+        send({"jsonrpc": "2.0", "method": "exit"})
+        assert server.wait(timeout=10) == 0
+    finally:
+        if server.poll() is None:
+            server.kill()
