@@ -1,6 +1,6 @@
 """Benchmark layout: flat standard-cell rows of a requested size.
 
-    python gen_row.py SHAPES     writes gen_row.gds with SHAPES polygons, to one row
+    python gen_row.py SHAPES     writes gen_row.gds with SHAPES polygons, rounded to whole rows
 
 Every polygon is drawn flat through ``box()``, so the count is the real number of
 polygons the script creates. Each row is a run of groups (a well-tap cell and four
