@@ -26,7 +26,7 @@ class CheckResult:
     findings: list[Finding]
     devices: list[Device] | None
     cells: int
-    shapes: int
+    shapes: int  # shapes checked, after flattening every top cell
 
 
 def select_rules(select: Iterable[str] | None = None, ignore: Iterable[str] = (),
@@ -56,9 +56,12 @@ def check_outcome(outcome: RunOutcome, tech: Technology, options: CheckOptions =
     for rule in rules:
         findings.extend(rule.check(ctx))
     layout = outcome.layout
+    shapes = 0
     if outcome.status == "ok" and layout is not None:
         for top in top_cells(outcome, options.top):
-            ctx = CheckContext(outcome, tech, options, flatten(layout, top))
+            flat = flatten(layout, top)
+            shapes += len(flat.polygons)
+            ctx = CheckContext(outcome, tech, options, flat)
             for rule in rules:
                 findings.extend(rule.check(ctx))
             if want_devices:
@@ -67,7 +70,7 @@ def check_outcome(outcome: RunOutcome, tech: Technology, options: CheckOptions =
         findings = [f.with_severity(severity[f.rule]) if f.rule in severity else f for f in findings]
     return CheckResult(
         findings=sorted(_unique(findings), key=Finding.sort_key), devices=devices,
-        cells=len(layout.cells) if layout else 0, shapes=layout.shape_count if layout else 0,
+        cells=len(layout.cells) if layout else 0, shapes=shapes,
     )
 
 
