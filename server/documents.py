@@ -30,11 +30,13 @@ class RunScheduler:
         self._start = start
         self._runs: dict[str, ScheduledRun] = {}
 
-    def request(self, uri: str, version: int, delay: float = 0.0) -> None:
+    def request(self, uri: str, version: int, delay: float = 0.0, restart: bool = False) -> None:
         """Run ``uri`` at ``version`` after ``delay`` seconds, superseding anything
-        scheduled or running for it, except a run of the same version already going."""
+        scheduled or running for it, except a run of the same version already going
+        (unless ``restart``: the settings changed under it)."""
         current = self._runs.get(uri)
-        if current is not None and current.version == version and current.started and not current.done.is_set():
+        if (not restart and current is not None and current.version == version and current.started
+                and not current.done.is_set()):
             return
         self.supersede(uri)
         run = ScheduledRun(version, threading.Event())

@@ -167,9 +167,9 @@ class LatchwatchServer(LanguageServer):
 
     # --- runs ----------------------------------------------------------------------
 
-    def request_run(self, uri: str, delay: float = 0.0) -> None:
+    def request_run(self, uri: str, delay: float = 0.0, restart: bool = False) -> None:
         if uri in self.versions:
-            self.scheduler.request(uri, self.versions[uri], delay)
+            self.scheduler.request(uri, self.versions[uri], delay, restart)
 
     async def run_document(self, uri: str, version: int, cancel: threading.Event) -> None:
         path = Path(to_fs_path(uri))
@@ -363,7 +363,7 @@ def create_server() -> LatchwatchServer:
     def did_change_configuration(ls: LatchwatchServer, params: types.DidChangeConfigurationParams):
         ls.apply_settings(params.settings)
         for uri in list(ls.versions):
-            ls.request_run(uri)
+            ls.request_run(uri, restart=True)
 
     @server.feature(types.TEXT_DOCUMENT_DIAGNOSTIC, types.DiagnosticOptions(
         identifier="latchwatch", inter_file_dependencies=True, workspace_diagnostics=False))

@@ -41,7 +41,7 @@ cell.add(gdstk.rectangle((-2.5, 1.5), (-1.5, 2.5), layer=6))
 cell.add(gdstk.rectangle((20, 0), (28, 4), layer=2))
 cell.add(gdstk.rectangle((19.8, -0.2), (28.2, 4.2), layer=5))
 '''
-FINDING_LINE = 9
+FINDING_LINE = 8  # 0-based, as LSP and vim.diagnostic count
 MESSAGE = "P+ diffusion is 29.00 um from the nearest n-well tap (limit 20.00 um)"
 
 
@@ -77,7 +77,7 @@ def _nvim_version() -> tuple[int, int] | None:
 NVIM_DRIVER = r'''
 vim.cmd("filetype on")
 dofile(CONFIG)
-vim.api.nvim_create_autocmd("VimEnter", { callback = function()
+vim.api.nvim_create_autocmd("VimEnter", { nested = true, callback = function()
   vim.cmd("edit " .. vim.fn.fnameescape(SCRIPT))
   local buf = vim.api.nvim_get_current_buf()
   local ok = vim.wait(60000, function() return #vim.diagnostic.get(buf) > 0 end, 100)
@@ -129,13 +129,14 @@ EMACS_DRIVER = r'''
     (when (and (eglot-current-server) (not (flymake-running-backends)))
       (flymake-start))
     (accept-process-output nil 0.2)))
-(with-temp-file OUT
-  (insert (json-encode
-           (mapcar (lambda (d)
-                     (list (cons 'line (line-number-at-pos (flymake-diagnostic-beg d)))
-                           (cons 'text (flymake-diagnostic-text d))
-                           (cons 'type (symbol-name (flymake-diagnostic-type d)))))
-                   (flymake-diagnostics)))))
+;; Collected in the script's buffer: with-temp-file runs its body in another one.
+(let ((found (mapcar (lambda (d)
+                       (list (cons 'line (line-number-at-pos (flymake-diagnostic-beg d)))
+                             (cons 'text (flymake-diagnostic-text d))
+                             (cons 'type (symbol-name (flymake-diagnostic-type d)))))
+                     (flymake-diagnostics))))
+  (with-temp-file OUT
+    (insert (json-encode (vconcat found)))))
 (kill-emacs 0)
 '''
 

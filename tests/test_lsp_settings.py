@@ -1,0 +1,74 @@
+"""Editor settings and their precedence over the project file (server/lsp_settings.py)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from latchwatch.analyzers.findings import Severity
+from latchwatch.server.lsp_settings import (EditorSettings, SettingsError, TechnologyCache, document_settings,
+                                            merge, section_of, trust_root)
+
+
+def test_section_wrapped_or_bare():
+    assert section_of({"latchwatch": {"tech": "demo"}}) == {"tech": "demo"}
+    assert section_of({"tech": "demo", "other": 1}) == {"tech": "demo"}
+    assert section_of(None) == {}
+
+
+def test_merge_overrides_key_by_key_and_reports_bad_values():
+    base, problems = merge(EditorSettings(), {"tech": "demo", "debounce": 200, "runOn": "save"}, True)
+    assert problems == [] and (base.tech, base.debounce_ms, base.run_on) == ("demo", 200.0, "save")
+    later, problems = merge(base, {"debounce": -1, "runOn": "sometimes", "disable": ["no-such-rule"],
+                                   "severity": {"tap-distance": "fatal"}, "timeout": "soon"}, True)
+    assert later == base  # every bad value is skipped
+    assert len(problems) == 5 and all(p.startswith("setting latchwatch.") and p.endswith("ignored") for p in problems)
+    assert any("runOn" in p and "'change' or 'save'" in p for p in problems)
+
+
+def test_trusted_folders_only_where_allowed():
+    allowed, _ = merge(EditorSettings(), {"trustedFolders": ["/work/chip"]}, allow_trust=True)
+    assert allowed.trusted_folders == ("/work/chip",)
+    scoped, _ = merge(allowed, {"trustedFolders": ["/elsewhere"]}, allow_trust=False)
+    assert scoped.trusted_folders == ("/work/chip",)
+
+
+def make_project(folder: Path, text: str) -> Path:
+    folder.mkdir(parents=True, exist_ok=True)
+    (folder / "latchwatch.toml").write_text(text)
+    script = folder / "cells" / "row.py"
+    script.parent.mkdir(exist_ok=True)
+    script.write_text("")
+    return script
+
+
+def test_editor_settings_override_the_project_file(tmp_path):
+    # DESIGN 5.5: editor settings override the file for the language server.
+    script = make_project(tmp_path / "chip", 'tech = "demo"\ntimeout = 3\ndisable = ["no-geometry"]\n'
+                                             'severity = { tap-distance = "warning", floating-well = "info" }\n')
+    techs = TechnologyCache()
+    from_file = document_settings(script, EditorSettings(), None, techs)
+    assert from_file.check.tech.name == "demo" and from_file.check.timeout == 3.0
+    assert from_file.check.disable == ("no-geometry",)
+    assert from_file.root == tmp_path / "chip" and from_file.check.project_root == tmp_path / "chip"
+    editor, _ = merge(EditorSettings(), {"timeout": 7, "disable": [], "severity": {"tap-distance": "info"}}, True)
+    both = document_settings(script, editor, None, techs)
+    assert both.check.timeout == 7.0 and both.check.disable == ()
+    assert both.check.severity == {"tap-distance": Severity.INFO, "floating-well": Severity.INFO}
+    assert both.check.devices  # the hover reads the device table
+
+
+def test_missing_technology_names_both_places(tmp_path):
+    script = make_project(tmp_path / "chip", "timeout = 3\n")
+    with pytest.raises(SettingsError, match=r"set `tech` in latchwatch.toml .* latchwatch.tech"):
+        document_settings(script, EditorSettings(), None, TechnologyCache())
+
+
+def test_trust_root_prefers_the_project_folder(tmp_path):
+    script = make_project(tmp_path / "chip", 'tech = "demo"\n')
+    assert trust_root(script, tmp_path) == tmp_path / "chip"
+    loose = tmp_path / "loose" / "a.py"
+    loose.parent.mkdir()
+    assert trust_root(loose, None) == tmp_path / "loose"
+    assert trust_root(loose, tmp_path) == tmp_path
