@@ -14,6 +14,7 @@ import logging
 import os
 import sys
 import threading
+import traceback
 import uuid
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
@@ -36,6 +37,7 @@ from .lsp_settings import (SECTION, DocumentSettings, EditorSettings, SettingsEr
                            document_settings, merge, section_of, trust_root)
 from .pipeline import check_run, run_path
 from .project_config import ConfigError
+from .runner import RunnerError
 from .suppression import add_suppression
 from .trust import TrustStoreError, is_trusted
 
@@ -172,6 +174,19 @@ class LatchwatchServer(LanguageServer):
             self.scheduler.request(uri, self.versions[uri], delay, restart)
 
     async def run_document(self, uri: str, version: int, cancel: threading.Event) -> None:
+        """One run of one document; an internal error goes to the log and to a notice,
+        and never takes the server down."""
+        try:
+            await self._run_document(uri, version, cancel)
+        except RunnerError as error:  # the interpreter cannot start: a setting to fix, not a bug
+            self.publish_notice(uri, version, str(error), types.DiagnosticSeverity.Error, "configuration")
+        except Exception as error:  # asyncio.CancelledError is not an Exception: supersede still works
+            self.log(f"latchwatch internal error while checking {uri}:\n{traceback.format_exc()}", types.MessageType.Error)
+            self.publish_notice(uri, version, f"latchwatch could not check this file: {type(error).__name__}: "
+                                f"{error} (details in the language server log)", types.DiagnosticSeverity.Error,
+                                "internal-error")
+
+    async def _run_document(self, uri: str, version: int, cancel: threading.Event) -> None:
         path = Path(to_fs_path(uri))
         editor = await self.settings_for(uri)
         text = self.workspace.get_text_document(uri).source
@@ -345,6 +360,8 @@ def create_server() -> LatchwatchServer:
     @server.feature(types.TEXT_DOCUMENT_DID_CHANGE)
     def did_change(ls: LatchwatchServer, params: types.DidChangeTextDocumentParams):
         uri = params.text_document.uri
+        if uri not in ls.versions:
+            return  # never opened: nothing to run
         ls.versions[uri] = params.text_document.version
         if ls.scoped.get(uri, ls.editor).run_on == "change":
             ls.request_run(uri, ls.scoped.get(uri, ls.editor).debounce_ms / 1000.0)
@@ -410,6 +427,10 @@ def hover_at(ls: LatchwatchServer, uri: str, line: int):
     text = convert.hover_markdown(result.path, line + 1, result.devices, result.findings, limit)
     if text is None:
         return None
+    formats = ls.client_capabilities.text_document and ls.client_capabilities.text_document.hover
+    formats = formats.content_format if formats else None
+    if formats and types.MarkupKind.Markdown not in formats:
+        return types.Hover(contents=types.MarkupContent(kind=types.MarkupKind.PlainText, value=text.replace("**", "")))
     return types.Hover(contents=types.MarkupContent(kind=types.MarkupKind.Markdown, value=text))
 
 

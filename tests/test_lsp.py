@@ -472,6 +472,15 @@ def test_malformed_messages_get_error_responses(tmp_path, env):
         send({"jsonrpc": "2.0", "id": 4, "method": "textDocument/hover", "params": {
             "textDocument": {"uri": "file:///nowhere/never-opened.py"}, "position": {"line": 0, "character": 0}}})
         assert read_response(server.stdout, 4)["result"] is None
+        # Notifications cannot be answered; the server must just survive them.
+        send({"jsonrpc": "2.0", "method": "textDocument/didChange", "params": {
+            "textDocument": {"uri": "file:///nowhere/never-opened.py", "version": 2},
+            "contentChanges": [{"text": "x = 1\n"}]}})
+        send({"jsonrpc": "2.0", "method": "textDocument/didOpen", "params": {"textDocument": 42}})
+        send({"jsonrpc": "2.0", "method": "$/unknownNotification", "params": {}})
+        send({"jsonrpc": "2.0", "id": 6, "method": "textDocument/hover", "params": {
+            "textDocument": {"uri": "file:///nowhere/never-opened.py"}, "position": {"line": 0, "character": 0}}})
+        assert read_response(server.stdout, 6)["result"] is None
         send({"jsonrpc": "2.0", "id": 5, "method": "shutdown"})
         assert read_response(server.stdout, 5)["result"] is None
         send({"jsonrpc": "2.0", "method": "exit"})
@@ -479,3 +488,44 @@ def test_malformed_messages_get_error_responses(tmp_path, env):
     finally:
         if server.poll() is None:
             server.kill()
+
+
+def test_tcp_transport(tmp_path, env):
+    import socket
+
+    with socket.socket() as probe:
+        probe.bind(("127.0.0.1", 0))
+        port = probe.getsockname()[1]
+    server = subprocess.Popen(SERVER + ["--tcp", f"127.0.0.1:{port}"], env=env, stderr=subprocess.DEVNULL)
+    try:
+        deadline = time.monotonic() + 20
+        while True:
+            try:
+                connection = socket.create_connection(("127.0.0.1", port), timeout=1)
+                break
+            except OSError:
+                if time.monotonic() > deadline:
+                    raise
+                time.sleep(0.1)
+        with connection:
+            body = json.dumps({"jsonrpc": "2.0", "id": 1, "method": "initialize",
+                               "params": {"processId": None, "rootUri": None, "capabilities": {}}}).encode()
+            connection.sendall(frame(body))
+            stream = connection.makefile("rb", buffering=0)
+            assert read_response(stream, 1)["result"]["serverInfo"]["name"] == "latchwatch"
+    finally:
+        server.kill()
+        server.wait()
+
+
+async def test_a_run_that_cannot_start_is_a_notice_and_the_server_lives(tmp_path, session):
+    proj = tmp_path / "proj"
+    script = make_project(proj, extra_config=f'python = "{tmp_path / "no-such-python"}"\n')
+    s = session()
+    await s.start(proj, options=trusted(proj))
+    uri = s.open(script)
+    (notice,) = (await s.published_for(uri, version=1)).diagnostics
+    assert notice.code == "configuration" and "no-such-python" in notice.message
+    (proj / "latchwatch.toml").write_text('tech = "demo"\n')
+    s.client.text_document_did_save(types.DidSaveTextDocumentParams(types.TextDocumentIdentifier(uri)))
+    await s.published_for(uri, version=1, where=lambda p: [d.code for d in p.diagnostics] == ["tap-distance"])

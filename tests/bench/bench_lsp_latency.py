@@ -1,0 +1,148 @@
+"""Edit-to-publish latency of `latchwatch serve`; prints figures, asserts nothing.
+
+    python tests/bench/bench_lsp_latency.py [EDITS]        default 30
+
+A real server over stdio (pygls' client), a trusted temporary project with the demo
+technology and the debounce set to 0 (so it is excluded from the figure), and a small
+cell: a tap, an n-well and four P+ diffusions drawn in a loop. Each edit changes one
+coordinate of the loop; the time runs from sending didChange to receiving the
+publishDiagnostics of that version.
+
+Then, in this process and without the server, the same pipeline split into parts:
+  run      pipeline.run_path: the sandboxed child (interpreter start, gdstk import,
+           the script, the geometry pipe)
+  check    pipeline.check_run: flatten, extract, rules, suppressions
+  bare     `python -I -c "import gdstk"`: the floor any fresh child pays
+The server's overhead is the edit-to-publish median minus run + check.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import os
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+from lsprotocol import types
+from pygls.lsp.client import LanguageClient
+from pygls.uris import from_fs_path
+
+CELL = '''\
+import gdstk
+
+lib = gdstk.Library()
+cell = lib.new_cell("TOP")
+cell.add(gdstk.rectangle((-5, -2), (60, 8), layer=1))
+cell.add(gdstk.rectangle((-3, 0), (-1, 4), layer=2))
+cell.add(gdstk.rectangle((-3.2, -0.2), (-0.8, 4.2), layer=4))
+cell.add(gdstk.rectangle((-2.5, 1.5), (-1.5, 2.5), layer=6))
+for x in (0, 12, 24, WIDTH):
+    cell.add(gdstk.rectangle((x, 0), (x + 8, 4), layer=2))
+    cell.add(gdstk.rectangle((x - 0.2, -0.2), (x + 8.2, 4.2), layer=5))
+'''
+LOOP_LINE = 8
+
+
+def median_ms(values) -> str:
+    return f"{1000 * statistics.median(values):7.1f} ms"
+
+
+async def edit_to_publish(project: Path, script: Path, edits: int) -> list[float]:
+    client = LanguageClient("bench", "0")
+    published: dict[int, float] = {}
+    arrived = asyncio.Event()
+
+    @client.feature(types.TEXT_DOCUMENT_PUBLISH_DIAGNOSTICS)
+    def on_publish(params: types.PublishDiagnosticsParams):
+        if params.version is not None:
+            published[params.version] = time.perf_counter()
+            arrived.set()
+
+    env = {**os.environ, "XDG_CONFIG_HOME": str(project.parent / "xdg"), "XDG_CACHE_HOME": str(project.parent / "cache")}
+    await client.start_io(sys.executable, "-m", "latchwatch.server.cli", "serve", env=env)
+    await client.initialize_async(types.InitializeParams(
+        capabilities=types.ClientCapabilities(), root_uri=from_fs_path(str(project)),
+        initialization_options={"latchwatch": {"trustedFolders": [str(project)], "debounce": 0}}))
+    client.initialized(types.InitializedParams())
+    uri = from_fs_path(str(script))
+    text = script.read_text()
+    client.text_document_did_open(types.DidOpenTextDocumentParams(
+        types.TextDocumentItem(uri=uri, language_id="python", version=1, text=text)))
+    await wait_for(published, arrived, 1)
+    line = text.splitlines()[LOOP_LINE]
+    start = line.index("36")
+    samples = []
+    for version in range(2, edits + 2):
+        value = "36" if version % 2 else "44"  # 36 fails the 20 um limit by 25 um, 44 by 33 um
+        sent = time.perf_counter()
+        client.text_document_did_change(types.DidChangeTextDocumentParams(
+            text_document=types.VersionedTextDocumentIdentifier(uri=uri, version=version),
+            content_changes=[types.TextDocumentContentChangePartial(
+                range=types.Range(types.Position(LOOP_LINE, start), types.Position(LOOP_LINE, start + 2)), text=value)]))
+        await wait_for(published, arrived, version)
+        samples.append(published[version] - sent)
+    await client.shutdown_async(None)
+    client.exit(None)
+    await client.stop()
+    return samples
+
+
+async def wait_for(published: dict, arrived: asyncio.Event, version: int) -> None:
+    while version not in published:
+        arrived.clear()
+        await asyncio.wait_for(arrived.wait(), 60)
+
+
+def pipeline_parts(project: Path, script: Path, repeats: int) -> tuple[list[float], list[float]]:
+    from latchwatch.server.lsp_settings import EditorSettings, TechnologyCache, document_settings
+    from latchwatch.server.pipeline import check_run, run_path
+
+    settings = document_settings(script, EditorSettings(), project, TechnologyCache()).check
+    runs, checks = [], []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        outcome = run_path(script, settings, source=script.read_text())
+        t1 = time.perf_counter()
+        check_run(outcome, settings)
+        t2 = time.perf_counter()
+        runs.append(t1 - t0)
+        checks.append(t2 - t1)
+    return runs, checks
+
+
+def bare_child(repeats: int) -> list[float]:
+    times = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        subprocess.run([sys.executable, "-I", "-c", "import gdstk, numpy"], check=True)
+        times.append(time.perf_counter() - t0)
+    return times
+
+
+def main() -> None:
+    edits = int(sys.argv[1]) if len(sys.argv) > 1 else 30
+    with tempfile.TemporaryDirectory(prefix="latchwatch-bench-") as tmp:
+        project = Path(tmp) / "project"
+        project.mkdir()
+        (project / "latchwatch.toml").write_text('tech = "demo"\n')
+        script = project / "cell.py"
+        script.write_text(CELL.replace("WIDTH", "36"))
+        samples = asyncio.run(edit_to_publish(project, script, edits))
+        runs, checks = pipeline_parts(project, script, min(edits, 15))
+        bare = bare_child(min(edits, 15))
+    print(f"edit-to-publish over {len(samples)} edits (debounce 0):")
+    print(f"  median {median_ms(samples)}   min {1000 * min(samples):7.1f} ms   max {1000 * max(samples):7.1f} ms")
+    print("parts (medians, same cell, in-process):")
+    print(f"  run    {median_ms(runs)}   (pipeline.run_path, the sandboxed child)")
+    print(f"  check  {median_ms(checks)}   (pipeline.check_run)")
+    print(f"  bare   {median_ms(bare)}   (python -I -c 'import gdstk, numpy')")
+    overhead = statistics.median(samples) - statistics.median(runs) - statistics.median(checks)
+    print(f"  server overhead (median edit-to-publish - run - check) {1000 * overhead:7.1f} ms")
+
+
+if __name__ == "__main__":
+    main()
