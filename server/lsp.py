@@ -21,7 +21,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from lsprotocol import types
-from pygls.exceptions import JsonRpcException
+from pygls.exceptions import JsonRpcException, JsonRpcMethodNotFound
 from pygls.lsp.server import LanguageServer
 from pygls.protocol import LanguageServerProtocol
 from pygls.protocol.language_server import lsp_method
@@ -131,6 +131,8 @@ class LatchwatchServer(LanguageServer):
     def report_server_error(self, error: Exception, source) -> None:
         if source is JsonRpcException and isinstance(error, ValueError):  # a body that is not JSON
             self.protocol._send_response(None, error=types.ResponseError(code=-32700, message=f"Parse error: {error}"))
+        if isinstance(error, JsonRpcMethodNotFound):
+            return  # answered already; an unknown method is the client's business
         self.log(f"latchwatch internal error: {type(error).__name__}: {error}", types.MessageType.Error)
 
     # --- settings ----------------------------------------------------------------
