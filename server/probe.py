@@ -493,12 +493,15 @@ def _expand_repetitions(polygons, repeated, copies, layer, datatype, offsets, po
     """Replace each polygon carrying a repetition by its copies, in place in the order."""
     n = len(layer)
     copies = np.maximum(copies, 1)
-    shifts = [np.zeros((1, 2))] * n
-    for k in repeated:
-        shifts[k] = _xy(polygons[k].repetition.get_offsets())
-        copies[k] = len(shifts[k])
+    moves = {}
+    for k in repeated.tolist():
+        moves[k] = _xy(polygons[k].repetition.get_offsets())
+        copies[k] = len(moves[k])
     source = np.repeat(np.arange(n), copies)  # source polygon of each output polygon
-    shift = np.concatenate(shifts)
+    first_copy = np.cumsum(copies) - copies
+    shift = np.zeros((len(source), 2))
+    for k, move in moves.items():
+        shift[first_copy[k]:first_copy[k] + len(move)] = move
     counts = np.diff(offsets)[source]
     new_offsets = np.zeros(len(source) + 1, np.int64)
     np.cumsum(counts, out=new_offsets[1:])
@@ -668,15 +671,26 @@ def captured_cells(recorder):
 # Running the script.
 
 
+TRACEBACK_KEEP = (150, 50)  # innermost and outermost frames kept of a deeper traceback
+
+
 def traceback_frames(tb, tables):
-    """Frame ids of a traceback, innermost first, probe frames left out."""
+    """Frame ids of a traceback, innermost first, probe frames left out.
+
+    Every frame is kept (the checker picks the user's), except that a runaway
+    recursion keeps only its innermost and outermost frames.
+    """
     entries = []
     while tb is not None:
         code = tb.tb_frame.f_code
         if code.co_filename != PROBE_FILE:
-            entries.append(tables.frame_id(code, tb.tb_lasti))
+            entries.append((code, tb.tb_lasti))
         tb = tb.tb_next
-    return entries[::-1]
+    entries.reverse()
+    inner, outer = TRACEBACK_KEEP
+    if len(entries) > inner + outer:
+        entries = entries[:inner] + entries[-outer:]
+    return [tables.frame_id(code, lasti) for code, lasti in entries]
 
 
 def failure_header(kind, exc_type, message, frames=()):
@@ -893,6 +907,10 @@ def _remember_source(path, source):
 def main(argv=None):
     options = parse_args(sys.argv[1:] if argv is None else argv)
     applied = apply_limits(options)
+    try:  # prints reach the log line by line, and survive a kill on timeout
+        sys.stdout.reconfigure(line_buffering=True)
+    except (AttributeError, ValueError):
+        pass
     _Control(options.control_fd).say("started limits=%s" % ",".join(applied))
     header, arrays = run(options)
     for stream in (sys.stdout, sys.stderr):

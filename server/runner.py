@@ -40,6 +40,7 @@ KILL_GRACE = 0.2  # s between SIGTERM and SIGKILL
 _POLL = 0.05  # s between checks of the cancel event, and of child exit without a pidfd
 _DRAIN_LIMIT = 1.0  # s to collect the pipes' last bytes after the child is gone
 _ENV_NAMES = ("PATH", "HOME", "LANG", "LANGUAGE", "TZ")
+_THREAD_NAMES = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS")
 _FRAME_LINE = re.compile(r'^\s*File "(?P<file>.*)", line (?P<line>\d+) in (?P<function>.*)$')
 
 
@@ -51,6 +52,10 @@ def child_environment(temp_dir: Path) -> dict[str, str]:
     """The environment the script sees: locale and paths only, never tokens or keys."""
     env = {name: value for name, value in os.environ.items() if name in _ENV_NAMES or name.startswith("LC_")}
     env.setdefault("PATH", os.defpath)
+    # numpy's BLAS reserves address space per thread; on a many-core machine that
+    # alone could exceed the address-space limit, so the child uses a few threads.
+    for name in _THREAD_NAMES:
+        env[name] = os.environ.get(name, str(min(4, os.cpu_count() or 1)))
     for name in ("TMPDIR", "TMP", "TEMP"):
         env[name] = str(temp_dir)
     return env

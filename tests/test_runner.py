@@ -11,7 +11,7 @@ from pathlib import Path
 
 import pytest
 
-from latchwatch.server import runner
+from latchwatch.server import probe, runner
 from latchwatch.server.runner import RunnerError, run_script
 
 linux_only = pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")
@@ -113,7 +113,8 @@ def test_child_environment_is_an_allow_list(tmp_path, monkeypatch):
     monkeypatch.setenv("LC_ALL", "C.UTF-8")
     env = runner.child_environment(tmp_path)
     assert "GITHUB_TOKEN" not in env and env["LC_ALL"] == "C.UTF-8"
-    assert set(env) <= {"PATH", "HOME", "LANG", "LANGUAGE", "TZ", "TMPDIR", "TMP", "TEMP"} | {
+    assert set(env) <= {"PATH", "HOME", "LANG", "LANGUAGE", "TZ", "TMPDIR", "TMP", "TEMP",
+                        "OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS"} | {
         k for k in env if k.startswith("LC_")}
 
 
@@ -293,3 +294,18 @@ def test_interpreter_without_gdstk_is_explained(tmp_path):
     outcome = run_script(_script(tmp_path, "import gdstk\n"), python=python)
     assert outcome.status == "error"
     assert "cannot import numpy and gdstk" in outcome.failure.message and python in outcome.failure.message
+
+
+def test_output_printed_before_a_timeout_is_kept(tmp_path):
+    path = _script(tmp_path, "print('step 1 done')\nwhile True: pass\n")
+    outcome = run_script(path, timeout=1.0)
+    assert outcome.status == "timeout"
+    assert outcome.output == "step 1 done\n"
+
+
+def test_runaway_recursion_keeps_both_ends_of_the_traceback(tmp_path):
+    path = _script(tmp_path, "def down(n):\n    return down(n + 1)\n\ndown(0)\n")
+    failure = run_script(path).failure
+    assert failure.exc_type == "RecursionError"
+    assert len(failure.frames) == sum(probe.TRACEBACK_KEEP)
+    assert (failure.frames[0].line, failure.frames[-1].line) == (2, 4)
