@@ -1,5 +1,6 @@
 """The runner: the child's environment, how runs end, limits, output and process cleanup."""
 
+import ast
 import os
 import shutil
 import subprocess
@@ -309,3 +310,23 @@ def test_runaway_recursion_keeps_both_ends_of_the_traceback(tmp_path):
     assert failure.exc_type == "RecursionError"
     assert len(failure.frames) == sum(probe.TRACEBACK_KEEP)
     assert (failure.frames[0].line, failure.frames[-1].line) == (2, 4)
+
+
+def test_limits_are_in_force_in_the_child_and_cannot_be_lifted(tmp_path):
+    path = _script(tmp_path, """\
+        import resource
+        print(resource.getrlimit(resource.RLIMIT_CORE))
+        print(resource.getrlimit(resource.RLIMIT_AS))
+        print(resource.getrlimit(resource.RLIMIT_CPU))
+        try:
+            resource.setrlimit(resource.RLIMIT_AS, (resource.RLIM_INFINITY, resource.RLIM_INFINITY))
+        except ValueError:
+            print("cannot lift")
+        """)
+    outcome = run_script(path, timeout=3, memory_limit=2 << 30)
+    core, address_space, cpu, lifted = outcome.output.splitlines()
+    assert core == "(0, 0)"
+    assert address_space == f"({2 << 30}, {2 << 30})"
+    soft, hard = ast.literal_eval(cpu)
+    assert soft == int(3 + runner.STARTUP_ALLOWANCE + runner.COLLECT_ALLOWANCE) and hard == soft + 1
+    assert lifted == "cannot lift"
