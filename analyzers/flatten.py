@@ -15,6 +15,7 @@ import numpy as np
 import shapely
 
 from .captured import CapturedLayout
+from .geometry import axis_aligned_rectangles
 
 MAX_DEPTH = 64
 
@@ -159,22 +160,31 @@ def _transform_points(points, matrix, offset):
 
 
 def _polygons_from_rings(coords, offsets):
-    """Shapely polygons from concatenated ring vertices; rectangles take a fast path."""
+    """Shapely polygons from concatenated ring vertices, built in one call per vertex
+    count (rectangles, the bulk of any layout, are one reshape)."""
     counts = np.diff(offsets)
+    out = np.empty(len(counts), dtype=object)
     if len(counts) == 0:
-        return np.empty(0, dtype=object)
-    if np.all(counts == counts[0]) and counts[0] >= 3:
-        return shapely.polygons(coords.reshape(len(counts), counts[0], 2))
-    ring_index = np.repeat(np.arange(len(counts)), counts)
-    rings = shapely.linearrings(coords, indices=ring_index)
-    return shapely.polygons(rings)
+        return out
+    for k in np.unique(counts):
+        members = np.flatnonzero(counts == k)
+        if k < 3:
+            # Fewer than three vertices: no area; repair() reports it as invalid.
+            out[members] = [shapely.Polygon()] * len(members)
+            continue
+        idx = offsets[members][:, None] + np.arange(k)
+        out[members] = shapely.polygons(coords[idx])
+    return out
 
 
 def repair(polygons: np.ndarray):
     """Make invalid polygons valid, keeping only their polygonal parts.
 
     A degenerate polygon (zero area) becomes an empty geometry that no query hits."""
-    invalid = np.flatnonzero(~shapely.is_valid(polygons) | (shapely.area(polygons) <= 0))
+    # Rectangles are valid by construction; GEOS validity is costly, so test the rest only.
+    others = np.flatnonzero(~axis_aligned_rectangles(polygons))
+    sub = polygons[others]
+    invalid = others[~shapely.is_valid(sub) | (shapely.area(sub) <= 0)]
     if len(invalid) == 0:
         return invalid, np.empty(0, dtype=object), polygons
     bad = polygons[invalid]

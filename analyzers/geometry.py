@@ -17,6 +17,19 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
 
+def axis_aligned_rectangles(polygons: np.ndarray) -> np.ndarray:
+    """Boolean per polygon: an axis-aligned rectangle with positive area (always valid).
+
+    >>> import shapely
+    >>> axis_aligned_rectangles(np.array([shapely.box(0, 0, 2, 1), shapely.Polygon([(0, 0), (2, 0), (1, 1)])])).tolist()
+    [True, False]
+    """
+    b = shapely.bounds(polygons)
+    box_area = (b[:, 2] - b[:, 0]) * (b[:, 3] - b[:, 1])
+    return (shapely.get_num_coordinates(polygons) == 5) & (box_area > 0) & np.isclose(
+        shapely.area(polygons), box_area, rtol=1e-12, atol=0.0)
+
+
 def overlap_pairs(a: np.ndarray, b: np.ndarray, *, touching: bool = False) -> tuple[np.ndarray, np.ndarray]:
     """Index pairs (i, j) where a[i] and b[j] share area (or, with touching, any point)."""
     if len(a) == 0 or len(b) == 0:
@@ -24,9 +37,21 @@ def overlap_pairs(a: np.ndarray, b: np.ndarray, *, touching: bool = False) -> tu
     tree = shapely.STRtree(b)
     ia, ib = tree.query(a, predicate="intersects")
     if not touching and len(ia):
-        keep = ~shapely.touches(a[ia], b[ib])
-        ia, ib = ia[keep], ib[keep]
+        ia, ib = _drop_touching(a, b, ia, ib)
     return ia, ib
+
+
+def _drop_touching(a, b, ia, ib):
+    """Keep the pairs whose interiors meet. Two axis-aligned rectangles do exactly when
+    their boxes overlap with positive width and height; GEOS decides the other pairs."""
+    ba, bb = shapely.bounds(a[ia]), shapely.bounds(b[ib])
+    both_boxes = axis_aligned_rectangles(a)[ia] & axis_aligned_rectangles(b)[ib]
+    w = np.minimum(ba[:, 2], bb[:, 2]) - np.maximum(ba[:, 0], bb[:, 0])
+    h = np.minimum(ba[:, 3], bb[:, 3]) - np.maximum(ba[:, 1], bb[:, 1])
+    keep = (w > 0) & (h > 0)
+    rest = np.flatnonzero(~both_boxes)
+    keep[rest] = ~shapely.touches(a[ia[rest]], b[ib[rest]])
+    return ia[keep], ib[keep]
 
 
 def components(geoms: np.ndarray, *, touching: bool = True) -> np.ndarray:
