@@ -108,3 +108,4 @@ class Device:
     tap_distance_um: float | None
     shunt_ohm: float | None = None
     trigger_current_a: float | None = None
+    net: str | None = None  # names of the labelled nets its terminals are on, comma-separated

@@ -107,6 +107,7 @@ def device_to_dict(device: Device) -> dict:
         "tap_distance_um": number(device.tap_distance_um),
         "shunt_ohm": number(device.shunt_ohm),
         "trigger_current_a": number(device.trigger_current_a),
+        "net": device.net,
     }
 
 
