@@ -7,7 +7,7 @@ from dataclasses import dataclass
 import numpy as np
 import shapely
 
-from .extract import SUBSTRATE, Pieces, spacing_to_opposite_well
+from .extract import SUBSTRATE, Pieces, is_pwell_body, pwell_index, spacing_to_opposite_well
 from .findings import Device
 from .tapdistance import FarthestPoints, TapIndex, farthest_from_taps
 
@@ -26,7 +26,9 @@ class KindResult:
 
 
 def body_name(kind: str, body: int) -> str:
-    return "psub" if body == SUBSTRATE else f"nwell#{body + 1}"
+    if body == SUBSTRATE:
+        return "psub"
+    return f"pwell#{pwell_index(body) + 1}" if is_pwell_body(body) else f"nwell#{body + 1}"
 
 
 def tap_distances(ctx, kind: str, exact: bool) -> KindResult:

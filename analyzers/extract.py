@@ -7,11 +7,18 @@ taps are tap & implant and everything typed on active is a device diffusion.
 
 Every piece keeps the index of the flat shape it was cut from (the drawn active or tap
 polygon), which is how findings find their source line.
+
+Isolation: with a ``deep_nwell`` layer, a p-well isolated over a deep n-well is a body
+of its own (ids ``pwell_body(k)``, below SUBSTRATE): its N+ device diffusions and its
+p-taps are taken out of the substrate. Where the layout draws ``pwell`` shapes, the
+isolated p-wells are their parts inside a deep n-well; otherwise they are the parts of
+each deep n-well not covered by an n-well (the usual n-well ring around a deep n-well
+then separates them from the substrate).
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import shapely
@@ -21,6 +28,21 @@ from .flatten import FlatLayout
 from .technology import Technology
 
 SUBSTRATE = -1  # body id of the p-substrate; n-wells are 0..n_wells-1
+FIRST_PWELL = -2  # isolated p-well k has body FIRST_PWELL - k
+
+
+def pwell_body(k):
+    """Body id of isolated p-well ``k`` (works on arrays)."""
+    return FIRST_PWELL - k
+
+
+def pwell_index(body):
+    """Index of the isolated p-well with body id ``body`` (works on arrays)."""
+    return FIRST_PWELL - body
+
+
+def is_pwell_body(body):
+    return np.asarray(body) <= FIRST_PWELL
 
 
 @dataclass
@@ -60,6 +82,10 @@ class Extraction:
     pdiff_gated: np.ndarray  # bool per pdiff piece: poly crosses it (a transistor)
     ndiff_gated: np.ndarray
     contacts: np.ndarray
+    deep_nwells: np.ndarray = field(default_factory=lambda: np.empty(0, dtype=object))
+    deep_nwell_shapes: list[np.ndarray] = field(default_factory=list)
+    pwells: np.ndarray = field(default_factory=lambda: np.empty(0, dtype=object))  # isolated p-wells
+    pwell_shapes: list[np.ndarray] = field(default_factory=list)  # drawn shapes of each
 
     @property
     def device_count(self) -> int:
@@ -71,16 +97,44 @@ def _shapes(flat: FlatLayout, tech: Technology, role: str) -> tuple[np.ndarray, 
     return flat.polygons[idx], idx
 
 
-def _merge_wells(flat: FlatLayout, tech: Technology):
-    geoms, idx = _shapes(flat, tech, "nwell")
+def _merge_touching(geoms: np.ndarray, idx: np.ndarray):
+    """Merged regions of touching shapes, and the given indices of each region's members."""
     if len(geoms) == 0:
         return np.empty(0, dtype=object), []
     label = g.components(geoms, touching=True)
     n = int(label.max()) + 1
-    wells = g.union_groups(geoms, label, n)
+    regions = g.union_groups(geoms, label, n)
     order = np.argsort(label, kind="stable")
     members = np.split(idx[order], np.flatnonzero(np.diff(label[order])) + 1)
-    return wells, members
+    return regions, [np.unique(m) for m in members]
+
+
+def _merge_wells(flat: FlatLayout, tech: Technology, role: str = "nwell"):
+    return _merge_touching(*_shapes(flat, tech, role))
+
+
+def _isolated_pwells(flat, tech, deep: np.ndarray, deep_shapes: list[np.ndarray], wells: np.ndarray):
+    """(regions, drawn shapes of each): p-wells isolated over a deep n-well (see the top)."""
+    if len(deep) == 0:
+        return np.empty(0, dtype=object), []
+    drawn, drawn_idx = _shapes(flat, tech, "pwell")
+    if len(drawn):
+        parts, owner = g.clip_to_union(drawn, deep)
+        return _merge_touching(parts, drawn_idx[owner])
+    parts, owner = g.clip_outside(deep, wells) if len(wells) else g.explode(deep, np.arange(len(deep)))
+    return parts, [deep_shapes[int(o)] for o in owner]
+
+
+def _split_by_pwells(pieces: Pieces, pwells: np.ndarray) -> Pieces:
+    """Pieces inside an isolated p-well move to its body; the rest stay where they were."""
+    if len(pwells) == 0 or len(pieces) == 0:
+        return pieces
+    inside, i_owner, i_pwell = g.clip_inside(pieces.geoms, pwells)
+    outside, o_owner = g.clip_outside(pieces.geoms, pwells)
+    return Pieces.concat([
+        Pieces(outside, pieces.shape[o_owner], pieces.body[o_owner]),
+        Pieces(inside, pieces.shape[i_owner], pwell_body(i_pwell.astype(np.int64))),
+    ])
 
 
 def _implanted(flat, tech, drawn_role: str, implant_role: str) -> Pieces:
@@ -112,6 +166,9 @@ def extract(flat: FlatLayout, tech: Technology) -> Extraction:
     else:
         ntap, ptap = n_active_in, p_active_out
     pdiff, ndiff = p_active_in, n_active_out
+    deep, deep_shapes = _merge_wells(flat, tech, "deep_nwell")
+    pwells, pwell_shapes = _isolated_pwells(flat, tech, deep, deep_shapes, wells)
+    ndiff, ptap = _split_by_pwells(ndiff, pwells), _split_by_pwells(ptap, pwells)
 
     contacts, _ = _shapes(flat, tech, "contact")
     poly, _ = _shapes(flat, tech, "poly")
@@ -122,7 +179,8 @@ def extract(flat: FlatLayout, tech: Technology) -> Extraction:
         ptap_contacted=g.area_overlap_any(ptap.geoms, contacts),
         pdiff_gated=g.area_overlap_any(pdiff.geoms, poly),
         ndiff_gated=g.area_overlap_any(ndiff.geoms, poly),
-        contacts=contacts,
+        contacts=contacts, deep_nwells=deep, deep_nwell_shapes=deep_shapes,
+        pwells=pwells, pwell_shapes=pwell_shapes,
     )
 
 
