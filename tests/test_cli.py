@@ -1,0 +1,143 @@
+"""The command line end to end (DESIGN 5.1): formats, rule selection, exit statuses,
+layout files as input, and errors that name what is wrong."""
+
+from __future__ import annotations
+
+import json
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import gdstk
+import pytest
+
+FLOATING = '''import gdstk
+lib = gdstk.Library()
+cell = lib.new_cell("TOP")
+cell.add(gdstk.rectangle((0, 0), (30, 10), layer=1))   # n-well
+cell.add(gdstk.rectangle((0, 0), (30, 4), layer=5))    # P+ implant
+cell.add(gdstk.rectangle((0, 0), (30, 4), layer=2))    # P+ diffusion
+cell.add(gdstk.rectangle((0, 6), (2, 8), layer=4))     # N+ implant
+cell.add(gdstk.rectangle((0, 6), (2, 8), layer=2))     # an n-tap without contact
+'''
+
+FAR = '''import gdstk
+lib = gdstk.Library()
+cell = lib.new_cell("TOP")
+cell.add(gdstk.rectangle((-5, -5), (40, 10), layer=1))
+cell.add(gdstk.rectangle((0, 0), (30, 4), layer=5))
+cell.add(gdstk.rectangle((0, 0), (30, 4), layer=2))    # P+ diffusion, 30 um long
+cell.add(gdstk.rectangle((-3, 0), (-1, 4), layer=4))
+cell.add(gdstk.rectangle((-3, 0), (-1, 4), layer=2))   # its n-tap at the left end
+cell.add(gdstk.rectangle((-2.5, 1.5), (-1.5, 2.5), layer=6))
+'''
+
+
+def latchwatch(*args, cwd, timeout=120):
+    exe = Path(sys.executable).with_name("latchwatch")
+    cmd = [str(exe) if exe.exists() else shutil.which("latchwatch"), *args]
+    return subprocess.run(cmd, cwd=cwd, capture_output=True, text=True, timeout=timeout)
+
+
+@pytest.fixture
+def project(tmp_path):
+    (tmp_path / "floating.py").write_text(FLOATING)
+    (tmp_path / "far.py").write_text(FAR)
+    return tmp_path
+
+
+def test_text_format_is_gnu_style(project):
+    run = latchwatch("check", "--tech", "demo", "far.py", cwd=project)
+    assert run.returncode == 1, run.stderr
+    # The farthest point is x = 30, 31 um from the tap edge at x = -1 (analytic).
+    assert run.stdout.splitlines()[0] == (
+        "far.py:6:1: error: P+ diffusion is 31.00 um from the nearest n-well tap (limit 20.00 um) [tap-distance]")
+
+
+def test_json_select_ignore_and_fail_on(project):
+    run = latchwatch("check", "--tech", "demo", "--format", "json", "floating.py", cwd=project)
+    report = json.loads(run.stdout)
+    assert report["schema"] == "latchwatch-report/1"
+    assert [f["rule"] for f in report["findings"]] == ["floating-well", "uncontacted-tap"]
+    assert report["summary"] == {"error": 1, "warning": 1, "info": 0}
+    only = latchwatch("check", "--tech", "demo", "--format", "json", "--select", "uncontacted-tap",
+                      "floating.py", cwd=project)
+    assert [f["rule"] for f in json.loads(only.stdout)["findings"]] == ["uncontacted-tap"]
+    assert only.returncode == 1  # a warning fails at the default --fail-on warning
+    assert latchwatch("check", "--tech", "demo", "--select", "uncontacted-tap", "--fail-on", "error",
+                      "floating.py", cwd=project).returncode == 0
+    rest = latchwatch("check", "--tech", "demo", "--format", "json", "--ignore", "floating-well",
+                      "floating.py", cwd=project)
+    assert [f["rule"] for f in json.loads(rest.stdout)["findings"]] == ["uncontacted-tap"]
+    assert latchwatch("check", "--tech", "demo", "--fail-on", "never", "floating.py", cwd=project).returncode == 0
+
+
+def test_output_file_and_devices(project):
+    run = latchwatch("check", "--tech", "demo", "--format", "json", "--devices", "--output", "r.json",
+                     "far.py", cwd=project)
+    assert run.stdout == ""
+    report = json.loads((project / "r.json").read_text())
+    (device,) = report["devices"]
+    assert device["kind"] == "pdiff" and device["line"] == 6
+    assert device["tap_distance_um"] == pytest.approx(31.0, abs=1e-3)
+
+
+def test_gds_input_carries_cell_and_location(project):
+    lib = gdstk.Library()
+    cell = lib.new_cell("CHIP")
+    for layer, box in ((1, (-5, -5, 40, 10)), (5, (0, 0, 30, 4)), (2, (0, 0, 30, 4)), (4, (-3, 0, -1, 4)),
+                       (2, (-3, 0, -1, 4)), (6, (-2.5, 1.5, -1.5, 2.5))):
+        cell.add(gdstk.rectangle(box[:2], box[2:], layer=layer))
+    lib.write_gds(str(project / "chip.gds"))
+    run = latchwatch("check", "--tech", "demo", "--format", "json", "chip.gds", cwd=project)
+    (finding,) = json.loads(run.stdout)["findings"]
+    assert finding["file"] == "chip.gds" and finding["line"] is None and finding["cell"] == "CHIP"
+    assert finding["location"] == [30.0, 0.0] or finding["location"] == [30.0, 4.0]
+    text = latchwatch("check", "--tech", "demo", "chip.gds", cwd=project).stdout
+    assert text.startswith("chip.gds: error: P+ diffusion is 31.00 um")
+
+
+def test_script_that_draws_nothing_and_one_that_times_out(project):
+    (project / "empty.py").write_text("import gdstk\nlib = gdstk.Library()\nlib.new_cell('E')\n")
+    (project / "slow.py").write_text("import time\nwhile True:\n    time.sleep(0.05)\n")
+    run = latchwatch("check", "--tech", "demo", "--format", "json", "--timeout", "1", "empty.py", "slow.py",
+                     cwd=project)
+    rules = {(f["rule"], f["file"], f["line"]) for f in json.loads(run.stdout)["findings"]}
+    assert ("no-geometry", "empty.py", 1) in rules
+    assert ("script-timeout", "slow.py", 3) in rules
+    assert run.returncode == 1
+
+
+def test_usage_errors_exit_2_and_name_the_problem(project):
+    no_tech = latchwatch("check", "far.py", cwd=project)
+    assert no_tech.returncode == 2 and "no technology" in no_tech.stderr
+    bad_rule = latchwatch("check", "--tech", "demo", "--select", "tap-distanse", "far.py", cwd=project)
+    assert bad_rule.returncode == 2 and "did you mean 'tap-distance'" in bad_rule.stderr
+    bad_top = latchwatch("check", "--tech", "demo", "--top", "NOPE", "far.py", cwd=project)
+    assert bad_top.returncode == 2 and "NOPE" in bad_top.stderr and "TOP" in bad_top.stderr
+    (project / "broken.toml").write_text('name = "x"\n[layers]\nnwell = [1, 0\n')
+    bad_tech = latchwatch("check", "--tech", "broken.toml", "far.py", cwd=project)
+    assert bad_tech.returncode == 2 and "broken.toml" in bad_tech.stderr
+    missing = latchwatch("check", "--tech", "demo", "nothere.py", cwd=project)
+    assert missing.returncode == 2 and "nothere.py" in missing.stderr
+    assert "Traceback" not in "".join(r.stderr for r in (no_tech, bad_rule, bad_top, bad_tech, missing))
+
+
+def test_project_configuration_and_includes(project):
+    (project / "cells").mkdir()
+    (project / "cells" / "far.py").write_text(FAR)
+    (project / "pyproject.toml").write_text(
+        '[tool.latchwatch]\ntech = "demo"\ninclude = ["cells/*.py"]\nseverity = { tap-distance = "info" }\n')
+    run = latchwatch("check", "--format", "json", cwd=project)
+    report = json.loads(run.stdout)
+    assert [(f["file"], f["severity"]) for f in report["findings"]] == [("cells/far.py", "info")]
+    assert run.returncode == 0
+
+
+def test_rules_command(project):
+    listing = latchwatch("rules", cwd=project)
+    assert "tap-distance" in listing.stdout and "not sign-off" in listing.stdout
+    one = latchwatch("rules", "floating-well", cwd=project)
+    for part in ("What it flags", "Why it matters", "Example", "How to fix it"):
+        assert part in one.stdout
