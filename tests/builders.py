@@ -18,6 +18,7 @@ class CellBuilder:
         self.name = name
         self.polys: list[tuple[tuple[int, int], np.ndarray, int]] = []
         self.refs: list[dict] = []
+        self.labels: list[tuple[str, tuple[int, int], tuple[float, float], int]] = []
 
     def rect(self, layer, x0, y0, x1, y1, stack=-1):
         self.polys.append((layer, np.array([(x0, y0), (x1, y0), (x1, y1), (x0, y1)], float), stack))
@@ -25,6 +26,11 @@ class CellBuilder:
 
     def polygon(self, layer, points, stack=-1):
         self.polys.append((layer, np.asarray(points, float), stack))
+        return self
+
+    def label(self, text, layer, x, y, stack=-1):
+        """A text label on (layer, texttype) ``layer`` at (x, y)."""
+        self.labels.append((text, layer, (x, y), stack))
         return self
 
     def ref(self, cell_index, origin=(0, 0), rotation=0.0, magnification=1.0, x_reflection=False,
@@ -42,6 +48,12 @@ class CellBuilder:
             c.poly_offsets = np.concatenate([[0], np.cumsum([len(p[1]) for p in self.polys])]).astype(np.int64)
             c.points = np.concatenate([p[1] for p in self.polys])
             c.poly_stack = np.array([p[2] for p in self.polys], np.int32)
+        if self.labels:
+            c.label_text = [t for t, _, _, _ in self.labels]
+            c.label_layer = np.array([lay[0] for _, lay, _, _ in self.labels], np.int32)
+            c.label_texttype = np.array([lay[1] for _, lay, _, _ in self.labels], np.int32)
+            c.label_origin = np.array([xy for _, _, xy, _ in self.labels], float)
+            c.label_stack = np.array([st for _, _, _, st in self.labels], np.int32)
         if self.refs:
             r = self.refs
             c.ref_cell = np.array([x["cell"] for x in r], np.int32)
