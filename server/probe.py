@@ -3,6 +3,9 @@
 Started by server/runner.py as ``python -I probe.py [options] SCRIPT``. It must stay
 self-contained (standard library, numpy and gdstk only): the interpreter may be the
 user's own, which has gdstk but not latchwatch. Written for Python 3.8 and later.
+With ``--call FUNCTION --kwargs-json JSON`` the script is imported as a module instead
+(not as ``__main__``) and the function's returned cells are collected (parameter
+corners, see _call_generator).
 
 Before the script runs, ``gdstk.Cell`` and ``gdstk.Library`` are replaced by
 subclasses, so every ``cell.add(...)`` logs the caller's stack. Logging is kept cheap
@@ -734,6 +737,9 @@ class _Options:
     paths = ()
     depth = STACK_DEPTH
     script = None
+    call = None  # a function to import the script for and call, instead of running it
+    kwargs = {}
+    non_layout = "error"
 
 
 def parse_args(argv):
@@ -758,6 +764,16 @@ def parse_args(argv):
             options.source_file = value
         elif arg == "--path":
             options.paths.append(value)
+        elif arg == "--call":
+            options.call = value
+        elif arg == "--kwargs-json":
+            options.kwargs = json.loads(value)
+            if not isinstance(options.kwargs, dict):
+                raise SystemExit("probe: --kwargs-json needs a JSON object, got %s" % value)
+        elif arg == "--non-layout":
+            if value not in ("error", "ignore"):
+                raise SystemExit("probe: --non-layout is error or ignore, got %s" % value)
+            options.non_layout = value
         else:
             raise SystemExit("probe: unknown option %s" % arg)
     if len(args) != 1:
@@ -852,17 +868,23 @@ def run(options):
     install(recorder)
     import types
 
-    module = types.ModuleType("__main__")
+    # A call imports the script as a module named after its file, as `import` would,
+    # so its `if __name__ == "__main__":` part stays out; a plain run is __main__.
+    name = "__main__" if options.call is None else os.path.splitext(os.path.basename(script))[0]
+    module = types.ModuleType(name)
     module.__file__ = script
-    sys.modules["__main__"] = module
+    sys.modules[name] = module
     sys.argv = [script]
     failure = None
+    returned = None
     if options.timeout is not None and options.timeout > 0:
         faulthandler.dump_traceback_later(options.timeout, exit=True,
                                           file=options.control_fd if options.control_fd is not None else sys.stderr)
     try:
         code = compile(source, script, "exec", dont_inherit=True)
         exec(code, module.__dict__)
+        if options.call is not None:
+            returned, failure = _call_generator(module, options)
         _finish_threads()
     except SystemExit as stop:
         if stop.code not in (None, 0):
@@ -884,12 +906,53 @@ def run(options):
         return failure, []
     try:
         unit = recorder.libraries[0].unit if recorder.libraries else 1e-6
+        if returned is not None:  # a call: the returned cells are the tops, other cells are left out
+            cells, unit = returned
+            return collect(cells, recorder, unit=unit or 1e-6, source=script)
         return collect(captured_cells(recorder), recorder, unit=unit, source=script)
     except MemoryError as error:
         return _exception_failure(error, options.memory), []
     except Exception as error:
         return failure_header("error", type(error).__name__,
                               "latchwatch could not read the script's layout: %s" % (error,)), []
+
+
+NOT_A_LAYOUT = "returned %s, not a gdstk.Cell, a gdstk.Library or a list of them"
+
+
+def _call_generator(module, options):
+    """Call ``options.call`` of the imported script with ``options.kwargs``.
+
+    Returns ((cells, unit), None), or (None, failure header). The returned cells (a
+    Cell, a Library's cells, or the cells and libraries of a list) are what gets
+    collected, with the cells they reference; cells created but not returned are not.
+    With ``--non-layout ignore`` a value that is no layout collects nothing instead of
+    failing (used to try every function of a file that builds nothing itself).
+    """
+    function = module.__dict__.get(options.call)
+    if not callable(function):
+        return None, failure_header("error", "AttributeError", "the script %s defines no function named %r"
+                                    % (os.path.basename(options.script), options.call))
+    value = function(**options.kwargs)
+    cells, unit = [], None
+    for item in value if isinstance(value, (list, tuple)) else [value]:
+        if isinstance(item, _BaseCell):
+            cells.append(item)
+        elif isinstance(item, _BaseLibrary):
+            cells.extend(item.cells)
+            unit = unit or item.unit
+        else:
+            cells = None
+            break
+    if cells is not None:
+        return (cells, unit), None
+    if options.non_layout == "ignore":
+        return ([], None), None
+    code = getattr(function, "__code__", None)
+    frames = [[code.co_filename, code.co_firstlineno, code.co_name, None, None, None]] if code else []
+    arguments = ", ".join("%s=%r" % item for item in options.kwargs.items())
+    return None, failure_header("error", "TypeError", "%s(%s) %s" % (
+        options.call, arguments, NOT_A_LAYOUT % type(value).__name__), frames)
 
 
 def _remember_source(path, source):
