@@ -10,6 +10,7 @@ after every run so no process the script started outlives it.
 
 from __future__ import annotations
 
+import json
 import math
 import os
 import re
@@ -63,10 +64,14 @@ def child_environment(temp_dir: Path) -> dict[str, str]:
 
 def run_script(path: str | Path, *, source: str | None = None, python: str | None = None, timeout: float = 10.0,
                project_root: Path | None = None, memory_limit: int = 4 << 30,
-               cancel: threading.Event | None = None) -> RunOutcome:
+               cancel: threading.Event | None = None, call: tuple[str, dict] | None = None,
+               accept_non_layout: bool = False) -> RunOutcome:
     """Run one layout script as ``__main__`` in a sandboxed child; never raises for script faults.
 
     ``source`` runs instead of the file's content, compiled under the file's name.
+    ``call=(function, kwargs)`` imports the script as a module instead and checks what
+    ``function(**kwargs)`` returns (kwargs JSON values); a return value that is no
+    layout is a script error, or an empty capture with ``accept_non_layout``.
     Raises RunnerError only when the interpreter cannot be started.
     """
     if not timeout or timeout <= 0:
@@ -80,6 +85,10 @@ def run_script(path: str | Path, *, source: str | None = None, python: str | Non
             source_file = run_dir / "source.py"
             source_file.write_text(source, encoding="utf-8")
         run = _ChildRun(str(path), python or sys.executable, float(timeout), project_root, memory_limit, cancel)
+        if call is not None:
+            function, kwargs = call
+            run.call_args = ["--call", function, "--kwargs-json", json.dumps(kwargs)]
+            run.call_args += ["--non-layout", "ignore" if accept_non_layout else "error"]
         return run.execute(work, source_file)
     finally:
         shutil.rmtree(run_dir, ignore_errors=True)
@@ -125,6 +134,7 @@ class _ChildRun:
         self.result = bytearray()
         self.control = bytearray()
         self.stop_reason: str | None = None
+        self.call_args: list[str] = []  # probe options of a function call (run_script's ``call``)
 
     def command(self, result_fd: int, control_fd: int, source_file: Path | None) -> list[str]:
         absolute = os.path.abspath(self.script)
@@ -137,7 +147,7 @@ class _ChildRun:
             command += ["--path", os.path.abspath(self.project_root)]
         if source_file is not None:
             command += ["--source-file", str(source_file)]
-        return command + ["--", absolute]
+        return command + self.call_args + ["--", absolute]
 
     def execute(self, work: Path, source_file: Path | None) -> RunOutcome:
         result_r, result_w = os.pipe()
