@@ -53,10 +53,21 @@ class CheckContext:
         loc = self.provenance.locate_shape(shape)
         return Related(message, loc["file"], loc["line"], _point(location))
 
-    def shape_finding(self, rule, shape: int, message: str, *, location=None, bbox=None,
-                      value=None, limit=None, unit=None, related=(), figures=None) -> Finding:
+    def related_label(self, label: int, message: str) -> Related:
+        loc = self.provenance.locate_label(label)
+        return Related(message, loc["file"], loc["line"], _point(self.flat.label_xy[label]))
+
+    def shape_finding(self, rule, shape: int, message: str, **fields) -> Finding:
         """A finding on the line that drew flat shape ``shape``."""
-        loc = self.provenance.locate_shape(shape)
+        return self._finding(rule, self.provenance.locate_shape(shape), message, **fields)
+
+    def label_finding(self, rule, label: int, message: str, **fields) -> Finding:
+        """A finding on the line that added flat label ``label``, located at the label."""
+        fields.setdefault("location", self.flat.label_xy[label])
+        return self._finding(rule, self.provenance.locate_label(label), message, **fields)
+
+    def _finding(self, rule, loc: dict, message: str, *, location=None, bbox=None,
+                 value=None, limit=None, unit=None, related=(), figures=None) -> Finding:
         return Finding(
             rule=rule.id, severity=rule.severity, message=message,
             location=_point(location), bbox=_box(bbox), value=_round(value), limit=limit, unit=unit,

@@ -123,8 +123,15 @@ class Provenance:
 
     def locate_shape(self, shape: int) -> dict:
         """Finding fields (file, line, stack, placements, cell) for a flat shape."""
-        anchor = self.anchor(int(self.flat.stack[shape]))
-        placements = self.placements(int(self.flat.instance[shape]))
+        return self._locate(self.anchor(int(self.flat.stack[shape])), int(self.flat.instance[shape]))
+
+    def locate_label(self, label: int) -> dict:
+        """Finding fields for a flat label: the line that added it."""
+        return self._locate(self.anchor(int(self.flat.label_stack[label]), layer_specific=False),
+                            int(self.flat.label_instance[label]))
+
+    def _locate(self, anchor: Anchor, instance: int) -> dict:
+        placements = self.placements(instance)
         frame = anchor.frame
         file = frame.file if frame else None
         line = frame.line if frame else None
