@@ -6,6 +6,7 @@ import numpy as np
 import shapely
 
 from ..devices import KINDS, tap_distances
+from ..extract import SUBSTRATE, is_pwell_body
 from ..findings import Severity
 from .base import Rule, RuleDoc
 
@@ -26,16 +27,18 @@ def check(ctx):
     for kind in KINDS:
         r = results[kind]
         res = r.result
-        # A floating n-well gets its own finding; its devices get none here.
+        # A floating n-well or isolated p-well gets its own finding (floating-well); its
+        # devices get none here. Only the substrate is reported here as having no tap.
         candidates = np.flatnonzero(~res.within_limit & ~np.isnan(r.limit))
-        if kind == "p":
-            candidates = candidates[np.isfinite(res.value[candidates])]
+        candidates = candidates[np.isfinite(res.value[candidates]) | (r.pieces.body[candidates] == SUBSTRATE)]
         # One finding per drawn shape: its worst piece.
         order = candidates[np.lexsort((-np.nan_to_num(res.value[candidates], posinf=1e300), r.pieces.shape[candidates]))]
         first = np.r_[True, r.pieces.shape[order][1:] != r.pieces.shape[order][:-1]] if len(order) else []
         bounds = shapely.bounds(r.pieces.geoms)
         for i in order[first]:
-            what, tap_name, opposite = NAMES[kind][0], NAMES[kind][1], NAMES[kind][2]
+            tap_name, opposite = NAMES[kind][1], NAMES[kind][2]
+            if is_pwell_body(r.pieces.body[i]):
+                tap_name = "p-well tap"
             what = describe(kind, bool(r.gated[i]))
             limit = float(r.limit[i])
             shape = int(r.pieces.shape[i])
@@ -67,7 +70,8 @@ RULE = Rule(
         flags=(
             "Every P+ device diffusion in an n-well, and every N+ device diffusion in the p-body, whose "
             "farthest point lies farther than the technology's limit from the nearest contacted tap of the "
-            "same body (the same n-well for P+, the substrate's p-taps for N+). The limit is "
+            "same body (the same n-well for P+, the substrate's p-taps for N+, or for N+ in a p-well isolated "
+            "by a deep n-well that p-well's own p-taps). The limit is "
             "[rules.tap-distance] limit, limit_p / limit_n, or a by_spacing table keyed by the spacing from "
             "the diffusion to the opposite well. The distance is the maximum over the whole diffusion, "
             "computed to 1 nm (a branch and bound on the distance function); the message names the farthest "

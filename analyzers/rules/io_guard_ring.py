@@ -1,0 +1,232 @@
+"""io-guard-ring: a pad-connected diffusion without a closed guard ring of the right
+type, width and distance (DESIGN 5.7; geometry in analyzers/rings.py)."""
+
+from __future__ import annotations
+
+import numpy as np
+import shapely
+
+from .. import rings
+from ..findings import Severity
+from ..nets import pad_connected
+from ..tapdistance import SLACK
+from .base import Rule, RuleDoc
+from .tap_distance import describe
+
+# Per device kind: the ring it needs and the ring of the opposite type.
+RING = {"n": ("P+", "p-tap"), "p": ("N+", "n-tap")}
+DEFAULT_REACH = 20.0  # um searched for an open ring when the technology sets no max_gap
+
+MESSAGE_NONE = "pad-connected {what} has no {ring} guard ring: no {tap} within {reach:.2f} um surrounds it"
+MESSAGE_OPEN = "pad-connected {what} has an open {ring} guard ring: a gap{width} at ({x:.2f}, {y:.2f}){more}"
+MESSAGE_WRONG = ("pad-connected {what} is surrounded only by an {other} ring ({other_tap}), not the {ring} "
+                 "guard ring ({tap}) it needs")
+MESSAGE_NARROW = ("{ring} guard ring around a pad-connected {what} is {width:.2f} um wide at ({x:.2f}, {y:.2f}) "
+                  "(minimum {limit:.2f} um)")
+MESSAGE_FAR = ("{ring} guard ring's inner edge is {value:.2f} um from the pad-connected {what} at "
+               "({x:.2f}, {y:.2f}) (limit {limit:.2f} um)")
+MESSAGE_BARE = "{ring} guard ring around a pad-connected {what} encloses no contact"
+MESSAGE_NO_OUTER = ("no {other} guard ring surrounds the {ring} guard ring of a pad-connected {what} "
+                    "(double rings required)")
+MESSAGE_OUTER_NARROW = ("outer {other} guard ring around a pad-connected {what} is {width:.2f} um wide at "
+                        "({x:.2f}, {y:.2f}) (minimum {limit:.2f} um)")
+MESSAGE_OUTER_BARE = "outer {other} guard ring around a pad-connected {what} encloses no contact"
+
+
+class _Kind:
+    """The pad-connected devices of one kind with their own and the opposite ring regions."""
+
+    def __init__(self, ctx, kind: str):
+        ex = ctx.extraction
+        self.kind = kind
+        self.pieces = ex.ndiff if kind == "n" else ex.pdiff
+        self.gated = ex.ndiff_gated if kind == "n" else ex.pdiff_gated
+        own, other = (ex.ptap, ex.ntap) if kind == "n" else (ex.ntap, ex.ptap)
+        own_c, other_c = (ex.ptap_contacted, ex.ntap_contacted) if kind == "n" else (
+            ex.ntap_contacted, ex.ptap_contacted)
+        self.own_taps, self.other_taps = own, other
+        self.own = ctx.memo(("tap-regions", "p" if kind == "n" else "n"), lambda: rings.tap_regions(own, own_c))
+        self.other = ctx.memo(("tap-regions", kind), lambda: rings.tap_regions(other, other_c))
+        names = RING[kind], RING["p" if kind == "n" else "n"]
+        self.words = dict(ring=names[0][0], tap=names[0][1], other=names[1][0], other_tap=names[1][1])
+
+
+def _nearest_shape(taps, candidates: np.ndarray, location) -> int:
+    """The drawn shape of the tap piece among ``candidates`` nearest ``location`` (x, y)."""
+    near = candidates[int(np.argmin(shapely.distance(taps.geoms[candidates], shapely.points(location))))]
+    return int(taps.shape[near])
+
+
+def _ring_piece(regions: rings.TapRegions, taps, region: int, location) -> int:
+    return _nearest_shape(taps, regions.members[region], location)
+
+
+def check(ctx):
+    if ctx.flat is None:
+        return
+    params = ctx.tech.rules.get("io-guard-ring")
+    if params is None:
+        return
+    pads = pad_connected(ctx)
+    for kind in ("n", "p"):
+        devices = np.flatnonzero(pads[kind])
+        if len(devices):
+            yield from _check_kind(ctx, _Kind(ctx, kind), devices, params)
+
+
+def _check_kind(ctx, k: _Kind, devices: np.ndarray, params):
+    min_width, max_gap, double = params.get("min_width"), params.get("max_gap"), params.get("double", False)
+    geoms, body = k.pieces.geoms[devices], k.pieces.body[devices]
+    own_hole = rings.innermost_holes(k.own, geoms, lambda d, r: k.own.body[r] == body[d])
+    other_hole = rings.innermost_holes(k.other, geoms, lambda d, r: np.ones(len(d), bool))
+    bounds = shapely.bounds(geoms)
+    seen = set()
+    for n, i in enumerate(devices):
+        shape = int(k.pieces.shape[i])
+        words = dict(k.words, what=describe(k.kind, bool(k.gated[i])))
+
+        def finding(code, message, location, related_shape, related_text, **fields):
+            if (shape, code) in seen:
+                return None
+            seen.add((shape, code))
+            related = (ctx.related_shape(related_shape, related_text, location),) if related_shape is not None else ()
+            return ctx.shape_finding(RULE, shape, message, location=location, bbox=bounds[n], related=related,
+                                     **fields)
+
+        hole = own_hole[n]
+        if hole < 0:
+            f = _missing_ring(ctx, k, n, i, geoms[n], other_hole[n], min_width, max_gap, words, finding)
+            if f is not None:
+                yield f
+            continue
+        region = int(k.own.hole_owner[hole])
+        ring_geom, hole_geom = k.own.geoms[region], k.own.holes[hole]
+        ring_text = f"{words['ring']} guard ring"
+        if min_width is not None:
+            narrow = rings.narrowest_band(ring_geom, hole_geom, geoms[n], min_width)
+            if narrow is not None:
+                x, y = narrow.location
+                f = finding("narrow", MESSAGE_NARROW.format(width=narrow.width, x=x, y=y, limit=min_width, **words),
+                            narrow.location, _ring_piece(k.own, k.own_taps, region, narrow.location), ring_text,
+                            value=narrow.width, limit=min_width, unit="um")
+                if f is not None:
+                    yield f
+        if max_gap is not None:
+            inside = devices[own_hole == hole]
+            value, point = rings.farthest_on_line(shapely.get_exterior_ring(hole_geom), k.pieces.geoms[inside])
+            if value > max_gap + SLACK:
+                f = finding("far", MESSAGE_FAR.format(value=value, x=point[0], y=point[1], limit=max_gap, **words),
+                            point, _ring_piece(k.own, k.own_taps, region, point), ring_text,
+                            value=value, limit=max_gap, unit="um")
+                if f is not None:
+                    yield f
+        if not k.own.contacted[region]:
+            where = shapely.get_coordinates(shapely.point_on_surface(ring_geom))[0]
+            f = finding("bare", MESSAGE_BARE.format(**words), where,
+                        _ring_piece(k.own, k.own_taps, region, where), ring_text)
+            if f is not None:
+                yield f
+        if double:
+            yield from _outer_ring(k, ring_geom, min_width, words, finding)
+
+
+def _missing_ring(ctx, k, n, i, geom, other_hole, min_width, max_gap, words, finding):
+    """No ring of the right type: a ring of the wrong type, an open ring, or nothing."""
+    if other_hole >= 0:
+        region = int(k.other.hole_owner[other_hole])
+        where = shapely.get_coordinates(shapely.shortest_line(k.other.holes[other_hole].exterior, geom))[0]
+        return finding("wrong", MESSAGE_WRONG.format(**words), where,
+                       _ring_piece(k.other, k.other_taps, region, where), f"{words['other']} ring")
+    reach = (max_gap if max_gap is not None else DEFAULT_REACH) + 2 * (min_width or 1.0)
+    own_body = k.pieces.body[i]
+    near = np.flatnonzero((k.own_taps.body == own_body)
+                          & shapely.dwithin(k.own_taps.geoms, geom, reach)) if len(k.own_taps) else np.zeros(0, int)
+    gap = None
+    if len(near):
+        gap = rings.find_gap(shapely.union_all(k.own_taps.geoms[near]), geom,
+                             max_gap if max_gap is not None else DEFAULT_REACH)
+    if gap is None:
+        where = None if len(near) == 0 else shapely.get_coordinates(
+            shapely.shortest_line(shapely.union_all(k.own_taps.geoms[near]), geom))[0]
+        related = _nearest_shape(k.own_taps, near, where) if len(near) else None
+        return finding("none", MESSAGE_NONE.format(reach=reach, **words), where, related,
+                       f"nearest {words['tap']}")
+    x, y = gap.location
+    width = f" of {gap.width:.2f} um" if gap.width is not None else ""
+    more = f" ({gap.count} gaps in all)" if gap.count > 1 else ""
+    return finding("open", MESSAGE_OPEN.format(width=width, x=x, y=y, more=more, **words), gap.location,
+                   _nearest_shape(k.own_taps, near, gap.location), f"{words['ring']} ring beside the gap",
+                   value=gap.width, unit="um" if gap.width is not None else None)
+
+
+def _outer_ring(k, ring_geom, min_width, words, finding):
+    outer = rings.innermost_holes(k.other, np.array([ring_geom], dtype=object),
+                                  lambda d, r: np.ones(len(d), bool))[0]
+    if outer < 0:
+        f = finding("no-outer", MESSAGE_NO_OUTER.format(**words), None, None, "")
+        if f is not None:
+            yield f
+        return
+    region = int(k.other.hole_owner[outer])
+    geom = k.other.geoms[region]
+    text = f"outer {words['other']} guard ring"
+    if min_width is not None:
+        narrow = rings.narrowest_band(geom, k.other.holes[outer], ring_geom, min_width)
+        if narrow is not None:
+            x, y = narrow.location
+            f = finding("outer-narrow", MESSAGE_OUTER_NARROW.format(width=narrow.width, x=x, y=y, limit=min_width,
+                                                                     **words),
+                        narrow.location, _ring_piece(k.other, k.other_taps, region, narrow.location), text,
+                        value=narrow.width, limit=min_width, unit="um")
+            if f is not None:
+                yield f
+    if not k.other.contacted[region]:
+        where = shapely.get_coordinates(shapely.point_on_surface(geom))[0]
+        f = finding("outer-bare", MESSAGE_OUTER_BARE.format(**words), where,
+                    _ring_piece(k.other, k.other_taps, region, where), text)
+        if f is not None:
+            yield f
+
+
+RULE = Rule(
+    id="io-guard-ring",
+    severity=Severity.ERROR,
+    summary="A pad-connected diffusion lacks a closed guard ring of the right type, width and distance.",
+    doc=RuleDoc(
+        flags=(
+            "Every pad-connected device diffusion (one of its terminals is on a net whose label matches "
+            "[nets] pads, or it overlaps the io_marker layer) that is not surrounded by a closed guard ring "
+            "of the right type: a P+ ring (p-taps of its own body, the substrate or its isolated p-well) "
+            "around N+, an N+ ring (n-taps in its own n-well) around P+. Closed means the diffusion lies in a "
+            "hole of one connected tap region; pieces meeting at a corner point count as connected, and the "
+            "width check then reports the joint. With [rules.io-guard-ring]: min_width, the ring must hold a "
+            "closed band at least that wide all round (the narrowest width and its place are reported, exact "
+            "to 1 nm); max_gap, no point of the ring's inner edge may lie farther than that from the "
+            "pad-connected diffusions it encloses (exact to 1 nm); double = true, a closed ring of the "
+            "opposite type must surround the first. The ring must also enclose a contact. An open ring is "
+            "reported with the place and width of its gap, a ring of the wrong type as such."
+        ),
+        why=(
+            "A pad-connected diffusion is where external current enters: an undershoot or overshoot at the "
+            "pin forward-biases its junction and injects carriers straight into the substrate or the well, "
+            "the trigger current of the parasitic thyristor. A majority-carrier ring of taps around it ties "
+            "the body right there, keeping the local base voltage of the parasitic bipolar below the "
+            "junction turn-on voltage (about 0.6-0.7 V); the opposite-type ring of a double ring collects "
+            "the injected minority carriers before they reach the neighbouring devices. A ring that is "
+            "open, too narrow or too far away lets the current past, and its resistance is no longer small."
+        ),
+        example=(
+            "box(cell, NPLUS, 0, 0, 10, 4)\n"
+            "box(cell, ACTIVE, 0, 0, 10, 4)              # output NMOS drain on the pad net\n"
+            "ring(cell, PPLUS, -4, -4, 14, 8, width=2, gap_at='left')   # P+ ring with a gap\n"
+            "cell.add(gdstk.Label('PAD_OUT', (5, 2), layer=7, texttype=5))"
+        ),
+        fix=(
+            "Draw an unbroken contacted tap ring around every pad-connected device: P+ (substrate taps) "
+            "around N+ drivers, N+ (n-well taps) around P+ drivers, at least min_width wide and no farther "
+            "than max_gap from the devices; route gate poly over the ring in metal instead of breaking the "
+            "ring for it; where the technology asks for double rings, add the opposite-type ring outside."
+        ),
+    ),
+    check=check,
+)
