@@ -5,11 +5,15 @@ from __future__ import annotations
 from . import (
     floating_well,
     invalid_geometry,
+    io_guard_ring,
+    io_spacing,
+    isolation_tie,
     no_geometry,
     script_error,
     script_limit,
     script_timeout,
     tap_distance,
+    tap_supply,
     uncontacted_tap,
 )
 from .base import Rule, RuleDoc
@@ -18,6 +22,10 @@ RULES: tuple[Rule, ...] = (
     tap_distance.RULE,
     floating_well.RULE,
     uncontacted_tap.RULE,
+    tap_supply.RULE,
+    io_guard_ring.RULE,
+    io_spacing.RULE,
+    isolation_tie.RULE,
     script_error.RULE,
     script_timeout.RULE,
     script_limit.RULE,
