@@ -9,6 +9,7 @@ import shapely
 
 from .extract import SUBSTRATE, Pieces, is_pwell_body, pwell_index, spacing_to_opposite_well
 from .findings import Device
+from .nets import device_net_names
 from .tapdistance import FarthestPoints, TapIndex, farthest_from_taps
 
 KINDS = ("p", "n")  # P+ in an n-well, N+ in the p-body
@@ -53,6 +54,7 @@ def device_table(ctx) -> list[Device]:
     for kind in KINDS:
         r = ctx.memo(("tap-distance", True), lambda: {k: tap_distances(ctx, k, True) for k in KINDS})[kind]
         bounds = shapely.bounds(r.pieces.geoms)
+        net_names = device_net_names(ctx, kind)
         for i in range(len(r.pieces)):
             loc = ctx.provenance.locate_shape(int(r.pieces.shape[i]))
             value = r.result.value[i]
@@ -61,5 +63,6 @@ def device_table(ctx) -> list[Device]:
                 bbox=tuple(round(float(v), 6) for v in bounds[i]), file=loc["file"], line=loc["line"],
                 body=body_name(kind, int(r.pieces.body[i])),
                 tap_distance_um=None if not np.isfinite(value) else round(float(value), 6),
+                net=net_names[i],
             ))
     return rows
