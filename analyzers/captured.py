@@ -71,6 +71,7 @@ class CapturedLayout:
     stacks: list[tuple[int, ...]] = field(default_factory=list)
     source: str = ""
     unit: float = 1e-6  # metres per user unit
+    precision: float = 1e-9  # metres: the database grid coordinates are snapped to after transforms
 
     def stack_frames(self, stack_id: int) -> tuple[Frame, ...]:
         if stack_id < 0 or stack_id >= len(self.stacks):

@@ -39,4 +39,5 @@ def read_layout(path: str | Path) -> CapturedLayout:
     except (OSError, RuntimeError, ValueError) as error:
         raise LayoutFileError(f"{path}: cannot read as {'GDSII' if kind == 'gds' else 'OASIS'}: {error}") from None
     header, arrays = probe.collect(library.cells, recorder=None, unit=library.unit, source=str(path))
+    header["precision"] = library.precision
     return wire.layout_from_parts(header, arrays)

@@ -106,7 +106,8 @@ def layout_from_parts(header: dict, arrays: list[np.ndarray]) -> CapturedLayout:
         if any(not 0 <= i < len(frames) for i in stack):
             raise WireError(f"stack {stack} names a frame outside the table of {len(frames)}")
     return CapturedLayout(cells=cells, frames=frames, stacks=stacks,
-                          source=str(header.get("source", "")), unit=float(header.get("unit", 1e-6)))
+                          source=str(header.get("source", "")), unit=float(header.get("unit", 1e-6)),
+                          precision=float(header.get("precision", 1e-9)))
 
 
 def _check_cell(cell: CapturedCell, number: int, cell_count: int) -> None:
