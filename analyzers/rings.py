@@ -19,9 +19,9 @@ smallest radius, found by bisection, at which the closed taps surround the diffu
 the gap is the added area that spans from the hole around the diffusion to the outside,
 and its width the distance between the two ring ends beside it.
 
-Distance. The farthest point of a ring's inner edge from a set of diffusions is found
-by a branch and bound along the edge's segments (the distance is 1-Lipschitz along a
-segment, so an interval [a, b] cannot exceed (f(a) + f(b) + |b - a|) / 2); exact to ``tol``.
+Distance. The farthest point of a diffusion's edge from its ring is found by a branch
+and bound along the edge's segments (the distance is 1-Lipschitz along a segment, so an
+interval [a, b] cannot exceed (f(a) + f(b) + |b - a|) / 2); exact to ``tol``.
 """
 
 from __future__ import annotations

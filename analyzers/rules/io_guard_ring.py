@@ -23,7 +23,7 @@ MESSAGE_WRONG = ("pad-connected {what} is surrounded only by an {other} ring ({o
                  "guard ring ({tap}) it needs")
 MESSAGE_NARROW = ("{ring} guard ring around a pad-connected {what} is {width:.2f} um wide at ({x:.2f}, {y:.2f}) "
                   "(minimum {limit:.2f} um)")
-MESSAGE_FAR = ("{ring} guard ring's inner edge is {value:.2f} um from the pad-connected {what} at "
+MESSAGE_FAR = ("pad-connected {what} lies up to {value:.2f} um from its {ring} guard ring, at "
                "({x:.2f}, {y:.2f}) (limit {limit:.2f} um)")
 MESSAGE_BARE = "{ring} guard ring around a pad-connected {what} encloses no contact"
 MESSAGE_NO_OUTER = ("no {other} guard ring surrounds the {ring} guard ring of a pad-connected {what} "
@@ -112,8 +112,8 @@ def _check_kind(ctx, k: _Kind, devices: np.ndarray, params):
                 if f is not None:
                     yield f
         if max_gap is not None:
-            inside = devices[own_hole == hole]
-            value, point = rings.farthest_on_line(shapely.get_exterior_ring(hole_geom), k.pieces.geoms[inside])
+            value, point = rings.farthest_on_line(shapely.get_exterior_ring(geoms[n]),
+                                                  np.array([ring_geom], dtype=object))
             if value > max_gap + SLACK:
                 f = finding("far", MESSAGE_FAR.format(value=value, x=point[0], y=point[1], limit=max_gap, **words),
                             point, _ring_piece(k.own, k.own_taps, region, point), ring_text,
@@ -201,8 +201,8 @@ RULE = Rule(
             "hole of one connected tap region; pieces meeting at a corner point count as connected, and the "
             "width check then reports the joint. With [rules.io-guard-ring]: min_width, the ring must hold a "
             "closed band at least that wide all round (the narrowest width and its place are reported, exact "
-            "to 1 nm); max_gap, no point of the ring's inner edge may lie farther than that from the "
-            "pad-connected diffusions it encloses (exact to 1 nm); double = true, a closed ring of the "
+            "to 1 nm); max_gap, no point of the diffusion's edge may lie farther than that from the ring "
+            "(its inner edge; exact to 1 nm), so a ring spaced max_gap away on every side passes; double = true, a closed ring of the "
             "opposite type must surround the first. The ring must also enclose a contact. An open ring is "
             "reported with the place and width of its gap, a ring of the wrong type as such."
         ),

@@ -51,7 +51,12 @@ def check(ctx):
     # A p-well with N+ devices and no tie is a floating-well finding, with its devices.
     devices = np.zeros(len(ex.pwells), dtype=bool)
     devices[pwell_index(ex.ndiff.body[is_pwell_body(ex.ndiff.body)])] = True
-    for k in np.flatnonzero(~tied_p & ~devices):
+    # A p-well that is only the inside of an n-well ring and holds nothing needs no tie;
+    # one drawn on the pwell layer, or holding taps, does.
+    pwell_layer = ctx.tech.layer("pwell")
+    drawn = np.array([pwell_layer is not None and (int(ctx.flat.layer[s[0]]), int(ctx.flat.datatype[s[0]]))
+                      == tuple(pwell_layer) for s in ex.pwell_shapes], dtype=bool)
+    for k in np.flatnonzero(~tied_p & ~devices & (drawn | (bare > 0))):
         extra = f"; its {bare[k]} p-tap{'s' if bare[k] > 1 else ''} enclose no contact" if bare[k] else ""
         yield ctx.shape_finding(RULE, int(ex.pwell_shapes[k][0]), MESSAGE_PWELL.format(extra=extra),
                                 location=_where(ex.pwells[k]), bbox=shapely.bounds(ex.pwells[k]))
@@ -67,8 +72,9 @@ RULE = Rule(
             "touches (the deep n-well is tied through the n-wells that meet it), and every p-well isolated "
             "over a deep n-well that has no contacted p-tap of its own. Isolated p-wells are the parts of "
             "drawn pwell shapes inside a deep n-well or, where the layout draws no pwell, the parts of a "
-            "deep n-well not covered by n-well. An isolated p-well that holds N+ devices and no tie is "
-            "reported by floating-well instead, together with its devices. The N+ devices of an isolated "
+            "deep n-well not covered by n-well; such an undrawn p-well is flagged only when it holds a tap "
+            "(one with no contact), since an empty one injects nothing. An isolated p-well that holds N+ "
+            "devices and no tie is reported by floating-well instead, together with its devices. The N+ devices of an isolated "
             "p-well are measured by tap-distance against that p-well's own p-taps, never the substrate's."
         ),
         why=(
