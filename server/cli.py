@@ -15,8 +15,8 @@ from latchwatch.analyzers.flatten import HierarchyError
 from latchwatch.analyzers.rules import RULES, RULES_BY_ID
 from latchwatch.analyzers.technology import TechnologyError
 
-from . import techfiles
-from .pipeline import CheckSettings, check_paths, expand_paths
+from . import sweep, techfiles
+from .pipeline import CheckSettings, expand_paths
 from .project_config import ConfigError, expand_includes, find_project_config
 from .report_json import render_json
 from .report_sarif import render_sarif
@@ -63,6 +63,11 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("--python", metavar="PATH", help="interpreter that runs the scripts")
     c.add_argument("--top", metavar="CELL", help="check this cell as the top")
     c.add_argument("--devices", action="store_true", help="add the per-device table to the report")
+    c.add_argument("--sweep", metavar="FUNCTION", help="call this function of the one script at each corner")
+    c.add_argument("--param", action="append", default=[], metavar="NAME=V1,V2,...",
+                   help="values of one parameter of --sweep (repeatable; the full grid is run)")
+    c.add_argument("--corners", type=int, metavar="N", help="run N corners of each sweep, always the lowest and highest")
+    c.add_argument("--jobs", type=int, metavar="N", help="runs at a time (default: the number of cores)")
 
     r = sub.add_parser("rules", help="list rules, or show one rule's documentation")
     r.add_argument("rule", nargs="?")
@@ -122,11 +127,12 @@ def _check(args) -> int:
     if args.paths:
         excluded = _excluder(config)
         paths = expand_paths(args.paths, excluded)
-    elif config.include:
+    elif config.include or config.sweeps:
         paths = expand_includes(config)
     else:
-        raise UsageError("nothing to check: give PATHs or set `include` in [tool.latchwatch]")
-    report = check_paths(paths, settings, progress=lambda m: print(m, file=sys.stderr))
+        raise UsageError("nothing to check: give PATHs or set `include` (or a sweep) in [tool.latchwatch]")
+    report = sweep.check_all(paths, settings, _sweeps(args, config, paths), jobs=args.jobs, corners=args.corners,
+                             progress=sweep.ProgressBar(sys.stderr), unlisted=not args.paths)
     text = RENDERERS[args.format](report)
     if args.output:
         args.output.write_text(text if text.endswith("\n") else text + "\n", encoding="utf-8")
@@ -135,6 +141,23 @@ def _check(args) -> int:
     threshold = FAIL_LEVELS[args.fail_on]
     failed = threshold is not None and any(f.severity >= threshold for f in report.findings)
     return 1 if failed else 0
+
+
+def _sweeps(args, config, paths) -> list:
+    """The configured sweeps; ``--sweep`` replaces those of its one script."""
+    if args.jobs is not None and args.jobs < 1:
+        raise UsageError(f"--jobs: expected at least 1, got {args.jobs}")
+    if args.corners is not None and args.corners < 2:
+        raise UsageError(f"--corners: expected at least 2 (the lowest and the highest corner), got {args.corners}")
+    sweeps = list(sweep.configured_sweeps(config))
+    if args.sweep is None:
+        if args.param:
+            raise UsageError("--param needs --sweep FUNCTION")
+        return sweeps
+    if len(paths) != 1 or paths[0].suffix.lower() != ".py":
+        raise UsageError("--sweep: give exactly one script (.py) to call the function of")
+    chosen = sweep.ad_hoc_sweep(paths[0], args.sweep, args.param)
+    return [s for s in sweeps if s not in sweep.sweeps_for(paths[0], sweeps)] + [chosen]
 
 
 def _excluder(config):
@@ -198,7 +221,7 @@ def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     try:
         return COMMANDS[args.command](args)
-    except (UsageError, ConfigError, TechnologyError, TopCellError, HierarchyError) as exc:
+    except (UsageError, ConfigError, TechnologyError, TopCellError, HierarchyError, sweep.SweepError) as exc:
         print(f"latchwatch: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:

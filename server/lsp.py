@@ -32,10 +32,10 @@ from latchwatch.analyzers.rules import RULES_BY_ID
 from latchwatch.analyzers.technology import TechnologyError
 
 from . import lsp_convert as convert
+from . import sweep
 from .documents import RunScheduler
 from .lsp_settings import (SECTION, DocumentSettings, EditorSettings, SettingsError, TechnologyCache,
                            document_settings, merge, section_of, trust_root)
-from .pipeline import check_run, run_path
 from .project_config import ConfigError
 from .runner import RunnerError
 from .suppression import add_suppression
@@ -94,6 +94,7 @@ class DocumentResult:
     settings: DocumentSettings | None = None
     findings: list = field(default_factory=list)
     devices: list = field(default_factory=list)
+    runs: list = field(default_factory=list)  # convert.RunFindings per corner (one for a plain run)
 
 
 class LatchwatchServer(LanguageServer):
@@ -197,18 +198,24 @@ class LatchwatchServer(LanguageServer):
             if not is_trusted(path, editor.trusted_folders):
                 return self.publish_notice(uri, version, untrusted_message(trust_root(path, folder)), code="trust")
             settings = document_settings(path, editor, folder, self.techs)
-        except (ConfigError, TechnologyError, SettingsError, TrustStoreError) as error:
+            sweeps = sweep.sweeps_for(path, sweep.configured_sweeps(settings.project))
+        except (ConfigError, TechnologyError, SettingsError, TrustStoreError, sweep.SweepError) as error:
             return self.publish_notice(uri, version, str(error), types.DiagnosticSeverity.Error, "configuration")
         buffers = {to_fs_path(d.uri): d.source for d in self.workspace.text_documents.values()}
-        async with Progress(self, f"running {path.name}"):
+        async with Progress(self, f"running {path.name}") as progress:
+            planned = len(sweep.plan_script(path, sweeps))
+            progress.counts = (0, planned) if planned > 1 else None
             done = await asyncio.get_running_loop().run_in_executor(
-                self.runs, check_document, path, text, settings, cancel, buffers)
+                self.runs, check_document, path, text, settings, cancel, buffers, sweeps, progress.runs_done)
         if done is None or cancel.is_set() or self.versions.get(uri) != version:
             return  # superseded: a newer version runs, or the document closed
-        findings, devices, output = done
+        runs, output = done
         if output:
             self.log(f"{path}: script output:\n{output.rstrip()}")
-        self.publish_run(uri, version, DocumentResult(version, "", str(path), settings, findings, devices), buffers)
+        findings = [f for r in runs for f in r.findings]
+        devices = [d for r in runs for d in r.devices]
+        self.publish_run(uri, version, DocumentResult(version, "", str(path), settings, findings, devices, runs),
+                         buffers)
 
     # --- publishing ----------------------------------------------------------------
 
@@ -221,8 +228,9 @@ class LatchwatchServer(LanguageServer):
         self.store(uri, DocumentResult(version, "", to_fs_path(uri)), {uri: [diagnostic]})
 
     def publish_run(self, uri: str, version: int, result: DocumentResult, buffers: dict[str, str]) -> None:
-        by_file = convert.diagnostics_by_file(result.findings, result.devices, result.path,
-                                              LineReader(buffers), self.encoding, self.rule_href(uri))
+        by_file = convert.diagnostics_for_runs(
+            result.runs or [convert.RunFindings(None, None, tuple(result.findings), tuple(result.devices))],
+            result.path, LineReader(buffers), self.encoding, self.rule_href(uri))
         self.store(uri, result, {from_fs_path(file): diagnostics for file, diagnostics in by_file.items()})
 
     def store(self, uri: str, result: DocumentResult, by_target: dict[str, list[types.Diagnostic]]) -> None:
@@ -263,16 +271,27 @@ class LatchwatchServer(LanguageServer):
 
 
 def check_document(path: Path, text: str, settings: DocumentSettings, cancel: threading.Event,
-                   buffers: dict[str, str]):
-    """One run in a worker thread: the shared pipeline, unsaved buffers as the source of
-    the document and of the suppression comments. None when cancelled."""
+                   buffers: dict[str, str], sweeps=(), on_run=lambda done, total: None):
+    """The runs of one document in a worker thread (its configured corners, its
+    previewed functions, or the plain run), through the shared pipeline, with unsaved
+    buffers as the source of the document and of the suppression comments. Returns
+    (RunFindings per run, the script output), or None when cancelled."""
     if cancel.is_set():
         return None
-    outcome = run_path(path, settings.check, source=text, cancel=cancel)
-    if cancel.is_set():
+    results = sweep.check_script(path, settings.check, sweeps, source=text, cancel=cancel,
+                                 read_source=lambda f: buffers.get(f) or _disk(f),
+                                 on_result=lambda result, done, total: on_run(done, total))
+    if results is None or cancel.is_set():
         return None
-    findings, devices, _summary = check_run(outcome, settings.check, read_source=lambda f: buffers.get(f) or _disk(f))
-    return findings, devices, outcome.output
+    runs = [convert.RunFindings(r.task.function, r.task.corner, tuple(r.findings), tuple(r.devices)) for r in results]
+    output = "\n".join(_labelled_output(r) for r in results if r.output)
+    return runs, output
+
+
+def _labelled_output(result) -> str:
+    if result.task.function is None:
+        return result.output.rstrip()
+    return f"[{result.task.function}: {convert.corner_label(result.task.corner)}]\n{result.output.rstrip()}"
 
 
 def _disk(file: str) -> str | None:
@@ -322,12 +341,15 @@ def rule_doc_file(rule: str) -> str | None:
 
 class Progress:
     """Work-done progress for a run that takes longer than PROGRESS_AFTER_S, when the
-    client advertises support for it."""
+    client advertises support for it; runs of several corners report how many are done."""
 
     def __init__(self, server: LatchwatchServer, title: str):
         self.server, self.title, self.token, self.timer = server, title, None, None
+        self.loop = None
+        self.counts: tuple[int, int] | None = None  # runs done, runs in all
 
     async def __aenter__(self):
+        self.loop = asyncio.get_running_loop()
         if self.server._client_can("window.work_done_progress"):
             self.timer = asyncio.ensure_future(self._begin_later())
         return self
@@ -337,7 +359,28 @@ class Progress:
         token = f"latchwatch-{uuid.uuid4()}"
         await self.server.work_done_progress.create_async(token)
         self.token = token
-        self.server.work_done_progress.begin(token, types.WorkDoneProgressBegin(title="latchwatch", message=self.title))
+        self.server.work_done_progress.begin(token, types.WorkDoneProgressBegin(
+            title="latchwatch", message=self.message(), percentage=self.percentage(),
+            cancellable=False))
+
+    def message(self) -> str:
+        if self.counts is None or self.counts[1] < 2:
+            return self.title
+        return f"{self.title}: {self.counts[0]} of {self.counts[1]} corners"
+
+    def percentage(self) -> int | None:
+        return None if self.counts is None or self.counts[1] < 2 else 100 * self.counts[0] // self.counts[1]
+
+    def runs_done(self, done: int, total: int) -> None:
+        """Called from the worker thread as each run finishes."""
+        if self.loop is not None:
+            self.loop.call_soon_threadsafe(self._report, done, total)
+
+    def _report(self, done: int, total: int) -> None:
+        self.counts = (done, total)
+        if self.token is not None and total > 1:
+            self.server.work_done_progress.report(self.token, types.WorkDoneProgressReport(
+                message=self.message(), percentage=self.percentage()))
 
     async def __aexit__(self, *exc):
         if self.timer is not None:
@@ -426,7 +469,10 @@ def hover_at(ls: LatchwatchServer, uri: str, line: int):
     tech = result.settings.check.tech
     limit = (lambda kind: None) if tech.has_spacing_table() else (
         lambda kind: tech.tap_distance_limit("p" if kind == "pdiff" else "n"))
-    text = convert.hover_markdown(result.path, line + 1, result.devices, result.findings, limit)
+    if len(result.runs) > 1:
+        text = convert.hover_for_runs(result.path, line + 1, result.runs, limit)
+    else:
+        text = convert.hover_markdown(result.path, line + 1, result.devices, result.findings, limit)
     if text is None:
         return None
     formats = ls.client_capabilities.text_document and ls.client_capabilities.text_document.hover

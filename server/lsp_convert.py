@@ -10,6 +10,9 @@ source lines come in through ``read_line``.
 - Columns: frames carry 1-based columns in code points (server/probe.py converts
   CPython's UTF-8 byte offsets); they are converted to the negotiated position
   encoding, UTF-16 unless the client chose another.
+- Several runs of one document (parameter corners, previewed functions) merge per
+  anchor line: the worst corner's diagnostic, prefixed "at fingers=16, 1 of 3
+  corners: ...", naming only the parameters that vary.
 """
 
 from __future__ import annotations
@@ -266,6 +269,123 @@ def diagnostics_by_file(findings: Iterable[Finding], devices: Iterable[Device], 
     for group in group_findings(findings, document):
         out.setdefault(group.target.file, []).append(to_diagnostic(group, index, read_line, encoding, rule_href))
     return out
+
+
+# --- several runs: parameter corners -------------------------------------------------
+
+@dataclass(frozen=True)
+class RunFindings:
+    """One run of a document: a corner of a sweep, a previewed function, or the plain run."""
+
+    function: str | None  # the function called; None for the plain run
+    corner: dict | None  # its keyword arguments ({} for its defaults)
+    findings: tuple[Finding, ...] = ()
+    devices: tuple[Device, ...] = ()
+
+
+def _varying(corners: list[dict]) -> list[str]:
+    names = list(dict.fromkeys(name for corner in corners for name in corner))
+    return [n for n in names if len({repr(c.get(n)) for c in corners}) > 1]
+
+
+def corner_label(corner: dict | None, names: list[str] | None = None) -> str:
+    """``fingers=16, w=0.5``, with only ``names`` when given (the parameters that vary)."""
+    corner = corner or {}
+    shown = [n for n in (names or corner) if n in corner] or list(corner)
+    return ", ".join(f"{n}={corner[n]!r}" for n in shown) or "its defaults"
+
+
+class _Families:
+    """Runs by the function they called: the corners of one sweep count together."""
+
+    def __init__(self, runs: list[RunFindings]):
+        self.runs = runs
+        self.members: dict[str | None, list[int]] = {}
+        for index, run in enumerate(runs):
+            self.members.setdefault(run.function, []).append(index)
+        self.names = {f: _varying([runs[i].corner or {} for i in members]) for f, members in self.members.items()}
+
+    def label(self, index: int) -> str:
+        run = self.runs[index]
+        return corner_label(run.corner, self.names[run.function])
+
+    def prefix(self, worst: int, hits: list[int]) -> str:
+        """How the worst run is named, and how many runs of its family share the finding."""
+        run = self.runs[worst]
+        family = self.members[run.function]
+        if len(family) > 1:
+            mine = [i for i in hits if i in family]
+            return f"at {self.label(worst)}, {len(mine)} of {len(family)} corners: "
+        if len(self.members) > 1 and run.function is not None:
+            arguments = corner_label(run.corner) if run.corner else ""
+            return f"in {run.function}({'' if arguments == 'its defaults' else arguments}): "
+        return ""
+
+    def also(self, worst: int, hits: list[int]) -> str:
+        family = self.members[self.runs[worst].function]
+        others = [self.label(i) for i in hits if i != worst and i in family]
+        if len(family) < 2 or not others:
+            return ""
+        more = ", ..." if len(others) > MAX_OTHER_FIGURES else ""
+        return f"; also at {'; '.join(others[:MAX_OTHER_FIGURES])}{more}"
+
+
+def diagnostics_for_runs(runs: Iterable[RunFindings], document: str, read_line: ReadLine,
+                         encoding: str = types.PositionEncodingKind.Utf16,
+                         rule_href: Callable[[str], str | None] = lambda rule: None
+                         ) -> dict[str, list[types.Diagnostic]]:
+    """Diagnostics for every run of ``document``: one run as diagnostics_by_file; several
+    merged per anchor line and rule, the worst corner first."""
+    runs = list(runs)
+    if len(runs) <= 1:
+        only = runs[0] if runs else RunFindings(None, None)
+        return diagnostics_by_file(only.findings, only.devices, document, read_line, encoding, rule_href)
+    families = _Families(runs)
+    merged: dict[tuple[Target, bool], list[tuple[int, Group]]] = {}
+    for index, run in enumerate(runs):
+        for group in group_findings(run.findings, document):
+            merged.setdefault((group.target, group.via), []).append((index, group))
+    out: dict[str, list[types.Diagnostic]] = {document: []}
+    for key in sorted(merged, key=lambda k: (k[0].file, k[0].line, k[0].rule, k[1])):
+        hits = merged[key]
+        worst, group = min(hits, key=lambda hit: (_worst_key(hit[1].findings[0]), hit[0]))
+        diagnostic = to_diagnostic(group, DeviceIndex(runs[worst].devices), read_line, encoding, rule_href)
+        indices = [index for index, _group in hits]
+        diagnostic.message = families.prefix(worst, indices) + diagnostic.message + families.also(worst, indices)
+        diagnostic.severity = SEVERITIES[max(f.severity for _i, g in hits for f in g.findings)]
+        diagnostic.data = dict(diagnostic.data, runs=len(hits), corner=runs[worst].corner,
+                               function=runs[worst].function)
+        out.setdefault(key[0].file, []).append(diagnostic)
+    return out
+
+
+def hover_for_runs(file: str, line: int, runs: Iterable[RunFindings],
+                   limits: Callable[[str], float | None]) -> str | None:
+    """The hover of the run worst on this line (its findings, else its farthest tap),
+    named as in the diagnostics; one run as hover_markdown."""
+    runs = list(runs)
+    if len(runs) == 1:
+        return hover_markdown(file, line, runs[0].devices, runs[0].findings, limits)
+
+    def badness(index: int):
+        run = runs[index]
+        here = [f for f in run.findings if f.file == file and f.line == line]
+        distances = [d.tap_distance_um for d in DeviceIndex(run.devices).at(file, line)
+                     if d.tap_distance_um is not None]
+        return (min((_worst_key(f) for f in here), default=(1, 0.0)), -max(distances, default=float("-inf")), index)
+
+    shown = [i for i in range(len(runs)) if hover_markdown(file, line, runs[i].devices, runs[i].findings, limits)]
+    if not shown:
+        return None
+    worst = min(shown, key=badness)
+    families = _Families(runs)
+    text = hover_markdown(file, line, runs[worst].devices, runs[worst].findings, limits)
+    family = families.members[runs[worst].function]
+    if len(family) > 1:
+        head = f"**at {families.label(worst)}**, the worst of {len(family)} corners on this line"
+    else:
+        head = f"**{runs[worst].function or 'the script'}** with {corner_label(runs[worst].corner)}"
+    return f"{head}\n\n{text}"
 
 
 def notice(message: str, severity=types.DiagnosticSeverity.Information, code: str | None = None,
