@@ -36,6 +36,8 @@ class CheckSettings:
     top: str | None = None
     devices: bool = False
     project_root: Path | None = None
+    require_sandbox: bool = False  # a missing sandbox protection is an error (SandboxUnavailable), not a fallback
+    warm: bool = False  # runs take a spare child started ahead (the language server's repeated runs)
 
 
 def is_checkable(path: Path) -> bool:
@@ -58,8 +60,9 @@ def expand_paths(paths: Iterable[Path], excluded: Callable[[Path], bool] = lambd
     return out
 
 
-def run_path(path: Path, settings: CheckSettings, source: str | None = None, cancel=None) -> RunOutcome:
-    """Run a script, or read a layout file, into a RunOutcome."""
+def run_path(path: Path, settings: CheckSettings, source: str | None = None, cancel=None,
+             warm: bool | None = None) -> RunOutcome:
+    """Run a script, or read a layout file, into a RunOutcome; ``warm`` overrides settings.warm."""
     if path.suffix.lower() in LAYOUT_SUFFIXES:
         start = time.perf_counter()
         layout = read_layout(path)
@@ -67,7 +70,8 @@ def run_path(path: Path, settings: CheckSettings, source: str | None = None, can
                           failure=None, output="", sandbox={"network": "not applicable",
                                                             "writes": "not applicable", "limits": []})
     return run_script(path, source=source, python=settings.python, timeout=settings.timeout,
-                      project_root=settings.project_root, cancel=cancel)
+                      project_root=settings.project_root, cancel=cancel, require_sandbox=settings.require_sandbox,
+                      warm=settings.warm if warm is None else warm)
 
 
 def check_run(outcome: RunOutcome, settings: CheckSettings, read_source=None) -> tuple[list[Finding], list, RunSummary]:

@@ -1,11 +1,13 @@
 """Runs a layout script inside the child process and ships what it drew.
 
-Started by server/runner.py as ``python -I probe.py [options] SCRIPT``. It must stay
-self-contained (standard library, numpy and gdstk only): the interpreter may be the
-user's own, which has gdstk but not latchwatch. Written for Python 3.8 and later.
-With ``--call FUNCTION --kwargs-json JSON`` the script is imported as a module instead
-(not as ``__main__``) and the function's returned cells are collected (parameter
-corners, see _call_generator).
+Loaded by server/sandbox_child.py once the child is confined, which then calls
+``serve(config)``: the probe imports gdstk and numpy, says ``ready`` on the control
+pipe and waits for its job on the job pipe (a JSON object, see options_from_job), so a
+warm spare can be started before the job is known. It must stay self-contained
+(standard library, numpy and gdstk only): the interpreter may be the user's own, which
+has gdstk but not latchwatch. Written for Python 3.8 and later. A job with ``call``
+imports the script as a module instead (not as ``__main__``) and collects the
+returned cells (parameter corners, see _call_generator).
 
 Before the script runs, ``gdstk.Cell`` and ``gdstk.Library`` are replaced by
 subclasses, so every ``cell.add(...)`` logs the caller's stack. Logging is kept cheap
@@ -16,10 +18,10 @@ live frame object: while a frame runs, its callers are suspended at fixed positi
 so the chain above it cannot change. Lines are resolved once per unique position, at
 the end.
 
-Outcome protocol: the result pipe (--result-fd) receives one payload, a JSON header
-followed by raw array bytes (see encode_payload). The control pipe (--control-fd)
-receives text lines: ``started limits=...``, ``finished``, and on a timeout the
-faulthandler stack dump. Standard output and error are the script's own.
+Outcome protocol: the result pipe receives one payload, a JSON header followed by
+raw array bytes (see encode_payload). The control pipe receives text lines:
+``ready ...`` (imports done), ``started`` (job read), ``finished``, and on a timeout
+the faulthandler stack dump. Standard output and error are the script's own.
 
 Importable as ``latchwatch.server.probe`` for its collection functions (used to read
 GDSII/OASIS files); importing it patches nothing.
@@ -728,12 +730,13 @@ def _exception_failure(error, memory_limit):
 
 
 class _Options:
+    """One job: the keys of the job object, plus the pipes and limits of the child."""
+
     result_fd = None
     control_fd = None
-    source_file = None
+    source = None  # text that runs instead of the file's content, under the file's name
     timeout = None
     memory = None
-    cpu = None
     paths = ()
     depth = STACK_DEPTH
     script = None
@@ -742,74 +745,30 @@ class _Options:
     non_layout = "error"
 
 
-def parse_args(argv):
+JOB_KEYS = ("script", "source", "timeout", "paths", "depth", "call", "kwargs", "non_layout")
+
+
+def options_from_job(job, config):
+    """Options for a job object; raises ValueError naming a malformed key."""
+    if not isinstance(job, dict) or not isinstance(job.get("script"), str):
+        raise ValueError("a job is a JSON object with a script path, got %r" % (job,))
+    unknown = set(job) - set(JOB_KEYS)
+    if unknown:
+        raise ValueError("unknown job keys %s" % sorted(unknown))
     options = _Options()
-    options.paths = []
-    args = list(argv)
-    while args:
-        arg = args.pop(0)
-        if arg == "--":
-            break
-        if not arg.startswith("--"):
-            args.insert(0, arg)
-            break
-        if not args:
-            raise SystemExit("probe: option %s needs a value" % arg)
-        value = args.pop(0)
-        if arg in ("--result-fd", "--control-fd", "--memory", "--cpu", "--depth"):
-            setattr(options, arg[2:].replace("-", "_"), int(value))
-        elif arg == "--timeout":
-            options.timeout = float(value)
-        elif arg == "--source-file":
-            options.source_file = value
-        elif arg == "--path":
-            options.paths.append(value)
-        elif arg == "--call":
-            options.call = value
-        elif arg == "--kwargs-json":
-            options.kwargs = json.loads(value)
-            if not isinstance(options.kwargs, dict):
-                raise SystemExit("probe: --kwargs-json needs a JSON object, got %s" % value)
-        elif arg == "--non-layout":
-            if value not in ("error", "ignore"):
-                raise SystemExit("probe: --non-layout is error or ignore, got %s" % value)
-            options.non_layout = value
-        else:
-            raise SystemExit("probe: unknown option %s" % arg)
-    if len(args) != 1:
-        raise SystemExit("usage: probe.py [options] SCRIPT")
-    options.script = os.path.abspath(args[0])
+    for key in JOB_KEYS:
+        if job.get(key) is not None:
+            setattr(options, key, job[key])
+    options.script = os.path.abspath(options.script)
+    options.paths = list(options.paths)
+    if not isinstance(options.kwargs, dict):
+        raise ValueError("job kwargs must be an object, got %r" % (options.kwargs,))
+    if options.non_layout not in ("error", "ignore"):
+        raise ValueError("job non_layout is error or ignore, got %r" % (options.non_layout,))
+    options.result_fd = config.get("result_fd")
+    options.control_fd = config.get("control_fd")
+    options.memory = config.get("memory")
     return options
-
-
-def apply_limits(options):
-    """Set the resource limits in this process; return the names of those in force."""
-    applied = []
-    try:
-        import resource
-    except ImportError:
-        return applied
-    try:
-        resource.setrlimit(resource.RLIMIT_CORE, (0, 0))
-    except (ValueError, OSError):
-        pass
-    for name, which, value in (("memory", "RLIMIT_AS", options.memory), ("cpu", "RLIMIT_CPU", options.cpu)):
-        if value is None or not hasattr(resource, which):
-            continue
-        limit = getattr(resource, which)
-        _soft, hard = resource.getrlimit(limit)
-        # The hard limit goes down too, so the script cannot lift it again. For CPU
-        # time the soft limit sends SIGXCPU and the hard one, a second later, SIGKILL.
-        soft_value = value if hard == resource.RLIM_INFINITY else min(value, hard)
-        hard_value = soft_value + 1 if name == "cpu" else soft_value
-        if hard != resource.RLIM_INFINITY:
-            hard_value = min(hard_value, hard)
-        try:
-            resource.setrlimit(limit, (soft_value, hard_value))
-        except (ValueError, OSError):
-            continue
-        applied.append(name)
-    return applied
 
 
 class _Control:
@@ -851,9 +810,8 @@ def run(options):
     control = _Control(options.control_fd)
     script = options.script
     try:
-        if options.source_file is not None:
-            with open(options.source_file, "rb") as handle:
-                source = handle.read()
+        if options.source is not None:  # lone surrogates from an editor buffer fail to compile, not here
+            source = options.source.encode("utf-8", "surrogatepass")
         else:
             with open(script, "rb") as handle:
                 source = handle.read()
@@ -967,14 +925,38 @@ def _remember_source(path, source):
     linecache.cache[path] = (len(text), None, lines, path)
 
 
-def main(argv=None):
-    options = parse_args(sys.argv[1:] if argv is None else argv)
-    applied = apply_limits(options)
+def _read_job(fd):
+    """The job object the runner writes to the job pipe, or None at end of input."""
+    chunks = []
+    while True:
+        chunk = os.read(fd, 1 << 20)
+        if not chunk:
+            break
+        chunks.append(chunk)
+    os.close(fd)
+    return json.loads(b"".join(chunks).decode("utf-8")) if chunks else None
+
+
+def serve(config):
+    """Wait for one job, run it, send the result, exit. Never returns."""
+    control = _Control(config.get("control_fd"))
     try:  # prints reach the log line by line, and survive a kill on timeout
         sys.stdout.reconfigure(line_buffering=True)
     except (AttributeError, ValueError):
         pass
-    _Control(options.control_fd).say("started limits=%s" % ",".join(applied))
+    if _IMPORT_ERROR is None:
+        control.say("ready numpy=%s gdstk=%s" % (np.__version__, getattr(gdstk, "__version__", "?")))
+    else:
+        control.say("ready import-error=%s" % json.dumps(str(_IMPORT_ERROR)))
+    try:
+        job = _read_job(config["job_fd"])
+        if job is None:  # a spare nobody needed: the runner closed the pipe, or went away
+            os._exit(0)
+        options = options_from_job(job, config)
+    except (OSError, ValueError) as error:
+        control.say("bad job: %s" % error)
+        os._exit(2)
+    control.say("started")
     header, arrays = run(options)
     for stream in (sys.stdout, sys.stderr):
         try:
@@ -987,13 +969,12 @@ def main(argv=None):
         except MemoryError:
             write_payload(options.result_fd, failure_header(
                 "limit", "MemoryError", "the captured layout did not fit in the memory limit"), [])
-    else:
-        print(json.dumps({k: v for k, v in header.items() if k not in ("frames", "stacks")})[:2000])
-        sys.stdout.flush()
+        except OSError:
+            pass  # the script closed or broke the result pipe: the parent sees no result
     # Skip tearing down the script's objects: the result is out, and freeing hundreds
     # of thousands of shapes one by one only costs time.
     os._exit(0)
 
 
 if __name__ == "__main__":
-    main()
+    raise SystemExit("probe.py is loaded by sandbox_child.py, which confines the child first")

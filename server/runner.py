@@ -1,25 +1,25 @@
 """Runs a layout script in a child process and turns what happens into a RunOutcome.
 
-The child is ``python -I server/probe.py ...`` in a fresh temporary folder, with
-standard input closed, an allow-listed environment, its own process group and
-resource limits set by the probe. Geometry comes back over a dedicated pipe; the
-script's prints over another, drained at the same time and capped. On a timeout, a
-cancel or an exceeded cap the whole process group is killed, and it is killed again
-after every run so no process the script started outlives it.
+The child (server/workers.py) confines itself (server/sandbox_child.py), imports gdstk
+and waits for its job, which this module sends once the child's sandbox report has
+arrived: a required sandbox with a protection missing stops here, before the script
+runs. Geometry comes back over a dedicated pipe, the script's prints over another,
+drained at the same time and capped. On a timeout, a cancel or an exceeded cap the
+whole process group is ended, and again after every run; the child's keeper ends
+whatever escaped the group (a PID namespace, or a sweep as child subreaper).
+
+A job is a JSON object (server/probe.py, options_from_job): a plain run, or a
+function call of a parameter corner; another kind of job needs only a new key there
+and a new keyword here.
 """
 
 from __future__ import annotations
 
-import json
-import math
 import os
 import re
 import selectors
-import shutil
 import signal
-import subprocess
 import sys
-import tempfile
 import threading
 import time
 from pathlib import Path
@@ -28,70 +28,63 @@ from latchwatch.analyzers.findings import Frame
 from latchwatch.analyzers.run_outcome import RunOutcome, ScriptFailure
 
 from . import wire
+from .sandbox import SandboxReport, SandboxSettings, unavailable_message
+from .workers import (COLLECT_ALLOWANCE, PROBE, SANDBOX_CHILD, SPARES, STARTUP_ALLOWANCE, RunnerError,
+                      SandboxUnavailable, Worker, WorkerKey, child_environment, kill_group)
 
-PROBE = Path(__file__).resolve().with_name("probe.py")
+__all__ = ["run_script", "RunnerError", "SandboxUnavailable", "child_environment", "OUTPUT_HEAD", "OUTPUT_TAIL",
+           "OUTPUT_KILL", "GEOMETRY_KILL", "STARTUP_ALLOWANCE", "COLLECT_ALLOWANCE"]
 
 OUTPUT_HEAD = 56 << 10  # bytes of output kept from the start ...
 OUTPUT_TAIL = 8 << 10  # ... and from the end
 OUTPUT_KILL = 64 << 20  # printing more than this stops the run ("limit")
 GEOMETRY_KILL = 2 << 30  # a result payload larger than this stops the run ("limit")
-STARTUP_ALLOWANCE = 5.0  # s for interpreter start and imports before the script's own clock runs
-COLLECT_ALLOWANCE = 30.0  # s for reading the layout once the script has finished
 KILL_GRACE = 0.2  # s between SIGTERM and SIGKILL
 _POLL = 0.05  # s between checks of the cancel event, and of child exit without a pidfd
 _DRAIN_LIMIT = 1.0  # s to collect the pipes' last bytes after the child is gone
-_ENV_NAMES = ("PATH", "HOME", "LANG", "LANGUAGE", "TZ")
-_THREAD_NAMES = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS")
 _FRAME_LINE = re.compile(r'^\s*File "(?P<file>.*)", line (?P<line>\d+) in (?P<function>.*)$')
-
-
-class RunnerError(RuntimeError):
-    """The child could not be started at all (bad interpreter path, no permission)."""
-
-
-def child_environment(temp_dir: Path) -> dict[str, str]:
-    """The environment the script sees: locale and paths only, never tokens or keys."""
-    env = {name: value for name, value in os.environ.items() if name in _ENV_NAMES or name.startswith("LC_")}
-    env.setdefault("PATH", os.defpath)
-    # numpy's BLAS reserves address space per thread; on a many-core machine that
-    # alone could exceed the address-space limit, so the child uses a few threads.
-    for name in _THREAD_NAMES:
-        env[name] = os.environ.get(name, str(min(4, os.cpu_count() or 1)))
-    for name in ("TMPDIR", "TMP", "TEMP"):
-        env[name] = str(temp_dir)
-    return env
+_HARNESS_FILES = (str(PROBE), str(SANDBOX_CHILD))
 
 
 def run_script(path: str | Path, *, source: str | None = None, python: str | None = None, timeout: float = 10.0,
                project_root: Path | None = None, memory_limit: int = 4 << 30,
                cancel: threading.Event | None = None, call: tuple[str, dict] | None = None,
-               accept_non_layout: bool = False) -> RunOutcome:
+               accept_non_layout: bool = False, require_sandbox: bool = False, warm: bool = False,
+               skip_protections: tuple[str, ...] = ()) -> RunOutcome:
     """Run one layout script as ``__main__`` in a sandboxed child; never raises for script faults.
 
     ``source`` runs instead of the file's content, compiled under the file's name.
     ``call=(function, kwargs)`` imports the script as a module instead and checks what
     ``function(**kwargs)`` returns (kwargs JSON values); a return value that is no
     layout is a script error, or an empty capture with ``accept_non_layout``.
-    Raises RunnerError only when the interpreter cannot be started.
+    ``warm`` takes a spare child started ahead (and starts the next one): for the
+    language server, whose runs repeat with the same settings. ``require_sandbox``
+    makes a missing protection an error; ``skip_protections`` (sandbox.SKIPPABLE)
+    leaves mechanisms out, as on a machine without them.
+    Raises RunnerError when the interpreter cannot be started, SandboxUnavailable
+    (a RunnerError) when the sandbox is required and incomplete.
     """
     if not timeout or timeout <= 0:
         raise ValueError(f"timeout must be a positive number of seconds, got {timeout!r}")
-    run_dir = Path(tempfile.mkdtemp(prefix="latchwatch-run-"))
-    try:
-        work = run_dir / "work"
-        work.mkdir()
-        source_file = None
-        if source is not None:
-            source_file = run_dir / "source.py"
-            source_file.write_text(source, encoding="utf-8")
-        run = _ChildRun(str(path), python or sys.executable, float(timeout), project_root, memory_limit, cancel)
-        if call is not None:
-            function, kwargs = call
-            run.call_args = ["--call", function, "--kwargs-json", json.dumps(kwargs)]
-            run.call_args += ["--non-layout", "ignore" if accept_non_layout else "error"]
-        return run.execute(work, source_file)
-    finally:
-        shutil.rmtree(run_dir, ignore_errors=True)
+    settings = SandboxSettings(require=require_sandbox, memory_limit=memory_limit,
+                               skip=frozenset(skip_protections))
+    root = os.path.abspath(project_root) if project_root is not None else None
+    key = WorkerKey(python or sys.executable, root, settings, float(timeout))
+    script = os.path.abspath(path)
+    job = {"script": script, "source": source, "timeout": float(timeout),
+           "paths": [os.path.dirname(script)] + ([root] if root else [])}
+    if call is not None:
+        function, kwargs = call
+        job.update(call=function, kwargs=kwargs, non_layout="ignore" if accept_non_layout else "error")
+    if warm and root is not None and _inside(script, root):
+        worker = SPARES.take(key, needs_reading=[root])
+    else:
+        worker = Worker.start(key, needs_reading=job["paths"])
+    return _ChildRun(str(path), worker, job, cancel).execute()
+
+
+def _inside(path: str, folder: str) -> bool:
+    return os.path.commonpath([path, folder]) == folder
 
 
 class _CappedOutput:
@@ -122,66 +115,38 @@ class _CappedOutput:
 
 
 class _ChildRun:
-    def __init__(self, script: str, python: str, timeout: float, project_root: Path | None,
-                 memory_limit: int | None, cancel: threading.Event | None):
+    """One job on one worker: send it, police the child, read what comes back."""
+
+    def __init__(self, script: str, worker: Worker, job: dict, cancel: threading.Event | None):
         self.script = script
-        self.python = python
-        self.timeout = timeout
-        self.project_root = project_root
-        self.memory_limit = memory_limit
+        self.worker = worker
+        self.python = worker.key.python
+        self.timeout = worker.key.timeout
+        self.settings = worker.key.settings
+        self.job = job
         self.cancel = cancel
         self.output = _CappedOutput()
         self.result = bytearray()
         self.control = bytearray()
         self.stop_reason: str | None = None
-        self.call_args: list[str] = []  # probe options of a function call (run_script's ``call``)
+        self.report: SandboxReport | None = None
+        self._job_bytes: memoryview | None = None
 
-    def command(self, result_fd: int, control_fd: int, source_file: Path | None) -> list[str]:
-        absolute = os.path.abspath(self.script)
-        cpu = math.ceil(self.timeout + STARTUP_ALLOWANCE + COLLECT_ALLOWANCE)
-        command = [self.python, "-I", str(PROBE), "--result-fd", str(result_fd), "--control-fd", str(control_fd),
-                   "--timeout", repr(self.timeout), "--cpu", str(cpu), "--path", os.path.dirname(absolute)]
-        if self.memory_limit:
-            command += ["--memory", str(int(self.memory_limit))]
-        if self.project_root is not None:
-            command += ["--path", os.path.abspath(self.project_root)]
-        if source_file is not None:
-            command += ["--source-file", str(source_file)]
-        return command + self.call_args + ["--", absolute]
-
-    def execute(self, work: Path, source_file: Path | None) -> RunOutcome:
-        result_r, result_w = os.pipe()
-        control_r, control_w = os.pipe()
-        _widen_pipe(result_r)
+    def execute(self) -> RunOutcome:
         started = time.monotonic()
         try:
-            process = subprocess.Popen(
-                self.command(result_w, control_w, source_file), stdin=subprocess.DEVNULL, stdout=subprocess.PIPE,
-                stderr=subprocess.STDOUT, cwd=work, env=child_environment(work), start_new_session=True,
-                pass_fds=(result_w, control_w))
-        except OSError as error:
-            for fd in (result_r, result_w, control_r, control_w):
-                os.close(fd)
-            raise RunnerError(f"cannot start the interpreter {self.python!r} for {self.script}: {error}") from None
-        os.close(result_w)
-        os.close(control_w)
-        try:
-            self._supervise(process, result_r, control_r, started)
+            self._supervise(started)
         finally:
-            _kill_group(process.pid, signal.SIGKILL)
-            process.wait()
-            process.stdout.close()
-            for fd in (result_r, control_r):
-                try:
-                    os.close(fd)
-                except OSError:
-                    pass
-        return self._outcome(process.returncode, time.monotonic() - started)
+            self.worker.discard()
+        if self.stop_reason == "sandbox":
+            raise SandboxUnavailable(f"{self.script}: " + unavailable_message(self.report.missing_required()))
+        return self._outcome(self.worker.process.returncode, time.monotonic() - started)
 
-    def _supervise(self, process: subprocess.Popen, result_r: int, control_r: int, started: float) -> None:
+    def _supervise(self, started: float) -> None:
+        process = self.worker.process
         selector = selectors.DefaultSelector()
-        sinks = {process.stdout.fileno(): self.output.feed, result_r: self.result.extend,
-                 control_r: self.control.extend}
+        sinks = {process.stdout.fileno(): self.output.feed, self.worker.result_r: self.result.extend,
+                 self.worker.control_r: self._control}
         for fd in sinks:
             selector.register(fd, selectors.EVENT_READ)
         pidfd = _open_pidfd(process.pid)
@@ -199,31 +164,70 @@ class _ChildRun:
                 if self.stop_reason is None:
                     self.stop_reason = self._stop_reason(now, deadline)
                     if self.stop_reason is not None:
-                        _kill_group(process.pid, signal.SIGTERM)
+                        self.worker.close_job_pipe()
+                        kill_group(process.pid, signal.SIGTERM)
                         kill_at = now + KILL_GRACE
                 elif kill_at is not None and now >= kill_at:
-                    _kill_group(process.pid, signal.SIGKILL)
+                    kill_group(process.pid, signal.SIGKILL)
                     kill_at = None
+                if self._job_bytes is not None and self.stop_reason is None and self.worker.job_w is not None \
+                        and self.worker.job_w not in _registered(selector):
+                    os.set_blocking(self.worker.job_w, False)
+                    selector.register(self.worker.job_w, selectors.EVENT_WRITE)
                 wait = _POLL if pidfd is not None else min(_POLL, 0.01)
                 if kill_at is not None:
                     wait = max(0.0, min(wait, kill_at - now))
                 for key, _events in selector.select(wait):
-                    if key.fd != pidfd:
+                    if key.fd == pidfd:
+                        continue
+                    if key.fd == self.worker.job_w:
+                        self._send_job(selector)
+                    else:
                         self._read(selector, key.fd, sinks)
             # The child is gone (not yet reaped, so its group id cannot be reused):
             # end whatever it left running, then collect the pipes' last bytes.
-            _kill_group(process.pid, signal.SIGKILL)
+            kill_group(process.pid, signal.SIGKILL)
             if pidfd is not None:
                 selector.unregister(pidfd)
+            if self.worker.job_w in _registered(selector):
+                selector.unregister(self.worker.job_w)
             drain_until = time.monotonic() + _DRAIN_LIMIT
             while any(fd in sinks for fd in _registered(selector)) and time.monotonic() < drain_until:
                 for key, _events in selector.select(0.05):
-                    if key.fd != pidfd:
-                        self._read(selector, key.fd, sinks)
+                    self._read(selector, key.fd, sinks)
         finally:
             selector.close()
             if pidfd is not None:
                 os.close(pidfd)
+
+    def _control(self, chunk: bytes) -> None:
+        """Control-pipe bytes; the sandbox report decides whether the job is sent."""
+        self.control.extend(chunk)
+        if self.report is None:
+            at = self.control.find(b"sandbox ")
+            line_end = self.control.find(b"\n", at) if at >= 0 else -1
+            if line_end < 0:
+                return
+            self.report = SandboxReport.from_control_line(self.control[at:line_end].decode("utf-8", "replace"))
+            if self.settings.require and self.report.missing_required():
+                self.stop_reason = "sandbox"
+            else:
+                import json
+
+                self._job_bytes = memoryview(json.dumps(self.job).encode("utf-8"))
+
+    def _send_job(self, selector: selectors.BaseSelector) -> None:
+        fd = self.worker.job_w
+        try:
+            written = os.write(fd, self._job_bytes)
+        except (BlockingIOError, InterruptedError):
+            return
+        except OSError:  # the child is gone; its exit tells the rest
+            written = len(self._job_bytes)
+        self._job_bytes = self._job_bytes[written:]
+        if not self._job_bytes:
+            selector.unregister(fd)
+            self.worker.close_job_pipe()
 
     def _stop_reason(self, now: float, deadline: float) -> str | None:
         if self.cancel is not None and self.cancel.is_set():
@@ -296,17 +300,18 @@ class _ChildRun:
                 signal.SIGSEGV, signal.SIGABRT, getattr(signal, "SIGBUS", -1)) else ""
             return ScriptFailure("error", None, f"the script's process was killed by {name}{hint} "
                                                 f"before it reported a result")
-        if "started limits=" not in control:
+        if "\nstarted\n" not in "\n" + control:
+            if "\nbad job: " in "\n" + control:
+                return ScriptFailure("error", None, "the latchwatch probe refused its job: "
+                                     + control.split("bad job: ", 1)[1].splitlines()[0])
             return ScriptFailure("error", None, f"the interpreter {self.python} could not start the latchwatch "
                                                 f"probe (exit status {returncode}); see the output")
         return ScriptFailure("error", None, f"the script's process ended with exit status {returncode} "
                                             f"before it reported a result")
 
     def _sandbox(self, control: str) -> dict:
-        match = re.search(r"^started limits=(.*)$", control, re.MULTILINE)
-        in_child = set(filter(None, match.group(1).split(","))) if match else set()
-        limits = ["time"] + [name for name in ("cpu", "memory") if name in in_child] + ["output", "geometry"]
-        return {"network": "not blocked", "writes": "not confined", "limits": limits}
+        report = self.report or SandboxReport.nothing("the child ended before it reported its sandbox")
+        return report.entry()
 
 
 def _kind(status) -> str:
@@ -331,7 +336,7 @@ def _dump_frames(dump: str) -> tuple[Frame, ...]:
             blocks[-1].append(Frame(match["file"], int(match["line"]), match["function"].strip()))
     probe_name = str(PROBE)
     chosen = next((b for b in blocks if any(f.file == probe_name for f in b)), blocks[0] if blocks else [])
-    return tuple(f for f in chosen if f.file != probe_name)
+    return tuple(f for f in chosen if f.file not in _HARNESS_FILES)
 
 
 def _signal_name(number: int) -> str:
@@ -339,16 +344,6 @@ def _signal_name(number: int) -> str:
         return signal.Signals(number).name
     except ValueError:
         return f"signal {number}"
-
-
-def _widen_pipe(fd: int) -> None:
-    """Fewer wake-ups for large layouts: a 1 MiB pipe where Linux allows it."""
-    try:
-        import fcntl
-
-        fcntl.fcntl(fd, getattr(fcntl, "F_SETPIPE_SZ", 1031), 1 << 20)
-    except (ImportError, OSError):
-        pass
 
 
 def _open_pidfd(pid: int) -> int | None:
@@ -365,13 +360,6 @@ def _exited(pid: int) -> bool:
     except ChildProcessError:
         return True
     return info is not None
-
-
-def _kill_group(pgid: int, sig: int) -> None:
-    try:
-        os.killpg(pgid, sig)
-    except (ProcessLookupError, PermissionError):
-        pass
 
 
 def _registered(selector: selectors.BaseSelector) -> list[int]:

@@ -1,0 +1,236 @@
+"""Started children that wait for one job each, and the spares kept warm for the editor.
+
+A Worker is ``python -I server/sandbox_child.py CONFIG`` in a fresh temporary folder:
+its own session and process group, standard input on /dev/null, an allow-listed
+environment, and three pipes (result and control from the child, the job to it).
+The child confines itself, imports gdstk and waits; server/runner.py sends the job and
+supervises the run. A worker runs one job and ends: a child that ran a script is never
+used again.
+
+SPARES keeps one started worker per (interpreter, project root, sandbox settings,
+timeout) so that the language server's next run skips interpreter start and imports;
+taking a spare starts the next one at once.
+"""
+
+from __future__ import annotations
+
+import atexit
+import json
+import math
+import os
+import shutil
+import signal
+import subprocess
+import sys
+import tempfile
+import threading
+from collections import OrderedDict
+from dataclasses import dataclass
+from pathlib import Path
+
+from . import sandbox
+from .sandbox import SandboxSettings
+
+SERVER = Path(__file__).resolve().parent
+PROBE = SERVER / "probe.py"
+SANDBOX_CHILD = SERVER / "sandbox_child.py"
+STARTUP_ALLOWANCE = 5.0  # s for interpreter start and imports before the script's own clock runs
+COLLECT_ALLOWANCE = 30.0  # s for reading the layout once the script has finished
+_ENV_NAMES = ("PATH", "HOME", "LANG", "LANGUAGE", "TZ")
+_THREAD_NAMES = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS")
+
+
+class RunnerError(RuntimeError):
+    """The child could not be started at all (bad interpreter path, no permission)."""
+
+
+class SandboxUnavailable(RunnerError):
+    """The sandbox is required, and a protection it needs is not available here."""
+
+
+def child_environment(temp_dir: Path) -> dict[str, str]:
+    """The environment the script sees: locale and paths only, never tokens or keys."""
+    env = {name: value for name, value in os.environ.items() if name in _ENV_NAMES or name.startswith("LC_")}
+    env.setdefault("PATH", os.defpath)
+    # numpy's BLAS reserves address space per thread; on a many-core machine that
+    # alone could exceed the address-space limit, so the child uses a few threads.
+    for name in _THREAD_NAMES:
+        env[name] = os.environ.get(name, str(min(4, os.cpu_count() or 1)))
+    for name in ("TMPDIR", "TMP", "TEMP"):
+        env[name] = str(temp_dir)
+    return env
+
+
+def cpu_seconds(timeout: float) -> int:
+    return math.ceil(timeout + STARTUP_ALLOWANCE + COLLECT_ALLOWANCE)
+
+
+@dataclass(frozen=True)
+class WorkerKey:
+    """What a worker is started with; a spare serves only jobs with the same key."""
+
+    python: str
+    project_root: str | None
+    settings: SandboxSettings
+    timeout: float
+
+
+class Worker:
+    """One started child, its pipes and its run folder."""
+
+    def __init__(self, key: WorkerKey, process: subprocess.Popen, work: Path, result_r: int, control_r: int,
+                 job_w: int):
+        self.key = key
+        self.process = process
+        self.work = work
+        self.result_r = result_r
+        self.control_r = control_r
+        self.job_w: int | None = job_w
+
+    @classmethod
+    def start(cls, key: WorkerKey, needs_reading: list[str]) -> Worker:
+        """Start the child; raises RunnerError when the interpreter cannot be started."""
+        work = Path(tempfile.mkdtemp(prefix="latchwatch-run-"))
+        result_r, result_w = os.pipe()
+        control_r, control_w = os.pipe()
+        job_r, job_w = os.pipe()
+        _widen_pipe(result_r)
+        config = sandbox.child_config(
+            key.settings, probe=str(PROBE), work=str(work), result_fd=result_w, control_fd=control_w,
+            job_fd=job_r, cpu_seconds=cpu_seconds(key.timeout), needs_reading=needs_reading)
+        try:
+            process = subprocess.Popen(
+                [key.python, "-I", str(SANDBOX_CHILD), json.dumps(config)], stdin=subprocess.DEVNULL,
+                stdout=subprocess.PIPE, stderr=subprocess.STDOUT, cwd=work, env=child_environment(work),
+                start_new_session=True, pass_fds=(result_w, control_w, job_r))
+        except OSError as error:
+            for fd in (result_r, result_w, control_r, control_w, job_r, job_w):
+                os.close(fd)
+            shutil.rmtree(work, ignore_errors=True)
+            raise RunnerError(f"cannot start the interpreter {key.python!r}: {error}") from None
+        for fd in (result_w, control_w, job_r):
+            os.close(fd)
+        return cls(key, process, work, result_r, control_r, job_w)
+
+    def alive(self) -> bool:
+        return self.process.poll() is None
+
+    def close_job_pipe(self) -> None:
+        if self.job_w is not None:
+            try:
+                os.close(self.job_w)
+            except OSError:
+                pass
+            self.job_w = None
+
+    def discard(self) -> None:
+        """End the child and everything in its group, reap it, free its pipes and folder."""
+        self.close_job_pipe()
+        kill_group(self.process.pid, signal.SIGKILL)
+        self.process.wait()
+        self.process.stdout.close()
+        for fd in (self.result_r, self.control_r):
+            try:
+                os.close(fd)
+            except OSError:
+                pass
+        shutil.rmtree(self.work, ignore_errors=True)
+
+
+class SparePool:
+    """At most one idle worker per key, for at most ``capacity`` keys (the oldest goes)."""
+
+    def __init__(self, capacity: int = 2):
+        self.capacity = capacity
+        self._spares: OrderedDict[WorkerKey, Worker] = OrderedDict()
+        self._lock = threading.Lock()
+
+    def take(self, key: WorkerKey, needs_reading: list[str]) -> Worker:
+        """A started worker for ``key`` (the spare if there is a live one), and a new spare."""
+        with self._lock:
+            spare = self._spares.pop(key, None)
+        if spare is not None and not spare.alive():
+            spare.discard()
+            spare = None
+        worker = spare or Worker.start(key, needs_reading)
+        try:
+            self._put(Worker.start(key, needs_reading))
+        except RunnerError:
+            pass  # the job's own worker started; the next run will say what is wrong
+        return worker
+
+    def _put(self, worker: Worker) -> None:
+        with self._lock:
+            replaced = self._spares.pop(worker.key, None)
+            self._spares[worker.key] = worker
+            evicted = [replaced] if replaced else []
+            while len(self._spares) > self.capacity:
+                evicted.append(self._spares.popitem(last=False)[1])
+        for old in evicted:
+            old.discard()
+
+    def close(self) -> None:
+        with self._lock:
+            spares, self._spares = list(self._spares.values()), OrderedDict()
+        for spare in spares:
+            spare.discard()
+
+
+SPARES = SparePool()
+atexit.register(SPARES.close)
+
+
+def kill_group(pgid: int, sig: int) -> None:
+    try:
+        os.killpg(pgid, sig)
+    except (ProcessLookupError, PermissionError):
+        pass
+
+
+def _widen_pipe(fd: int) -> None:
+    """Fewer wake-ups for large layouts: a 1 MiB pipe where Linux allows it."""
+    try:
+        import fcntl
+
+        fcntl.fcntl(fd, getattr(fcntl, "F_SETPIPE_SZ", 1031), 1 << 20)
+    except (ImportError, OSError):
+        pass
+
+
+def inspect_sandbox(python: str | None = None, project_root: str | None = None,
+                    settings: SandboxSettings = SandboxSettings(), wait: float = 30.0):
+    """Start a worker, read its sandbox report and its ``ready`` line, end it unused.
+
+    Returns (SandboxReport, ready line or None, output). What `latchwatch doctor` shows,
+    and what tests ask before they expect a protection to hold."""
+    import selectors
+    import time
+
+    from .sandbox import SandboxReport
+
+    root = os.path.abspath(project_root or os.getcwd())
+    worker = Worker.start(WorkerKey(python or sys.executable, root, settings, 10.0), needs_reading=[root])
+    control, output = bytearray(), bytearray()
+    try:
+        selector = selectors.DefaultSelector()
+        sinks = {worker.control_r: control.extend, worker.process.stdout.fileno(): output.extend}
+        for fd in sinks:
+            selector.register(fd, selectors.EVENT_READ)
+        deadline = time.monotonic() + wait
+        while b"\nready" not in b"\n" + control and sinks and time.monotonic() < deadline:
+            for key, _events in selector.select(0.1):
+                chunk = os.read(key.fd, 1 << 16)
+                if chunk:
+                    sinks[key.fd](chunk)
+                else:
+                    selector.unregister(key.fd)
+                    del sinks[key.fd]
+        selector.close()
+    finally:
+        worker.discard()
+    lines = control.decode("utf-8", "replace").splitlines()
+    report_line = next((line for line in lines if line.startswith("sandbox ")), None)
+    report = (SandboxReport.from_control_line(report_line) if report_line
+              else SandboxReport.nothing("the child ended before it reported its sandbox"))
+    ready = next((line for line in lines if line.startswith("ready")), None)
+    return report, ready, output.decode("utf-8", "replace")
