@@ -18,6 +18,7 @@ from latchwatch.analyzers.technology import TechnologyError
 from . import sweep, techfiles
 from .pipeline import CheckSettings, expand_paths
 from .project_config import ConfigError, expand_includes, find_project_config
+from .runner import RunnerError
 from .report_json import render_json
 from .report_sarif import render_sarif
 from .report_text import render_text
@@ -63,6 +64,8 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("--python", metavar="PATH", help="interpreter that runs the scripts")
     c.add_argument("--top", metavar="CELL", help="check this cell as the top")
     c.add_argument("--devices", action="store_true", help="add the per-device table to the report")
+    c.add_argument("--require-sandbox", action="store_true",
+                   help="fail (exit 2) instead of running with fewer protections than `latchwatch doctor` lists")
     c.add_argument("--sweep", metavar="FUNCTION", help="call this function of the one script at each corner")
     c.add_argument("--param", action="append", default=[], metavar="NAME=V1,V2,...",
                    help="values of one parameter of --sweep (repeatable; the full grid is run)")
@@ -88,6 +91,11 @@ def _parser() -> argparse.ArgumentParser:
     trust_mode = tr.add_mutually_exclusive_group()
     trust_mode.add_argument("--list", action="store_true", help="list the trusted folders")
     trust_mode.add_argument("--remove", metavar="PATH", help="withdraw trust from a folder")
+
+    dr = sub.add_parser("doctor", help="which sandbox protections this machine provides")
+    dr.add_argument("--python", metavar="PATH", help="interpreter that runs the scripts (default: the project's, "
+                                                     "else the one running latchwatch)")
+    dr.add_argument("--require-sandbox", action="store_true", help="exit with status 2 when a protection is missing")
     return p
 
 
@@ -109,6 +117,7 @@ def _settings(args, config) -> CheckSettings:
         disable=tuple(config.disable), severity=dict(config.severity),
         top=args.top, devices=args.devices,
         project_root=config.root or _guess_root(args.paths),
+        require_sandbox=args.require_sandbox or config.require_sandbox,
     )
 
 
@@ -214,14 +223,21 @@ def _trust(args) -> int:
     return trust_command(args.path, args.list, args.remove)
 
 
-COMMANDS = {"check": _check, "rules": _rules, "tech": _tech, "serve": _serve, "trust": _trust}
+def _doctor(args) -> int:
+    from .doctor import doctor_command
+
+    config = find_project_config(Path.cwd())
+    return doctor_command(args.python or config.python, args.require_sandbox or config.require_sandbox)
+
+
+COMMANDS = {"check": _check, "rules": _rules, "tech": _tech, "serve": _serve, "trust": _trust, "doctor": _doctor}
 
 
 def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     try:
         return COMMANDS[args.command](args)
-    except (UsageError, ConfigError, TechnologyError, TopCellError, HierarchyError, sweep.SweepError) as exc:
+    except (UsageError, ConfigError, TechnologyError, TopCellError, HierarchyError, RunnerError, sweep.SweepError) as exc:
         print(f"latchwatch: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:

@@ -6,6 +6,9 @@ and from workspace/configuration (section ``latchwatch``, asked per document so 
 each folder of a multi-root workspace can differ); later sources override earlier
 ones key by key.
 
+``requireSandbox`` and the project file's ``require-sandbox`` are or'ed: either can make a
+missing sandbox protection an error, neither can relax the other.
+
 ``trustedFolders`` is the one setting a project must not be able to supply, so it is
 read only from initializationOptions, didChangeConfiguration and the unscoped
 (user-level) workspace/configuration answer, never from a per-folder answer.
@@ -29,7 +32,8 @@ SECTION = "latchwatch"
 RUN_MODES = ("change", "save")
 DEFAULT_DEBOUNCE_MS = 500.0
 DEFAULT_TIMEOUT = 10.0
-KEYS = ("tech", "python", "timeout", "debounce", "runOn", "disable", "severity", "trustedFolders", "ruleDocsUrl")
+KEYS = ("tech", "python", "timeout", "debounce", "runOn", "disable", "severity", "trustedFolders", "ruleDocsUrl",
+        "requireSandbox")
 
 
 class SettingsError(Exception):
@@ -47,6 +51,7 @@ class EditorSettings:
     severity: dict[str, Severity] = field(default_factory=dict)
     trusted_folders: tuple[str, ...] = ()
     rule_docs_url: str | None = None  # "{rule}" is replaced by the rule id
+    require_sandbox: bool = False  # or'ed with the project file's `require-sandbox`: either can tighten
 
 
 def section_of(value) -> dict:
@@ -94,6 +99,11 @@ def merge(base: EditorSettings, raw: dict, allow_trust: bool) -> tuple[EditorSet
                 bad(key, "a table of rule id = error|warning|info", value)
             else:
                 values["severity"] = levels
+        elif key == "requireSandbox":
+            if isinstance(value, bool):
+                values["require_sandbox"] = value
+            else:
+                bad(key, "true or false", value)
         elif key == "trustedFolders":
             if not allow_trust:
                 continue
@@ -172,5 +182,7 @@ def document_settings(path: Path, editor: EditorSettings, workspace_folder: Path
         severity={**project.severity, **editor.severity},
         devices=True,  # the hover and the "2 of 5" counts read the device table
         project_root=root,
+        require_sandbox=editor.require_sandbox or project.require_sandbox,
+        warm=True,  # edits re-run the same document: a spare child skips interpreter start and imports
     )
     return DocumentSettings(check, project, root)

@@ -11,7 +11,9 @@ Both in one folder is an error rather than a silent choice. Paths in the file (a
 ``tech`` file, ``python``, sweep scripts) are relative to the file's folder and are
 stored resolved; a bare interpreter name such as ``python3`` and a built-in
 technology name are kept as written. No key grants trust: trust comes only from
-``latchwatch trust`` or an editor setting (DESIGN 7).
+``latchwatch trust`` or an editor setting (DESIGN 7). ``require-sandbox = true`` can
+only tighten: it makes a missing sandbox protection an error for every run of the
+project; ``false`` does not undo the command-line flag or the editor setting.
 """
 
 from __future__ import annotations
@@ -32,7 +34,7 @@ else:  # pragma: no cover - exercised only on Python 3.10
 
 PYPROJECT = "pyproject.toml"
 OWN_FILE = "latchwatch.toml"
-KEYS = ("tech", "include", "exclude", "python", "timeout", "disable", "severity", "sweep")
+KEYS = ("tech", "include", "exclude", "python", "timeout", "disable", "severity", "sweep", "require-sandbox")
 SWEEP_KEYS = ("script", "function", "params")
 # Folders expand_includes never descends into: tool caches, virtual environments, VCS.
 SKIPPED_FOLDER = re.compile(r"^(\..*|__pycache__)$")
@@ -66,6 +68,7 @@ class ProjectConfig:
     disable: tuple[str, ...] = ()
     severity: dict[str, Severity] = field(default_factory=dict)
     sweeps: tuple[SweepSpec, ...] = ()
+    require_sandbox: bool = False  # can only tighten: a missing protection becomes an error
 
 
 def _read_toml(path: Path) -> dict:
@@ -216,6 +219,10 @@ def _parse(table: dict, path: Path, prefix: str, known_rules: set[str] | None) -
         values["severity"] = _severities(read, table["severity"])
     if "sweep" in table:
         values["sweeps"] = _sweeps(read, table["sweep"])
+    if "require-sandbox" in table:
+        if not isinstance(table["require-sandbox"], bool):
+            read.expect("require-sandbox", "true or false", table["require-sandbox"])
+        values["require_sandbox"] = table["require-sandbox"]
     return ProjectConfig(root=path.parent, source=path, **values)
 
 

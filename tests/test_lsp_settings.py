@@ -72,3 +72,22 @@ def test_trust_root_prefers_the_project_folder(tmp_path):
     loose.parent.mkdir()
     assert trust_root(loose, None) == tmp_path / "loose"
     assert trust_root(loose, tmp_path) == tmp_path
+
+
+@pytest.mark.parametrize("editor_value, project_line, required", [
+    (None, "", False), (True, "", True), (None, "require-sandbox = true\n", True),
+    (False, "require-sandbox = true\n", True),  # the editor cannot relax what the project requires
+])
+def test_require_sandbox_from_either_side(tmp_path, editor_value, project_line, required):
+    script = make_project(tmp_path / "chip", 'tech = "demo"\n' + project_line)
+    editor, problems = merge(EditorSettings(), {"requireSandbox": editor_value}, True)
+    assert problems == []
+    check = document_settings(script, editor, None, TechnologyCache()).check
+    assert check.require_sandbox is required
+    assert check.warm  # the language server's runs take warm spares
+
+
+def test_require_sandbox_must_be_a_boolean():
+    kept, problems = merge(EditorSettings(), {"requireSandbox": "yes"}, True)
+    assert kept == EditorSettings()
+    assert problems == ["setting latchwatch.requireSandbox: expected true or false, got 'yes'; ignored"]

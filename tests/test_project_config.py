@@ -128,12 +128,20 @@ def test_invalid_toml_names_the_file_and_line(tmp_path):
     ("disable = 'tap-supply'", "disable", "expected a list of non-empty strings"),
     ("severity = 'info'", "severity", "expected a table of rule = severity, got 'info'"),
     ("severity = { tap-supply = 'loud' }", "severity.tap-supply", "expected one of error, warning, info, got 'loud'"),
+    ("require-sandbox = 'yes'", "require-sandbox", "expected true or false, got 'yes'"),
 ])
 def test_wrong_values_name_file_key_and_expectation(tmp_path, text, key, expected):
     source = write(tmp_path / "pyproject.toml", f"[tool.latchwatch]\n{text}\n")
     error = load_error(source, KNOWN)
     assert str(error).startswith(f"{source}: tool.latchwatch.{key}: {expected}")
     assert error.file == source and error.key == f"tool.latchwatch.{key}"
+
+
+@pytest.mark.parametrize("value, required", [("true", True), ("false", False), (None, False)])
+def test_require_sandbox_key(tmp_path, value, required):
+    text = 'tech = "demo"\n' + (f"require-sandbox = {value}\n" if value else "")
+    source = write(tmp_path / "latchwatch.toml", text)
+    assert load_project_config(source).require_sandbox is required
 
 
 def test_latchwatch_toml_keys_are_named_without_prefix(tmp_path):
