@@ -60,7 +60,7 @@ def test_every_example_is_covered_here():
     scripts = sorted(p.name for p in EXAMPLES.glob("*.py"))
     assert scripts == sorted(
         ["inverter_row.py", "sparse_tap_row.py", "bias_resistor.py", "mirror_fingers.py",
-         "latchup_test_structures.py", "switch_bank.py"]
+         "latchup_test_structures.py", "switch_bank.py", "pad_driver.py", "pad_driver_open_ring.py"]
     )
 
 
@@ -187,3 +187,50 @@ def test_switch_bank_raises_for_one_entry():
     ]
     assert "ValueError" in finding["message"] and "SW8" in finding["message"]
     assert report["runs"][0]["status"] != "ok"
+
+
+def run_devices(script: Path, cwd: Path) -> dict:
+    proc = subprocess.run(
+        [latchwatch(), "check", str(script), "--tech", "demo", "--format", "json", "--devices"],
+        cwd=cwd, capture_output=True, text=True, timeout=120,
+    )
+    assert proc.returncode in (0, 1), f"exit {proc.returncode}\n{proc.stderr}"
+    return json.loads(proc.stdout)
+
+
+def test_pad_driver_with_closed_rings_is_clean():
+    name = "pad_driver.py"
+    status, report = check_example(name)
+    assert report["findings"] == []
+    assert status == 0
+    # The drains reach the PAD_SDO label through metal1, via1 and metal2; the sources the
+    # rail labels through the ring metal: the devices table names both nets of each.
+    devices = run_devices(Path("examples") / name, ROOT)["devices"]
+    assert sorted((d["kind"], d["net"]) for d in devices) == [("ndiff", "PAD_SDO,VSS"), ("pdiff", "PAD_SDO,VDD")]
+    line = line_of(name, "box(cell, ACTIVE, x0, y0, x0 + DEVICE_W, y0 + DEVICE_H)  # output transistor")
+    assert {d["line"] for d in devices} == {line}
+
+
+def test_pad_driver_open_ring_names_the_gap():
+    name = "pad_driver_open_ring.py"
+    status, report = check_example(name)
+    assert status == 1
+    [finding] = report["findings"]
+    file = f"examples/{name}"
+    assert finding["rule"] == "io-guard-ring"
+    assert finding["severity"] == "error"
+    assert frames(finding) == [
+        (file, line_of(name, "box(cell, ACTIVE, x0, y0, x0 + DEVICE_W, y0 + DEVICE_H)  # output transistor"),
+         "output_transistor"),
+        (file, line_of(name, "n_drain, n_bar = output_transistor(cell, NPLUS, 0.0, 0.0, gate_below=True)"),
+         "sdo_driver"),
+        (file, line_of(name, "lib.add(sdo_driver())"), "<module>"),
+    ]
+    # The gap: the gate bar at y = -2..-1 plus 0.2 um each side, in the left side of the
+    # ring (x = -5..-3): 1.4 um wide, centred at (-4, -1.5).
+    assert finding["value"] == pytest.approx(1.4, abs=1e-3)
+    assert finding["location"] == pytest.approx([-4.0, -1.5], abs=0.05)
+    assert "open P+ guard ring" in finding["message"] and "gap of 1.40 um at (-4.00, -1.50)" in finding["message"]
+    assert finding["bbox"] == pytest.approx([0.0, 0.0, 13.0, 6.0], abs=1e-6)
+    [ring] = finding["related"]
+    assert (ring["file"], ring["line"]) == (file, line_of(name, "box(cell, ACTIVE, *side)  # ring side"))

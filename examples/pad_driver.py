@@ -1,0 +1,101 @@
+"""Quillfern QF-S12 "Saltmarsh": the output driver of the SDO (serial data out) pad.
+
+A three-finger NMOS and a three-finger PMOS drive the pad; their drains meet on metal2,
+which runs to the bond pad labelled PAD_SDO. Each transistor sits in its own guard
+ring: a contacted P+ substrate-tap ring (on VSS) around the NMOS, a contacted N+ tap
+ring (on VDD) inside the PMOS's n-well. The gates are brought in on metal2 over the
+rings, so both rings are closed. Coordinates in micrometres, demo technology.
+"""
+
+import gdstk
+
+NWELL, ACTIVE, POLY, NPLUS, PPLUS, CONTACT, METAL1 = (1, 0), (2, 0), (3, 0), (4, 0), (5, 0), (6, 0), (7, 0)
+VIA1, METAL2 = (8, 0), (9, 0)
+METAL1_PIN, METAL2_PIN = (7, 5), (9, 5)
+FINGER_L, DEVICE_W, DEVICE_H = 1.0, 13.0, 6.0
+RING_W, RING_SPACE = 2.0, 3.0  # ring width, and its distance from the transistor
+
+
+def box(cell, layer, x0, y0, x1, y1):
+    cell.add(gdstk.rectangle((x0, y0), (x1, y1), layer=layer[0], datatype=layer[1]))
+
+
+def contact_row(cell, x0, y0, x1, y1, pitch=1.5):
+    """Contacts 0.4 um square along the longer side of a box."""
+    horizontal = x1 - x0 >= y1 - y0
+    length = (x1 - x0) if horizontal else (y1 - y0)
+    for i in range(int((length - 0.6) // pitch) + 1):
+        if horizontal:
+            cx, cy = x0 + 0.3 + i * pitch, (y0 + y1) / 2 - 0.2
+        else:
+            cx, cy = (x0 + x1) / 2 - 0.2, y0 + 0.3 + i * pitch
+        box(cell, CONTACT, cx, cy, cx + 0.4, cy + 0.4)
+
+
+def guard_ring(cell, implant, x0, y0, x1, y1):
+    """A contacted tap ring with outer edge (x0, y0)-(x1, y1), metal1 on top of it."""
+    w = RING_W
+    for side in ((x0, y0, x1, y0 + w), (x0, y1 - w, x1, y1), (x0, y0 + w, x0 + w, y1 - w), (x1 - w, y0 + w, x1, y1 - w)):
+        box(cell, implant, *side)
+        box(cell, ACTIVE, *side)  # ring side
+        box(cell, METAL1, *side)
+        contact_row(cell, *side)
+
+
+def output_transistor(cell, implant, x0, y0, gate_below):
+    """Three fingers; source strips run to the ring on the far side from the gate bar.
+
+    Returns (drain bus y, gate bar y)."""
+    box(cell, implant, x0 - 0.2, y0 - 0.2, x0 + DEVICE_W + 0.2, y0 + DEVICE_H + 0.2)
+    box(cell, ACTIVE, x0, y0, x0 + DEVICE_W, y0 + DEVICE_H)  # output transistor
+    bar = y0 - 2.0 if gate_below else y0 + DEVICE_H + 1.0
+    for gx in (2.0, 6.0, 10.0):
+        box(cell, POLY, x0 + gx, min(bar, y0 - 1.0), x0 + gx + FINGER_L, max(bar + 1.0, y0 + DEVICE_H + 1.0))
+    box(cell, POLY, x0 - 2.0, bar, x0 + 11.0, bar + 1.0)  # the bar joining the fingers
+    ring_edge = y0 - RING_SPACE - 1.0 if gate_below else y0 + DEVICE_H + RING_SPACE + 1.0
+    drain_bus = y0 + DEVICE_H + 2.0 if gate_below else y0 - 2.0
+    for sx0, sx1, is_source in ((0.0, 2.0, True), (3.0, 6.0, False), (7.0, 10.0, True), (11.0, 13.0, False)):
+        contact_row(cell, x0 + sx0 + 0.3, y0 + 0.5, x0 + sx1 - 0.3, y0 + DEVICE_H - 0.5, pitch=1.5)
+        far = ring_edge if is_source else drain_bus
+        box(cell, METAL1, x0 + sx0 + 0.3, min(y0 + 0.3, far), x0 + sx1 - 0.3, max(y0 + DEVICE_H - 0.3, far))
+    box(cell, METAL1, x0 + 3.3, drain_bus - 0.5, x0 + 12.7, drain_bus + 0.5)  # drain bus
+    box(cell, VIA1, x0 + 12.0, drain_bus - 0.2, x0 + 12.4, drain_bus + 0.2)
+    return drain_bus, bar
+
+
+def gate_feed(cell, x0, bar, name):
+    """Poly contact at the end of the gate bar; metal2 over the ring to the pre-driver."""
+    box(cell, CONTACT, x0 - 1.8, bar + 0.3, x0 - 1.4, bar + 0.7)
+    box(cell, METAL1, x0 - 2.0, bar, x0 - 1.0, bar + 1.0)
+    box(cell, VIA1, x0 - 1.7, bar + 0.3, x0 - 1.3, bar + 0.7)
+    box(cell, METAL2, x0 - 14.0, bar, x0 - 1.0, bar + 1.0)
+    cell.add(gdstk.Label(name, (x0 - 13.0, bar + 0.5), layer=METAL2_PIN[0], texttype=METAL2_PIN[1]))
+
+
+def sdo_driver():
+    cell = gdstk.Cell("SDO_DRIVER")
+    # NMOS at (0, 0) in its P+ ring.
+    n_drain, n_bar = output_transistor(cell, NPLUS, 0.0, 0.0, gate_below=True)
+    ring = RING_SPACE + RING_W
+    guard_ring(cell, PPLUS, -ring, -ring, DEVICE_W + ring, DEVICE_H + ring)
+    cell.add(gdstk.Label("VSS", (DEVICE_W / 2, -ring + 1.0), layer=METAL1_PIN[0], texttype=METAL1_PIN[1]))
+    gate_feed(cell, 0.0, n_bar, "SDO_N")
+    # PMOS 23 um above it, in an n-well with an N+ ring.
+    p_y = DEVICE_H + 23.0
+    box(cell, NWELL, -ring - 2.0, p_y - ring - 2.0, DEVICE_W + ring + 2.0, p_y + DEVICE_H + ring + 2.0)
+    p_drain, p_bar = output_transistor(cell, PPLUS, 0.0, p_y, gate_below=False)
+    guard_ring(cell, NPLUS, -ring, p_y - ring, DEVICE_W + ring, p_y + DEVICE_H + ring)
+    cell.add(gdstk.Label("VDD", (DEVICE_W / 2, p_y + DEVICE_H + ring - 1.0), layer=METAL1_PIN[0],
+                         texttype=METAL1_PIN[1]))
+    gate_feed(cell, 0.0, p_bar, "SDO_P")
+    # Both drains on metal2, out to the bond pad.
+    box(cell, METAL2, 11.8, n_drain - 0.5, 12.8, p_drain + 0.5)
+    box(cell, METAL2, 11.8, 16.0, 40.0, 18.0)
+    box(cell, METAL2, 40.0, 7.0, 60.0, 27.0)  # bond pad
+    cell.add(gdstk.Label("PAD_SDO", (50.0, 17.0), layer=METAL2_PIN[0], texttype=METAL2_PIN[1]))
+    return cell
+
+
+lib = gdstk.Library("QF_S12_SDO")
+lib.add(sdo_driver())
+lib.write_gds("pad_driver.gds")
