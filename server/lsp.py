@@ -198,7 +198,7 @@ class LatchwatchServer(LanguageServer):
             if not is_trusted(path, editor.trusted_folders):
                 return self.publish_notice(uri, version, untrusted_message(trust_root(path, folder)), code="trust")
             settings = document_settings(path, editor, folder, self.techs)
-            sweeps = sweep.sweeps_for(path, sweep.configured_sweeps(settings.project))
+            sweeps = sweep.configured_sweeps(settings.project, only=path)
         except (ConfigError, TechnologyError, SettingsError, TrustStoreError, sweep.SweepError) as error:
             return self.publish_notice(uri, version, str(error), types.DiagnosticSeverity.Error, "configuration")
         buffers = {to_fs_path(d.uri): d.source for d in self.workspace.text_documents.values()}

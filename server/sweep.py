@@ -138,11 +138,15 @@ def _json_value(value) -> bool:
     return False
 
 
-def configured_sweeps(config: ProjectConfig) -> tuple[Sweep, ...]:
-    """The project's sweeps, with values a child can receive (JSON values)."""
+def configured_sweeps(config: ProjectConfig, only: Path | None = None) -> tuple[Sweep, ...]:
+    """The project's sweeps (with ``only``, those of that script), checked: values a
+    child can receive (JSON values) and a script that exists."""
     sweeps = []
     prefix = "tool.latchwatch." if config.source is not None and config.source.name == "pyproject.toml" else ""
+    target = Path(only).resolve() if only is not None else None
     for number, spec in enumerate(config.sweeps, start=1):
+        if target is not None and Path(spec.script).resolve() != target:
+            continue
         where = f"{config.source}: {prefix}sweep[{number}]"
         for name, values in spec.params.items():
             if not name.isidentifier():
@@ -262,6 +266,7 @@ def run_task(task: Task, settings: CheckSettings, source: str | None = None, can
         settings = replace(settings, top=None)  # a call's tops are the cells it returns
         outcome = run_script(task.path, source=source, python=settings.python, timeout=settings.timeout,
                              project_root=settings.project_root, cancel=cancel,
+                             require_sandbox=settings.require_sandbox, warm=settings.warm,
                              call=(task.function, task.corner or {}), accept_non_layout=task.preview)
         outcome = replace(outcome, corner=dict(task.corner or {}))
     if outcome.status == "cancelled" or (cancel is not None and cancel.is_set()):
