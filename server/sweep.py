@@ -392,6 +392,7 @@ def check_all(paths: list[Path], settings: CheckSettings, sweeps: Iterable[Sweep
             progress.note(f"{result.task.path}{where}: script output:\n{result.output.rstrip()}")
         progress.update(done, total)
 
+    progress.update(0, sum(len(t) for t in plan.tasks))
     try:
         results = execute(plan, settings, jobs=jobs, on_result=on_result)
     finally:
