@@ -63,33 +63,79 @@ class Connectivity:
         return self.conductors.piece[rows], self.net[rows]
 
 
-def meeting_pairs(a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Index pairs (i, j) where a[i] and b[j] share at least a point. Two axis-aligned
-    rectangles do exactly when their boxes do, which the tree's own query decides; GEOS
-    decides the other pairs."""
+class Shapes:
+    """A geometry array with what pair queries need (tree, boxes, rectangle flags),
+    each computed once however many queries use it."""
+
+    def __init__(self, geoms):
+        self.geoms = np.asarray(geoms, dtype=object)
+        n = len(self.geoms)
+        self.rect = g.axis_aligned_rectangles(self.geoms) if n else np.zeros(0, bool)
+        self.bounds = shapely.bounds(self.geoms) if n else np.zeros((0, 4))
+        self._tree = None
+
+    def __len__(self) -> int:
+        return len(self.geoms)
+
+    @property
+    def tree(self) -> shapely.STRtree:
+        if self._tree is None:
+            self._tree = shapely.STRtree(self.geoms)
+        return self._tree
+
+
+def _candidates(a: Shapes, b: Shapes):
+    """Pairs whose boxes meet (the tree's own test), and which of them are two rectangles."""
     if len(a) == 0 or len(b) == 0:
-        return np.zeros(0, np.int64), np.zeros(0, np.int64)
-    ia, ib = shapely.STRtree(b).query(a)
-    rest = np.flatnonzero(~(g.axis_aligned_rectangles(a)[ia] & g.axis_aligned_rectangles(b)[ib]))
+        empty = np.zeros(0, np.int64)
+        return empty, empty, np.zeros(0, bool)
+    ia, ib = b.tree.query(a.geoms)
+    return ia, ib, a.rect[ia] & b.rect[ib]
+
+
+def _meeting(a: Shapes, b: Shapes):
+    """Pairs (i, j) where a[i] and b[j] share at least a point. Two axis-aligned
+    rectangles do exactly when their boxes do; GEOS decides the other pairs."""
+    ia, ib, both = _candidates(a, b)
+    rest = np.flatnonzero(~both)
     keep = np.ones(len(ia), dtype=bool)
-    keep[rest] = shapely.intersects(a[ia[rest]], b[ib[rest]])
+    keep[rest] = shapely.intersects(a.geoms[ia[rest]], b.geoms[ib[rest]])
     return ia[keep], ib[keep]
 
 
+def _sharing_area(a: Shapes, b: Shapes):
+    """Pairs (i, j) where a[i] and b[j] share area: for two rectangles, boxes that overlap
+    with positive width and height; GEOS decides the other pairs."""
+    ia, ib, both = _candidates(a, b)
+    ba, bb = a.bounds[ia], b.bounds[ib]
+    w = np.minimum(ba[:, 2], bb[:, 2]) - np.maximum(ba[:, 0], bb[:, 0])
+    h = np.minimum(ba[:, 3], bb[:, 3]) - np.maximum(ba[:, 1], bb[:, 1])
+    keep = (w > 0) & (h > 0)
+    rest = np.flatnonzero(~both & keep)
+    ga, gb = a.geoms[ia[rest]], b.geoms[ib[rest]]
+    keep[rest] = shapely.intersects(ga, gb) & ~shapely.touches(ga, gb)
+    return ia[keep], ib[keep]
+
+
+def meeting_pairs(a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Index pairs (i, j) where a[i] and b[j] share at least a point."""
+    return _meeting(Shapes(a), Shapes(b))
+
+
 def join_nets(layers: list, links, same_conductor=None) -> np.ndarray:
-    """Net id of every shape of ``layers`` (a list of geometry arrays, concatenated in
+    """Net id of every shape of ``layers`` (geometry arrays or Shapes, concatenated in
     order). ``links`` are (lower, cut, upper) indices into ``layers``; shapes of one layer
     that meet are joined, except where ``same_conductor(layer, i, j)`` returns False for
     some pairs (it returns the mask of pairs to keep)."""
-    layers = [np.asarray(x, dtype=object) for x in layers]
+    layers = [x if isinstance(x, Shapes) else Shapes(x) for x in layers]
     sizes = np.array([len(x) for x in layers], dtype=np.int64)
     start = np.concatenate([[0], np.cumsum(sizes)])
     rows, cols = [], []
     cut_layers = {c for _, c, _ in links}
-    for k, geoms in enumerate(layers):
+    for k, shapes in enumerate(layers):
         if k in cut_layers:
             continue  # cuts join what they overlap, not each other
-        i, j = meeting_pairs(geoms, geoms)
+        i, j = _meeting(shapes, shapes)
         if same_conductor is not None and len(i):
             keep = same_conductor(k, i, j)
             i, j = i[keep], j[keep]
@@ -97,7 +143,7 @@ def join_nets(layers: list, links, same_conductor=None) -> np.ndarray:
         cols.append(j + start[k])
     for lower, cut, upper in links:
         for other in (lower, upper):
-            c, o = g.overlap_pairs(layers[cut], layers[other])
+            c, o = _sharing_area(layers[cut], layers[other])
             rows.append(c + start[cut])
             cols.append(o + start[other])
     n = int(start[-1])
@@ -110,21 +156,21 @@ def join_nets(layers: list, links, same_conductor=None) -> np.ndarray:
     return labels
 
 
-def terminals(pieces: Pieces, poly: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def terminals(pieces: Pieces, poly: Shapes) -> tuple[np.ndarray, np.ndarray]:
     """Parts of each diffusion piece outside the poly that crosses it: (parts, piece index)."""
     if len(pieces) == 0:
         return np.empty(0, dtype=object), np.zeros(0, np.int64)
-    ip, jp = g.overlap_pairs(pieces.geoms, poly)
+    ip, jp = _sharing_area(Shapes(pieces.geoms), poly)
     if len(ip) == 0:
         return pieces.geoms, np.arange(len(pieces))
-    gates = g.union_groups(poly[jp], ip, len(pieces))
+    gates = g.union_groups(poly.geoms[jp], ip, len(pieces))
     gated = np.flatnonzero(gates != None)  # noqa: E711 (elementwise)
     rest = np.setdiff1d(np.arange(len(pieces)), gated)
     parts, owner = g.explode(shapely.difference(pieces.geoms[gated], gates[gated].astype(object)), gated)
     return np.concatenate([pieces.geoms[rest], parts]), np.concatenate([rest, owner])
 
 
-def _diffusion_conductors(ex: Extraction, poly: np.ndarray, kinds) -> Conductors:
+def _diffusion_conductors(ex: Extraction, poly: Shapes, kinds) -> Conductors:
     geoms, kind, piece, shape = [], [], [], []
     for code in kinds:
         pieces = (ex.ndiff, ex.pdiff, ex.ntap, ex.ptap)[code]
@@ -156,8 +202,7 @@ def conductor_roles(tech: Technology) -> tuple[str, ...]:
 def connect(ex: Extraction, tech: Technology) -> Connectivity:
     flat = ex.flat
     roles = conductor_roles(tech)
-    poly_idx = flat.on_layer(tech.layer("poly"))
-    poly = flat.polygons[poly_idx]
+    poly = Shapes(flat.polygons[flat.on_layer(tech.layer("poly"))])
     has_tap_layer = tech.layer("tap") is not None
     per_role: list[Conductors] = []
     for role in roles:
@@ -182,7 +227,8 @@ def connect(ex: Extraction, tech: Technology) -> Connectivity:
             return np.ones(len(i), dtype=bool)
         return _IMPLANT[kind[i]] == _IMPLANT[kind[j]]
 
-    labels = join_nets([c.geoms for c in per_role] + cuts, links, same_implant)
+    layers = [poly if role == "poly" else Shapes(c.geoms) for role, c in zip(roles, per_role)]
+    labels = join_nets(layers + [Shapes(c) for c in cuts], links, same_implant)
     n_cond = sum(len(c) for c in per_role)
     conductors = Conductors(
         geoms=np.concatenate([c.geoms for c in per_role]) if per_role else np.empty(0, dtype=object),

@@ -39,7 +39,8 @@ from .extract import Pieces
 
 DEFAULT_TOL = 1e-3  # one nanometre in micrometre units
 QUAD_SEGS = 32
-_CLOSING_QUAD_SEGS = 8  # gaps are located, not measured, with the closing
+_CLOSING_QUAD_SEGS = 4  # gaps are located, not measured, with the closing
+GAP_TOL = 0.02  # um: the closing radius is found to this; the gap's width is measured apart
 _MAX_STEPS = 60
 
 
@@ -47,10 +48,10 @@ _MAX_STEPS = 60
 class TapRegions:
     """Tap pieces of one type merged into regions: pieces that meet and share a body."""
 
-    geoms: np.ndarray  # one polygon per region part
+    geoms: np.ndarray  # one (multi)polygon per region
     body: np.ndarray
     contacted: np.ndarray  # bool: some member piece encloses a contact
-    members: list[np.ndarray]  # piece indices of each region part
+    members: list[np.ndarray]  # piece indices of each region
     holes: np.ndarray  # hole polygons of all regions
     hole_owner: np.ndarray  # region index of each hole
 
@@ -69,26 +70,44 @@ def tap_regions(pieces: Pieces, contacted: np.ndarray) -> TapRegions:
     _, label = connected_components(graph, directed=False)
     n_groups = int(label.max()) + 1
     merged = g.union_groups(pieces.geoms, label, n_groups)
-    # A union whose pieces only meet at a point is a multipolygon: keep each part.
-    parts, group = g.explode(merged, np.arange(n_groups))
     order = np.argsort(label, kind="stable")
-    by_group = np.split(order, np.flatnonzero(np.diff(label[order])) + 1)
-    members = []
-    for part, grp in zip(parts, group):
-        cand = by_group[grp]
-        members.append(cand if len(by_group[grp]) == 1 else cand[shapely.intersects(pieces.geoms[cand], part)])
-    contacted_part = np.array([bool(contacted[m].any()) for m in members], dtype=bool)
-    body = np.array([pieces.body[m[0]] for m in members], dtype=np.int64)
-    holes, owner = _holes(parts)
-    return TapRegions(parts, body, contacted_part, members, holes, owner)
+    members = np.split(order, np.flatnonzero(np.diff(label[order])) + 1)
+    contacted_group = np.zeros(n_groups, dtype=bool)
+    contacted_group[label[contacted]] = True
+    body = np.empty(n_groups, dtype=np.int64)
+    body[label] = pieces.body
+    holes, owner = _holes(merged)
+    return TapRegions(merged, body, contacted_group, members, holes, owner)
 
 
-def _holes(polygons: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    counts = shapely.get_num_interior_rings(polygons)
-    owner = np.repeat(np.arange(len(polygons)), counts)
+def _holes(regions: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The holes of each region, as polygons with the region's index. A polygon's holes
+    are its interior rings. Pieces that meet only at points make a multipolygon, whose
+    holes may be bounded by several parts: those are the parts of the free space around it
+    that do not reach its bounding box's edge."""
+    single = shapely.get_type_id(regions) == shapely.GeometryType.POLYGON
+    polys = np.flatnonzero(single)
+    counts = shapely.get_num_interior_rings(regions[polys])
+    owner = np.repeat(polys, counts)
     index = np.arange(len(owner)) - np.repeat(np.cumsum(counts) - counts, counts)
-    rings = shapely.get_interior_ring(polygons[owner], index)
-    return shapely.polygons(rings), owner
+    holes = [shapely.polygons(shapely.get_interior_ring(regions[owner], index))]
+    owners = [owner]
+    for k in np.flatnonzero(~single):  # few: unions through corner points
+        x0, y0, x1, y1 = shapely.bounds(regions[k])
+        frame = shapely.box(x0 - 1, y0 - 1, x1 + 1, y1 + 1)
+        free = shapely.get_parts(shapely.difference(frame, regions[k]))
+        bounded = free[~shapely.intersects(free, frame.exterior)]
+        holes.append(bounded)
+        owners.append(np.full(len(bounded), k, np.int64))
+    return np.concatenate(holes), np.concatenate(owners)
+
+
+def outline(region, hole):
+    """The outer edge of ``region`` around ``hole``: the exterior of the filled region
+    part that holds the hole."""
+    whole = shapely.get_parts(shapely.union_all([filled(region), hole]))
+    home = whole[shapely.covers(whole, hole)]
+    return shapely.get_exterior_ring(home[0] if len(home) else whole[0])
 
 
 def innermost_holes(regions: TapRegions, diffs: np.ndarray, body_ok) -> np.ndarray:
@@ -162,7 +181,7 @@ def narrowest_band(region, hole, diff, min_width: float, tol: float = DEFAULT_TO
             hi = mid
     opened = shapely.buffer(erode(region, hi), hi, quad_segs=QUAD_SEGS) if hi > 0 else region
     residue, _ = g.explode(np.array([shapely.difference(region, opened)], dtype=object), np.zeros(1, np.int64))
-    inner, outer = shapely.get_exterior_ring(hole), shapely.get_exterior_ring(region)
+    inner, outer = shapely.get_exterior_ring(hole), outline(region, hole)
     span = _spanning(residue, inner, outer)
     pool = span if len(span) else residue
     where = _representative(pool, diff) if len(pool) else shapely.get_coordinates(
@@ -183,7 +202,7 @@ def closing(geom, r: float):
     return shapely.buffer(shapely.buffer(geom, r, quad_segs=_CLOSING_QUAD_SEGS), -r, quad_segs=_CLOSING_QUAD_SEGS)
 
 
-def find_gap(taps, diff, r_max: float, tol: float = DEFAULT_TOL) -> Gap | None:
+def find_gap(taps, diff, r_max: float, tol: float = GAP_TOL) -> Gap | None:
     """Where ``taps`` (one geometry: the tap area near ``diff``) fail to surround it,
     or None when no closing up to ``r_max`` makes them surround it."""
     if shapely.is_empty(taps) or not surrounds(closing(taps, r_max), diff):

@@ -131,6 +131,18 @@ def test_pieces_meeting_at_a_corner_close_the_ring_at_zero_width():
     assert np.hypot(*(got.location - [2, 2])) < 0.5  # at the corner joint
 
 
+def test_a_blob_meeting_the_ring_at_two_corners_closes_it():
+    # Found by the flood-fill test: the ring's left side has a 1 x 1 gap at y = 2..3 and a
+    # separate tap square outside it meets the ring only at the gap's two outer corners.
+    # The union of the two is a multipolygon (its parts share only points), yet nothing
+    # escapes: the hole is bounded by both parts.
+    ring = _square_ring(1, 1, 22, 22, 1).difference(shapely.box(0, 2, 2, 3))
+    blob = shapely.box(0, 2, 1, 3)
+    diff = shapely.box(2, 2, 4, 4)
+    assert _closed(np.concatenate([shapely.get_parts(ring), [blob]]), diff)
+    assert not _closed(shapely.get_parts(ring), diff)
+
+
 # --- gaps ---------------------------------------------------------------------------------
 
 def test_gap_location_and_width():
