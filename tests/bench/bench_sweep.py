@@ -7,8 +7,8 @@ shapes). For each J (default: 1 and the number of cores) the sweep runs in a fre
 project folder through ``sweep.check_all`` (the code ``latchwatch check --sweep`` runs),
 R times; printed per J: the best and median wall time, corners per second, and the
 split of the best run into time in children (the sum of the runs' own seconds) and the
-rest (checking in this process, thread hand-over). ``--warm`` lets the runs take spare
-children started ahead (run_script's ``warm``, as the language server does). The target is 50 corners in
+rest (checking in this process, thread hand-over). Corner runs take warm spare
+children (server/sweep.py). The target is 50 corners in
 <= 5 s on a 2-core machine.
 """
 
@@ -36,9 +36,8 @@ def corner_params(count: int) -> list[str]:
     return [f"fingers={fingers}", "w=1.0,2.0"]
 
 
-def one_sweep(folder: Path, count: int, jobs: int, warm: bool = False) -> tuple[float, float, int]:
-    settings = CheckSettings(tech=techfiles.load_technology("demo", folder), timeout=30, project_root=folder,
-                             warm=warm)
+def one_sweep(folder: Path, count: int, jobs: int) -> tuple[float, float, int]:
+    settings = CheckSettings(tech=techfiles.load_technology("demo", folder), timeout=30, project_root=folder)
     chosen = sweep.ad_hoc_sweep(folder / "fingers.py", "finger_array", corner_params(count))
     started = time.perf_counter()
     report = sweep.check_all([folder / "fingers.py"], settings, [chosen], jobs=jobs)
@@ -54,11 +53,10 @@ def main() -> None:
     parser.add_argument("--corners", type=int, default=50)
     parser.add_argument("--jobs", type=int, action="append")
     parser.add_argument("--repeat", type=int, default=3)
-    parser.add_argument("--warm", action="store_true", help="take spare children started ahead (runner's warm)")
     args = parser.parse_args()
     jobs_list = args.jobs or sorted({1, sweep.default_jobs()})
-    print(f"{args.corners} corners of finger_array, {os.cpu_count()} cores, best and median of {args.repeat}"
-          f"{', warm spares' if args.warm else ''}; load average {os.getloadavg()[0]:.2f}")
+    print(f"{args.corners} corners of finger_array, {os.cpu_count()} cores, best and median of {args.repeat}; "
+          f"load average {os.getloadavg()[0]:.2f}")
     print(f"{'jobs':>4}  {'best s':>7}  {'median s':>8}  {'corners/s':>9}  {'in children s':>13}  {'rest s':>6}")
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
@@ -66,7 +64,7 @@ def main() -> None:
         (folder / "fingers.py").write_text(GENERATOR)
         one_sweep(folder, 2, 1)  # warm the file caches and this process's imports
         for jobs in jobs_list:
-            samples = [one_sweep(folder, args.corners, jobs, args.warm) for _ in range(args.repeat)]
+            samples = [one_sweep(folder, args.corners, jobs) for _ in range(args.repeat)]
             best = min(samples)
             walls = [s[0] for s in samples]
             print(f"{jobs:>4}  {best[0]:>7.2f}  {statistics.median(walls):>8.2f}  {best[2] / best[0]:>9.1f}  "
