@@ -17,7 +17,9 @@ than asked, at r = w/2: 0.03 nm for w = 2 um, which is below the 1 nm ``tol``.
 Gaps. An open ring is closed by a morphological closing (dilate, then erode) with the
 smallest radius, found by bisection, at which the closed taps surround the diffusion;
 the gap is the added area that spans from the hole around the diffusion to the outside,
-and its width the distance between the two ring ends beside it.
+and its width the distance between the two ring ends beside it. It counts as an open
+ring only when the diffusion then lies in a hole (not under the fill) and at least
+MIN_RING_SHARE of that hole's edge is tap; otherwise there is no ring to speak of.
 
 Distance. The farthest point of a diffusion's edge from its ring is found by a branch
 and bound along the edge's segments (the distance is 1-Lipschitz along a segment, so an
@@ -41,6 +43,7 @@ DEFAULT_TOL = 1e-3  # one nanometre in micrometre units
 QUAD_SEGS = 32
 _CLOSING_QUAD_SEGS = 4  # gaps are located, not measured, with the closing
 GAP_TOL = 0.02  # um: the closing radius is found to this; the gap's width is measured apart
+MIN_RING_SHARE = 0.5  # share of the closed hole's edge that must be tap for an "open ring"
 _MAX_STEPS = 60
 
 
@@ -209,7 +212,7 @@ def find_gap(taps, diff, r_max: float, tol: float = GAP_TOL) -> Gap | None:
         return None
     lo, hi = 0.0, r_max
     for _ in range(_MAX_STEPS):
-        if hi - lo <= tol:
+        if hi - lo <= max(tol, hi / 8):  # the radius only finds the gap; its width is measured
             break
         mid = (lo + hi) / 2
         if surrounds(closing(taps, mid), diff):
@@ -217,11 +220,16 @@ def find_gap(taps, diff, r_max: float, tol: float = GAP_TOL) -> Gap | None:
         else:
             lo = mid
     closed = closing(taps, hi)
-    added, _ = g.explode(np.array([shapely.difference(closed, taps)], dtype=object), np.zeros(1, np.int64))
     parts = shapely.get_parts(closed)
     home = parts[shapely.within(diff, shapely.polygons(shapely.get_exterior_ring(parts)))]
-    outer = shapely.get_exterior_ring(home[0]) if len(home) else shapely.boundary(closed)
-    inner = _inner_line(home[0], diff) if len(home) else diff
+    inner = _inner_line(home[0], diff) if len(home) else None
+    # Taps on two sides close over the diffusion rather than round it, and scattered taps
+    # bridged by long fills are not a ring: most of the hole's edge must be tap.
+    if inner is None or (shapely.length(shapely.intersection(inner, shapely.buffer(taps, 1e-3)))
+                         < MIN_RING_SHARE * shapely.length(inner)):
+        return None
+    added, _ = g.explode(np.array([shapely.difference(closed, taps)], dtype=object), np.zeros(1, np.int64))
+    outer = shapely.get_exterior_ring(home[0])
     span = _spanning(added, inner, outer)
     pool = span if len(span) else added
     if len(pool) == 0:
@@ -232,11 +240,11 @@ def find_gap(taps, diff, r_max: float, tol: float = GAP_TOL) -> Gap | None:
 
 
 def _inner_line(polygon, diff):
-    """The boundary of the hole of ``polygon`` that holds ``diff``, or ``diff`` itself
-    when the closing covered it."""
+    """The boundary of the hole of ``polygon`` that holds ``diff``, or None when the
+    closing covered the diffusion instead."""
     holes, _ = _holes(np.array([polygon], dtype=object))
     holding = holes[shapely.within(diff, holes)] if len(holes) else holes
-    return shapely.get_exterior_ring(holding[0]) if len(holding) else diff
+    return shapely.get_exterior_ring(holding[0]) if len(holding) else None
 
 
 def _gap_width(taps, gap) -> float | None:

@@ -160,6 +160,19 @@ def test_two_gaps_are_counted():
     assert gap.count == 2
 
 
+def test_taps_on_two_sides_are_no_ring():
+    # Strips above and below close over the diffusion, not round it.
+    taps = shapely.union_all([shapely.box(-4, -4, 14, -2), shapely.box(-4, 6, 14, 8)])
+    assert rings.find_gap(taps, shapely.box(0, 0, 10, 4), 15.0) is None
+
+
+def test_scattered_taps_are_no_ring():
+    # Four small squares at the corners of a 30 um box: a closing bridges them, but the
+    # bridges, not taps, would make most of the hole's edge.
+    taps = shapely.union_all([shapely.box(x, y, x + 1, y + 1) for x in (-10, 20) for y in (-10, 20)])
+    assert rings.find_gap(taps, shapely.box(0, 0, 10, 10), 15.0) is None
+
+
 def test_no_gap_found_for_a_single_strip():
     assert rings.find_gap(shapely.box(-4, -4, 14, -2), shapely.box(0, 0, 10, 4), 3.0) is None
 
