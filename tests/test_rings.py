@@ -167,10 +167,14 @@ def test_taps_on_two_sides_are_no_ring():
 
 
 def test_scattered_taps_are_no_ring():
-    # Four small squares at the corners of a 30 um box: a closing bridges them, but the
-    # bridges, not taps, would make most of the hole's edge.
-    taps = shapely.union_all([shapely.box(x, y, x + 1, y + 1) for x in (-10, 20) for y in (-10, 20)])
-    assert rings.find_gap(taps, shapely.box(0, 0, 10, 10), 15.0) is None
+    # Twelve 1 um squares on a circle of radius 12 round the diffusion, about 6 um apart: a
+    # closing bridges them and leaves a hole, but the bridges, not taps, make most of its
+    # edge (about 12 um of tap in some 75 um).
+    angles = np.linspace(0, 2 * np.pi, 12, endpoint=False)
+    taps = shapely.union_all([shapely.box(12 * np.cos(a) - 0.5, 12 * np.sin(a) - 0.5,
+                                          12 * np.cos(a) + 0.5, 12 * np.sin(a) + 0.5) for a in angles])
+    diff = shapely.box(-1, -1, 1, 1)
+    assert rings.find_gap(taps, diff, 15.0) is None
 
 
 def test_no_gap_found_for_a_single_strip():
