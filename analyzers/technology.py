@@ -16,6 +16,8 @@ from dataclasses import dataclass, fields
 from types import MappingProxyType
 from typing import Any, Mapping
 
+from .mobility import MAX_DOPING, MIN_DOPING, UM_PER_CM, sheet_resistance
+
 REQUIRED_LAYERS = ("nwell", "active", "poly", "nplus", "pplus", "contact")
 OPTIONAL_LAYERS = ("metal1", "via1", "metal2", "pwell", "deep_nwell", "tap", "io_marker")
 _METAL = re.compile(r"metal[1-9][0-9]*")
@@ -103,6 +105,33 @@ class Electrical:
     pwell_sheet: float | None = None  # ohm/sq, e.g. a p-well isolated by a deep n-well
     deep_nwell_sheet: float | None = None  # ohm/sq
     psub_resistivity: float | None = None  # ohm cm, bulk substrate
+    # A a core (not pad-connected) device must withstand; no standard sets it, see the
+    # shunt-resistance rule's documentation for how the default was chosen.
+    core_current: float = 1e-4
+    sheet_grid: float | None = None  # um, largest cell of the sheet model's grid; None: adaptive
+    # Doping (cm^-3) and depth (um) of a uniformly doped layer: the sheet resistance then
+    # follows from the Masetti mobility model (analyzers/mobility.py) when *_sheet is unset.
+    nwell_doping: float | None = None
+    nwell_depth: float | None = None
+    pwell_doping: float | None = None
+    pwell_depth: float | None = None
+    psub_doping: float | None = None
+    psub_depth: float | None = None  # also turns psub_resistivity into a sheet
+
+    def sheet(self, body: str) -> float | None:
+        """Sheet resistance (ohm/sq) of "nwell", "pwell" or "psub": the given sheet value,
+        else resistivity from doping (or psub_resistivity) over the depth, else None."""
+        given = getattr(self, f"{body}_sheet")
+        if given is not None:
+            return given
+        doping, depth = getattr(self, f"{body}_doping"), getattr(self, f"{body}_depth")
+        if depth is None:
+            return None
+        if doping is not None:
+            return sheet_resistance(doping, depth, "n" if body == "nwell" else "p")
+        if body == "psub" and self.psub_resistivity is not None:
+            return self.psub_resistivity / (depth / UM_PER_CM)
+        return None
 
 
 ELECTRICAL_KEYS = tuple(f.name for f in fields(Electrical))
@@ -400,4 +429,18 @@ class _Checker:
     def electrical(self, value: Any) -> Electrical:
         table = self.table(value, "electrical")
         self.known_keys(table, "electrical", ELECTRICAL_KEYS)
-        return Electrical(**{k: self.number(v, f"electrical.{k}") for k, v in table.items()})
+        values = {k: self.number(v, f"electrical.{k}") for k, v in table.items()}
+        for body in ("nwell", "pwell", "psub"):
+            doping, depth = f"{body}_doping", f"{body}_depth"
+            if doping in values and not MIN_DOPING <= values[doping] <= MAX_DOPING:
+                raise self.fail(f"electrical.{doping}", f"a doping in cm^-3 from {MIN_DOPING:.0e} to "
+                                f"{MAX_DOPING:.0e} (the range of the Masetti mobility model)", table[doping])
+            if doping in values and depth not in values:
+                raise self.fail(f"electrical.{depth}", f"the depth in um of the layer that "
+                                f"electrical.{doping} describes", None, got_text="nothing")
+            partner = doping in values or (body == "psub" and "psub_resistivity" in values)
+            if depth in values and not partner:
+                wanted = f"electrical.{doping}" + (" or electrical.psub_resistivity" if body == "psub" else "")
+                raise self.fail(f"electrical.{doping}", f"{wanted} beside electrical.{depth}", None,
+                                got_text="nothing")
+        return Electrical(**values)

@@ -1,0 +1,292 @@
+"""Shunt resistance of every device diffusion, estimated from a sheet model of its body.
+
+Bodies and their sheets: each n-well (``nwell_sheet``), each isolated p-well
+(``pwell_sheet``) and the substrate (``psub_sheet``), or the sheet derived from doping
+and depth (technology.Electrical.sheet). The substrate is a sheet over the layout's
+extent plus SUBSTRATE_MARGIN with every n-well, deep n-well and isolated p-well cut
+out. Contacted taps of the body are the grounded electrodes; the device diffusion is
+the other one (analyzers/sheet.py solves the sheet).
+
+A body whose grid stays small is solved whole: one factorization for all its devices.
+Larger bodies are solved in a window around each device, reaching WINDOW_REACH times
+the distance to its nearest tap beyond it (the sheet outside a window is cut away,
+which can only raise the estimate). Windows whose contents are the same up to a
+translation (repeated cells) are solved once: each window's contents are hashed
+after clipping, relative to the device. The cost is then linear in the number of
+distinct windows.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import shapely
+from scipy.spatial import cKDTree
+
+from . import geometry as g
+from .extract import SUBSTRATE, Pieces, is_pwell_body, pwell_index
+from .nets import pad_connected
+from .sheet import SheetProblem, make_mesh, solve
+
+SUBSTRATE_MARGIN = 5.0  # layout units (um) of substrate sheet beyond the layout's extent
+WHOLE_BODY_CELLS = 6000  # grid cells up to which a body is solved whole
+WHOLE_BODY_DEVICES = 48  # more devices than this: windows (the grid grows with every device)
+WINDOW_TAPS = 3  # a window reaches WINDOW_REACH times the distance to the device's WINDOW_TAPS-th nearest tap
+WINDOW_REACH = 1.5
+WINDOW_RETRIES = 2  # a device cut off from its taps inside its window gets a 4x wider one
+QUANTUM = 1e-6  # layout units: window contents are compared on this grid
+
+
+@dataclass
+class KindShunt:
+    """Per device piece of one kind (aligned with Extraction.pdiff or .ndiff)."""
+
+    ohm: np.ndarray  # estimated resistance to the body's taps; inf: no tap reachable; nan: no sheet value
+    required: np.ndarray  # A the device must withstand
+    pad: np.ndarray  # bool: pad-connected
+    tap: np.ndarray  # index into ``taps`` of the nearest contacted tap of its body, -1 if none
+    taps: Pieces  # the contacted taps of the body type
+    sheet: np.ndarray  # ohm/sq used per device (nan when unknown)
+    vbe_on: float
+
+    @property
+    def trigger(self) -> np.ndarray:
+        """Current (A) through the shunt that forward-biases the junction: vbe_on / R."""
+        with np.errstate(divide="ignore"):
+            return np.where(np.isnan(self.ohm), np.nan, self.vbe_on / self.ohm)
+
+
+def shunt_estimates(ctx) -> dict[str, KindShunt]:
+    """Per kind ("p", "n"), computed once per check context."""
+    return ctx.memo("shunt", lambda: {k: _estimate_kind(ctx, k) for k in ("p", "n")})
+
+
+def _estimate_kind(ctx, kind: str) -> KindShunt:
+    ex, elec = ctx.extraction, ctx.tech.electrical
+    pieces = ex.pdiff if kind == "p" else ex.ndiff
+    taps = ex.ntap.select(ex.ntap_contacted) if kind == "p" else ex.ptap.select(ex.ptap_contacted)
+    n = len(pieces)
+    pad = pad_connected(ctx)[kind] if n else np.zeros(0, bool)
+    required = np.where(pad, elec.injection_current, elec.core_current)
+    bodies, body_of = np.unique(pieces.body, return_inverse=True)
+    sheet_of_body = {int(b): _sheet_of(elec, kind, int(b)) for b in bodies}
+    sheet = np.array([sheet_of_body[int(b)] for b in bodies], float)[body_of.ravel()]
+    _, tap = nearest_taps(pieces, taps)
+    ohm = np.full(n, np.inf)
+    ohm[np.isnan(sheet)] = np.nan
+    windowed = []
+    for body in bodies:
+        members = np.flatnonzero(pieces.body == body)
+        rs = sheet_of_body[int(body)]
+        body_taps = np.flatnonzero(taps.body == body)
+        if np.isnan(rs) or len(body_taps) == 0:
+            continue
+        region, exclude, box = _body_region(ex, kind, int(body))
+        whole = SheetProblem(box, np.array([region], dtype=object), exclude, taps.geoms[body_taps],
+                             pieces.geoms[members], rs, elec.sheet_grid)
+        if len(members) <= WHOLE_BODY_DEVICES and make_mesh(whole)[0].cells <= WHOLE_BODY_CELLS:
+            ohm[members] = solve(whole).resistance
+        else:
+            windowed.append((int(body), members, region, exclude, box, body_taps))
+    for body, members, region, exclude, box, body_taps in windowed:
+        ohm[members] = _windowed(pieces, members, region, exclude, box, taps, body_taps,
+                                 sheet_of_body[body], elec.sheet_grid, kind == "n" and body == SUBSTRATE)
+    return KindShunt(ohm, required, pad, tap, taps, sheet, elec.vbe_on)
+
+
+def _sheet_of(elec, kind: str, body: int) -> float:
+    name = "nwell" if kind == "p" else ("pwell" if is_pwell_body(body) else "psub")
+    value = elec.sheet(name)
+    return np.nan if value is None else float(value)
+
+
+def substrate_box(ex) -> tuple[float, float, float, float]:
+    x0, y0, x1, y1 = shapely.total_bounds(ex.flat.polygons)
+    m = SUBSTRATE_MARGIN
+    return (float(x0 - m), float(y0 - m), float(x1 + m), float(y1 + m))
+
+
+def _body_region(ex, kind: str, body: int):
+    """(region polygon, polygons cut out of it, bounding box) of one body. Merged wells
+    keep the vertices where their drawn shapes met; simplify(0) drops those."""
+    empty = np.empty(0, dtype=object)
+    if kind == "p" or is_pwell_body(body):
+        region = shapely.simplify(ex.wells[body] if kind == "p" else ex.pwells[pwell_index(body)], 0.0)
+        return region, empty, tuple(shapely.bounds(region).tolist())
+    box = substrate_box(ex)
+    cut = shapely.simplify(np.concatenate([ex.wells, ex.deep_nwells, ex.pwells]).astype(object), 0.0)
+    return shapely.box(*box), cut, box
+
+
+def tap_reach(devices: np.ndarray, taps: np.ndarray) -> np.ndarray:
+    """Centre distance from each device to its WINDOW_TAPS-th nearest tap (or the
+    farthest, when there are fewer)."""
+    centre = lambda geoms: shapely.get_coordinates(shapely.centroid(geoms))
+    k = min(WINDOW_TAPS, len(taps))
+    dist, _ = cKDTree(centre(taps)).query(centre(devices), k=[k])
+    return dist[:, 0]
+
+
+def nearest_taps(pieces: Pieces, taps: Pieces) -> tuple[np.ndarray, np.ndarray]:
+    """(distance, tap index) from each piece to the nearest tap of its own body."""
+    n = len(pieces)
+    dist, tap = np.full(n, np.inf), np.full(n, -1, np.int64)
+    if n == 0 or len(taps) == 0:
+        return dist, tap
+    (qi, ti), d = shapely.STRtree(taps.geoms).query_nearest(pieces.geoms, return_distance=True,
+                                                              all_matches=False)
+    ok = taps.body[ti] == pieces.body[qi]
+    dist[qi[ok]], tap[qi[ok]] = d[ok], ti[ok]
+    # The nearest tap overall can belong to another well: ask that body's own taps.
+    rest = qi[~ok]
+    for body in np.unique(pieces.body[rest]):
+        members = np.flatnonzero(taps.body == body)
+        if len(members) == 0:
+            continue
+        sel = rest[pieces.body[rest] == body]
+        (si, mi), d2 = shapely.STRtree(taps.geoms[members]).query_nearest(
+            pieces.geoms[sel], return_distance=True, all_matches=False)
+        dist[sel[si]], tap[sel[si]] = d2, members[mi]
+    return dist, tap
+
+
+# --- windows -------------------------------------------------------------------------
+
+def _windowed(pieces, members, region, exclude, body_box, taps, body_taps, rs, grid, substrate) -> np.ndarray:
+    devices = pieces.geoms[members]
+    bounds = shapely.bounds(devices)
+    reach = WINDOW_REACH * tap_reach(devices, taps.geoms[body_taps])
+    ohm = np.full(len(members), np.inf)
+    todo = np.arange(len(members))
+    for attempt in range(WINDOW_RETRIES + 1):
+        if len(todo) == 0:
+            break
+        r = reach[todo] * 4.0 ** attempt
+        b = bounds[todo]
+        boxes = np.c_[np.maximum(b[:, 0] - r, body_box[0]), np.maximum(b[:, 1] - r, body_box[1]),
+                      np.minimum(b[:, 2] + r, body_box[2]), np.minimum(b[:, 3] + r, body_box[3])]
+        ohm[todo] = _solve_windows(devices[todo], boxes, region, exclude, taps.geoms[body_taps], rs, grid,
+                                   substrate)
+        todo = todo[np.isinf(ohm[todo])]
+    return ohm
+
+
+@dataclass
+class _WindowPieces:
+    """Clipped contents of many windows, one row per polygon part."""
+
+    window: np.ndarray
+    category: np.ndarray  # 0 region, 1 cut out of the region, 2 tap
+    geoms: np.ndarray
+
+
+def _clip(windows: np.ndarray, shapes: np.ndarray, index: np.ndarray, boxes: np.ndarray,
+          category: int) -> _WindowPieces:
+    """Parts of ``shapes[index[k]]`` inside box ``windows[k]``. Rectangles are clipped
+    with their bounds (no GEOS overlay: most layout shapes are rectangles)."""
+    geoms = shapes[index]
+    rect = _is_rectangle(geoms)
+    out_window, out_geoms = [], []
+    if rect.any():
+        b, w = shapely.bounds(geoms[rect]), boxes[windows[rect]]
+        c = np.c_[np.maximum(b[:, :2], w[:, :2]), np.minimum(b[:, 2:], w[:, 2:])]
+        ok = (c[:, 2] > c[:, 0]) & (c[:, 3] > c[:, 1])
+        out_window.append(windows[rect][ok])
+        out_geoms.append(shapely.box(c[ok, 0], c[ok, 1], c[ok, 2], c[ok, 3]))
+    if (~rect).any():
+        w = windows[~rect]
+        box_geoms = shapely.box(boxes[w, 0], boxes[w, 1], boxes[w, 2], boxes[w, 3])
+        parts, owner = g.explode(shapely.intersection(geoms[~rect], box_geoms), np.arange(len(w)))
+        # One form per shape (no collinear vertices, canonical ring start), so that equal
+        # contents give equal coordinates wherever the window cut them out.
+        out_window.append(w[owner])
+        out_geoms.append(shapely.normalize(shapely.simplify(parts, 0.0)))
+    window = np.concatenate(out_window) if out_window else np.zeros(0, np.int64)
+    parts = np.concatenate(out_geoms) if out_geoms else np.empty(0, dtype=object)
+    return _WindowPieces(window, np.full(len(window), category, np.int64), parts)
+
+
+def _is_rectangle(geoms: np.ndarray) -> np.ndarray:
+    b = shapely.bounds(geoms)
+    box_area = (b[:, 2] - b[:, 0]) * (b[:, 3] - b[:, 1])
+    return np.isclose(shapely.area(geoms), box_area, rtol=1e-12, atol=0)
+
+
+def _solve_windows(devices, boxes, region, exclude, taps, rs, grid, substrate) -> np.ndarray:
+    n = len(devices)
+    box_geoms = shapely.box(boxes[:, 0], boxes[:, 1], boxes[:, 2], boxes[:, 3])
+    parts = []
+    if not substrate:  # the substrate's region is its box: the window itself
+        parts.append(_clip(np.arange(n), np.array([region], dtype=object), np.zeros(n, np.int64), boxes, 0))
+    for category, shapes in ((1, exclude), (2, taps)):
+        if len(shapes) == 0:
+            continue
+        w, s = shapely.STRtree(shapes).query(box_geoms, predicate="intersects")
+        parts.append(_clip(w, shapes, s, boxes, category))
+    contents = _WindowPieces(*(np.concatenate([getattr(p, f) for p in parts]) if parts else empty
+                               for f, empty in (("window", np.zeros(0, np.int64)),
+                                                ("category", np.zeros(0, np.int64)),
+                                                ("geoms", np.empty(0, dtype=object)))))
+    origin = shapely.bounds(devices)[:, :2]
+    key = window_keys(devices, boxes, origin, contents)
+    _, first, inverse = np.unique(key, axis=0, return_index=True, return_inverse=True)
+    order = np.argsort(contents.window, kind="stable")
+    starts = np.searchsorted(contents.window[order], np.arange(n + 1))
+    ohm_unique = np.empty(len(first))
+    for u, w in enumerate(first):
+        mine = order[starts[w]:starts[w + 1]]
+        cat, geoms = contents.category[mine], contents.geoms[mine]
+        include = geoms[cat == 0] if not substrate else np.array([box_geoms[w]], dtype=object)
+        problem = SheetProblem(tuple(boxes[w].tolist()), include, geoms[cat == 1], geoms[cat == 2],
+                               np.array([devices[w]], dtype=object), rs, grid)
+        ohm_unique[u] = solve(problem).resistance[0]
+    return ohm_unique[inverse.ravel()]
+
+
+# --- window keys ---------------------------------------------------------------------
+
+_MULTIPLIERS = (np.uint64(0x9E3779B97F4A7C15), np.uint64(0xC2B2AE3D27D4EB4F))
+
+
+def _sequence_hash(values: np.ndarray, group: np.ndarray, n_groups: int, multiplier: np.uint64) -> np.ndarray:
+    """A 64-bit polynomial hash of each group's values, in order (groups contiguous)."""
+    out = np.zeros(n_groups, np.uint64)
+    if len(values) == 0:
+        return out
+    starts = np.flatnonzero(np.r_[True, group[1:] != group[:-1]])
+    position = np.arange(len(values)) - np.repeat(starts, np.diff(np.r_[starts, len(values)]))
+    powers = np.ones(int(position.max()) + 1, np.uint64)
+    with np.errstate(over="ignore"):
+        for k in range(1, len(powers)):
+            powers[k] = powers[k - 1] * multiplier
+        mixed = (values.astype(np.uint64) + np.uint64(0x632BE59BD9B4E019)) * powers[position]
+        out[group[starts]] = np.add.reduceat(mixed, starts)
+    return out
+
+
+def window_keys(devices, boxes, origin, contents: _WindowPieces) -> np.ndarray:
+    """(n, 5) uint64 rows, equal for windows whose contents are equal after translating
+    each to its device's lower-left corner: two 64-bit hashes of the clipped contents,
+    of the device, and of the window size."""
+    n = len(devices)
+    keys = np.zeros((n, 5), np.uint64)
+    size = np.round((boxes[:, 2:] - boxes[:, :2]) / QUANTUM).astype(np.int64)
+    keys[:, 4] = (size[:, 0].astype(np.uint64) << np.uint64(32)) ^ size[:, 1].astype(np.uint64)
+    for column, (geoms, owner, category) in enumerate((
+            (devices, np.arange(n), np.zeros(n, np.int64)),
+            (contents.geoms, contents.window, contents.category))):
+        if len(geoms) == 0:
+            continue
+        xy, part = shapely.get_coordinates(geoms, return_index=True)
+        q = np.round((xy - origin[owner[part]]) / QUANTUM).astype(np.int64)
+        seq = np.c_[q, np.full(len(q), -1, np.int64)].ravel()  # -1 separates vertices from nothing
+        seq_part = np.repeat(part, 3)
+        for h, mult in enumerate(_MULTIPLIERS):
+            part_hash = _sequence_hash(seq, seq_part, len(geoms), mult)
+            # Order-free within a window: sort the parts by (category, hash) first.
+            order = np.lexsort((part_hash, category, owner))
+            seq2 = np.c_[category[order].astype(np.uint64), part_hash[order]].ravel().view(np.int64)
+            window_hash = _sequence_hash(seq2, np.repeat(owner[order], 2), n, mult)
+            keys[:, 2 * column + h] = window_hash
+    return keys
