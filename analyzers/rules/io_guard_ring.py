@@ -45,6 +45,7 @@ class _Kind:
         own_c, other_c = (ex.ptap_contacted, ex.ntap_contacted) if kind == "n" else (
             ex.ntap_contacted, ex.ptap_contacted)
         self.own_taps, self.other_taps = own, other
+        self.own_tree = shapely.STRtree(own.geoms)
         self.own = ctx.memo(("tap-regions", "p" if kind == "n" else "n"), lambda: rings.tap_regions(own, own_c))
         self.other = ctx.memo(("tap-regions", kind), lambda: rings.tap_regions(other, other_c))
         names = RING[kind], RING["p" if kind == "n" else "n"]
@@ -138,9 +139,10 @@ def _missing_ring(ctx, k, n, i, geom, other_hole, min_width, max_gap, words, fin
         return finding("wrong", MESSAGE_WRONG.format(**words), where,
                        _ring_piece(k.other, k.other_taps, region, where), f"{words['other']} ring")
     reach = (max_gap if max_gap is not None else DEFAULT_REACH) + 2 * (min_width or 1.0)
-    own_body = k.pieces.body[i]
-    near = np.flatnonzero((k.own_taps.body == own_body)
-                          & shapely.dwithin(k.own_taps.geoms, geom, reach)) if len(k.own_taps) else np.zeros(0, int)
+    near = np.zeros(0, np.int64)
+    if len(k.own_taps):
+        near = np.sort(k.own_tree.query(geom, predicate="dwithin", distance=reach))
+        near = near[k.own_taps.body[near] == k.pieces.body[i]]
     gap = None
     if len(near):
         gap = rings.find_gap(shapely.union_all(k.own_taps.geoms[near]), geom,
