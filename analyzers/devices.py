@@ -10,6 +10,7 @@ import shapely
 from .extract import SUBSTRATE, Pieces, is_pwell_body, pwell_index, spacing_to_opposite_well
 from .findings import Device
 from .nets import device_net_names
+from .shunt import shunt_estimates
 from .tapdistance import FarthestPoints, TapIndex, farthest_from_taps
 
 KINDS = ("p", "n")  # P+ in an n-well, N+ in the p-body
@@ -55,6 +56,8 @@ def device_table(ctx) -> list[Device]:
         r = ctx.memo(("tap-distance", True), lambda: {k: tap_distances(ctx, k, True) for k in KINDS})[kind]
         bounds = shapely.bounds(r.pieces.geoms)
         net_names = device_net_names(ctx, kind)
+        shunt = shunt_estimates(ctx)[kind]
+        ohm, trigger = _finite(shunt.ohm), _finite(shunt.trigger)
         for i in range(len(r.pieces)):
             loc = ctx.provenance.locate_shape(int(r.pieces.shape[i]))
             value = r.result.value[i]
@@ -63,6 +66,11 @@ def device_table(ctx) -> list[Device]:
                 bbox=tuple(round(float(v), 6) for v in bounds[i]), file=loc["file"], line=loc["line"],
                 body=body_name(kind, int(r.pieces.body[i])),
                 tap_distance_um=None if not np.isfinite(value) else round(float(value), 6),
-                net=net_names[i],
+                net=net_names[i], shunt_ohm=ohm[i], trigger_current_a=trigger[i],
             ))
     return rows
+
+
+def _finite(values: np.ndarray) -> list[float | None]:
+    """Figures for the table: None where unknown (no sheet value) or unbounded (no tap)."""
+    return [float(f"{v:.6g}") if np.isfinite(v) else None for v in values]

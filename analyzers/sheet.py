@@ -34,9 +34,11 @@ import shapely
 from scipy import ndimage
 from scipy.sparse.linalg import splu
 
-GROWTH = 1.4  # largest ratio between neighbouring cell sizes
-CELLS_ACROSS = 2  # adaptive grid: fine cells across the narrowest device or tap
+GROWTH = 2.0  # largest ratio between neighbouring cell sizes
+CELLS_ACROSS = 3  # adaptive grid: fine cells across the narrowest device or tap
 OBLIQUE_CELLS = 32  # adaptive grid: cells across a shape with oblique or curved edges
+ZONE_BAND = 4  # cells of one size around such a shape before they grow
+ZONE_PASSES = 4
 COARSE_FRACTION = 1 / 12  # adaptive grid: largest cell over the region's larger side
 LAYER_FRACTION = 0.05  # outline layer of a device, as a fraction of the fine cell
 CG_TOL = 1e-3  # relative change of a device's bound that ends its iterations
@@ -109,16 +111,19 @@ def graded_lines(lo: float, hi: float, fixed: np.ndarray, fine: float, coarse: f
                             fixed[1:][owner] - offset])
     if zones is None or len(zones) == 0:
         return lines
-    mid = (lines[:-1] + lines[1:]) / 2
-    cap = np.full(len(mid), np.inf)
-    for start, end, size in zones:
-        inside = (mid >= start) & (mid <= end)
-        cap[inside] = np.minimum(cap[inside], size)
-    pieces = np.maximum(1, np.ceil(np.diff(lines) / cap - 1e-9)).astype(np.int64)
-    owner = np.repeat(np.arange(len(mid)), pieces)
-    step = np.arange(len(owner)) - np.repeat(np.cumsum(pieces) - pieces, pieces)
-    split_lines = lines[:-1][owner] + np.diff(lines)[owner] * step / pieces[owner]
-    return np.r_[split_lines, hi]
+    for _ in range(ZONE_PASSES):  # a split interval's halves are capped again by their own middles
+        mid = (lines[:-1] + lines[1:]) / 2
+        cap = np.full(len(mid), np.inf)
+        for start, end, size in zones:
+            inside = (mid >= start) & (mid <= end)
+            cap[inside] = np.minimum(cap[inside], size)
+        pieces = np.maximum(1, np.ceil(np.diff(lines) / cap - 1e-9)).astype(np.int64)
+        if (pieces == 1).all():
+            break
+        owner = np.repeat(np.arange(len(mid)), pieces)
+        step = np.arange(len(owner)) - np.repeat(np.cumsum(pieces) - pieces, pieces)
+        lines = np.r_[lines[:-1][owner] + np.diff(lines)[owner] * step / pieces[owner], hi]
+    return lines
 
 
 def edge_lines(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -159,22 +164,32 @@ def make_mesh(problem: SheetProblem) -> tuple[Mesh, float]:
     dx, dy = edge_lines(problem.devices)
     xs = np.r_[sx, dx, dx - layer, dx + layer]
     ys = np.r_[sy, dy, dy - layer, dy + layer]
-    zones_x, zones_y = _oblique_zones(problem, fine if problem.grid is not None else None)
+    zones_x, zones_y = _oblique_zones(problem, fine if problem.grid is not None else None, coarse)
     mesh = Mesh(graded_lines(x0, x1, xs, fine, coarse, zones_x),
                 graded_lines(y0, y1, ys, fine, coarse, zones_y))
     return mesh, layer
 
 
-def _oblique_zones(problem: SheetProblem, grid: float | None):
+def _oblique_zones(problem: SheetProblem, grid: float | None, coarse: float):
     """Over the bounding box of each shape with oblique edges, cells of at most its
-    narrower side / OBLIQUE_CELLS (or the set grid): a staircase needs them."""
+    narrower side / OBLIQUE_CELLS (or the set grid): a staircase needs them. Around it,
+    nested bands let the cells grow by GROWTH every ZONE_BAND cells up to ``coarse``."""
     shapes = np.r_[problem.include, problem.exclude, problem.taps, problem.devices]
     slanted = shapes[oblique(shapes)]
     if len(slanted) == 0:
         return None, None
     b = shapely.bounds(slanted)
     size = np.full(len(b), grid) if grid is not None else dimensions(slanted) / OBLIQUE_CELLS
-    return np.c_[b[:, 0], b[:, 2], size], np.c_[b[:, 1], b[:, 3], size]
+    zones_x, zones_y = [], []
+    level, reach = size.copy(), np.zeros(len(b))
+    while True:
+        zones_x.append(np.c_[b[:, 0] - reach, b[:, 2] + reach, level])
+        zones_y.append(np.c_[b[:, 1] - reach, b[:, 3] + reach, level])
+        if (level >= coarse).all():
+            break
+        reach = reach + ZONE_BAND * level
+        level = level * GROWTH
+    return np.concatenate(zones_x), np.concatenate(zones_y)
 
 
 def oblique(geoms: np.ndarray) -> np.ndarray:

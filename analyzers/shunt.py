@@ -32,7 +32,7 @@ from .sheet import SheetProblem, make_mesh, solve
 SUBSTRATE_MARGIN = 5.0  # layout units (um) of substrate sheet beyond the layout's extent
 WHOLE_BODY_CELLS = 6000  # grid cells up to which a body is solved whole
 WHOLE_BODY_DEVICES = 48  # more devices than this: windows (the grid grows with every device)
-WINDOW_TAPS = 3  # a window reaches WINDOW_REACH times the distance to the device's WINDOW_TAPS-th nearest tap
+WINDOW_TAPS = 2  # a window reaches WINDOW_REACH times the distance to the device's WINDOW_TAPS-th nearest tap
 WINDOW_REACH = 1.5
 WINDOW_RETRIES = 2  # a device cut off from its taps inside its window gets a 4x wider one
 QUANTUM = 1e-6  # layout units: window contents are compared on this grid
@@ -290,3 +290,21 @@ def window_keys(devices, boxes, origin, contents: _WindowPieces) -> np.ndarray:
             window_hash = _sequence_hash(seq2, np.repeat(owner[order], 2), n, mult)
             keys[:, 2 * column + h] = window_hash
     return keys
+
+
+# --- figures -------------------------------------------------------------------------
+
+_PREFIXES = {-15: "f", -12: "p", -9: "n", -6: "u", -3: "m", 0: "", 3: "k", 6: "M", 9: "G", 12: "T"}
+
+
+def si(value: float, unit: str) -> str:
+    """Three significant figures with an SI prefix: si(23500, "ohm") == "23.5 kohm"."""
+    value = float(value)
+    if not np.isfinite(value):
+        return f"{value} {unit}"
+    if value == 0:
+        return f"0 {unit}"
+    rounded = float(f"{value:.3g}")
+    exponent = int(np.clip(np.floor(np.log10(abs(rounded)) / 3) * 3, -15, 12))
+    mantissa = f"{rounded / 10 ** exponent:#.3g}".rstrip(".")
+    return f"{mantissa} {_PREFIXES[exponent]}{unit}"

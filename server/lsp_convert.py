@@ -24,6 +24,7 @@ from lsprotocol import types
 from pygls.uris import from_fs_path
 
 from latchwatch.analyzers.findings import Device, Finding, Severity
+from latchwatch.analyzers.shunt import si
 
 SOURCE = "latchwatch"
 MAX_RELATED = 30  # per diagnostic; a loop over hundreds of shapes must not flood the editor
@@ -426,11 +427,13 @@ def hover_markdown(file: str, line: int, devices: Iterable[Device], findings: It
         shunts = [d.shunt_ohm for d in of_kind if d.shunt_ohm is not None]
         currents = [d.trigger_current_a for d in of_kind if d.trigger_current_a is not None]
         if shunts:
-            text.append(f"- shunt resistance: up to {max(shunts):.3g} ohm")
+            text.append(f"- shunt resistance to the taps (estimate from a sheet model): up to "
+                        f"{si(max(shunts), 'ohm')}" + (f", down to {si(min(shunts), 'ohm')}" if len(shunts) > 1 else ""))
         if currents:
-            text.append(f"- current to forward-bias the junction: down to {min(currents):.3g} A")
-        if not shunts and not currents:
-            text.append("- shunt resistance: not estimated yet")
+            text.append(f"- current through it that forward-biases the junction: down to {si(min(currents), 'A')}")
+        if len(shunts) < len(of_kind):
+            text.append(f"- {len(of_kind) - len(shunts)} without a shunt estimate (no contacted tap reachable, "
+                        "or no sheet resistance for the body in the technology)")
         parts.append("\n".join(text))
     if here:
         rules = sorted({f.rule for f in here})

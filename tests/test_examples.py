@@ -198,11 +198,31 @@ def run_devices(script: Path, cwd: Path) -> dict:
     return json.loads(proc.stdout)
 
 
+def shunt_warnings(report: dict) -> list[dict]:
+    """The shunt-resistance findings; the rest are returned to the caller's report."""
+    found = [f for f in report["findings"] if f["rule"] == "shunt-resistance"]
+    report["findings"] = [f for f in report["findings"] if f["rule"] != "shunt-resistance"]
+    return found
+
+
+def assert_pad_devices_cannot_sink_the_injection(name: str, warnings: list[dict]) -> None:
+    # Rings 2 um wide at 3 um keep the estimated shunt far above vbe_on / injection_current
+    # (0.7 V / 0.1 A = 7 ohm in the demo technology): each output transistor is warned once.
+    line = line_of(name, "box(cell, ACTIVE, x0, y0, x0 + DEVICE_W, y0 + DEVICE_H)  # output transistor")
+    assert sorted(f["message"].split(" ")[0] for f in warnings) == ["N+", "P+"]
+    for f in warnings:
+        assert (f["severity"], f["line"], f["unit"]) == ("warning", line, "ohm")
+        assert "a pad-connected device must withstand" in f["message"] and "100 mA" in f["message"]
+        assert f["limit"] == pytest.approx(7.0) and f["value"] > f["limit"]
+
+
 def test_pad_driver_with_closed_rings_is_clean():
     name = "pad_driver.py"
     status, report = check_example(name)
+    report = json.loads(json.dumps(report))
+    assert_pad_devices_cannot_sink_the_injection(name, shunt_warnings(report))
     assert report["findings"] == []
-    assert status == 0
+    assert status == 1  # the shunt-resistance warnings
     # The drains reach the PAD_SDO label through metal1, via1 and metal2; the sources the
     # rail labels through the ring metal: the devices table names both nets of each.
     devices = run_devices(Path("examples") / name, ROOT)["devices"]
@@ -215,6 +235,8 @@ def test_pad_driver_open_ring_names_the_gap():
     name = "pad_driver_open_ring.py"
     status, report = check_example(name)
     assert status == 1
+    report = json.loads(json.dumps(report))
+    assert_pad_devices_cannot_sink_the_injection(name, shunt_warnings(report))
     [finding] = report["findings"]
     file = f"examples/{name}"
     assert finding["rule"] == "io-guard-ring"

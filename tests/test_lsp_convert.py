@@ -139,7 +139,7 @@ def test_hover_describes_the_devices_of_the_line():
     assert "**3 P+ diffusions** drawn on this line" in text
     assert "nearest n-well tap: worst 21.00 um, best 12.50 um (limit 20.00 um)" in text
     assert "1 with no contacted n-well tap" in text
-    assert "shunt resistance: not estimated yet" in text
+    assert "3 without a shunt estimate" in text  # the Device rows above carry no shunt figures
     assert "1 finding here: tap-distance" in text
     assert "N+" not in text
     assert convert.hover_markdown(MAIN, 4, devices, [], lambda kind: 20.0) is None
