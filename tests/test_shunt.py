@@ -1,0 +1,237 @@
+"""The shunt estimate on layouts (analyzers/shunt.py), the shunt-resistance rule, the
+electrical technology keys it reads, and its figures in the devices table and hover."""
+
+import copy
+import dataclasses
+import re
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from builders import ACTIVE, CONTACT, NPLUS, NWELL, PPLUS, CellBuilder, layout, outcome
+from latchwatch.analyzers import shunt
+from latchwatch.analyzers.context import CheckContext, CheckOptions
+from latchwatch.analyzers.devices import device_table
+from latchwatch.analyzers.flatten import flatten
+from latchwatch.analyzers.mobility import sheet_resistance
+from latchwatch.analyzers.rules.shunt_resistance import RULE
+from latchwatch.analyzers.shunt import shunt_estimates, si
+from latchwatch.analyzers.technology import TechnologyError, technology_from_mapping
+from latchwatch.server import lsp_convert
+from latchwatch.server.techfiles import load_technology
+
+sys.path.insert(0, str(Path(__file__).parent / "bench"))
+import gen_row  # noqa: E402  (the benchmark's row generator draws the row layouts here too)
+
+IO_MARKER = (12, 0)  # demo technology
+
+
+@pytest.fixture(scope="module")
+def demo():
+    return load_technology("demo")
+
+
+def tech_with(demo, **electrical):
+    data = copy.deepcopy(demo.to_mapping())
+    for key, value in electrical.items():
+        if value is None:
+            data["electrical"].pop(key, None)
+        else:
+            data["electrical"][key] = value
+    return technology_from_mapping(data, "test.toml")
+
+
+def context(cell, tech):
+    captured = layout(cell)
+    return CheckContext(outcome(captured), tech, CheckOptions(), flatten(captured, 0))
+
+
+def n_tap(cell, x0, y0, x1, y1):
+    cx, cy = (x0 + x1) / 2, (y0 + y1) / 2
+    return cell.rect(ACTIVE, x0, y0, x1, y1).rect(NPLUS, x0, y0, x1, y1).rect(CONTACT, cx - 0.2, cy - 0.2, cx + 0.2, cy + 0.2)
+
+
+def p_tap(cell, x0, y0, x1, y1):
+    cx, cy = (x0 + x1) / 2, (y0 + y1) / 2
+    return cell.rect(ACTIVE, x0, y0, x1, y1).rect(PPLUS, x0, y0, x1, y1).rect(CONTACT, cx - 0.2, cy - 0.2, cx + 0.2, cy + 0.2)
+
+
+def well_strip(device_x0, device_x1, device_y=(0.0, 5.0), marker=False):
+    """A 60 x 5 n-well with a full-width n-tap at x = 0..1.5 and a P+ device."""
+    c = CellBuilder("TOP").rect(NWELL, 0, 0, 60, 5)
+    n_tap(c, 0, 0, 1.5, 5)
+    c.rect(ACTIVE, device_x0, device_y[0], device_x1, device_y[1]).rect(PPLUS, device_x0, device_y[0], device_x1, device_y[1])
+    if marker:
+        c.rect(IO_MARKER, device_x0 - 1, -1, device_x1 + 1, 6)
+    return c
+
+
+def test_strip_well_through_the_pipeline(demo):
+    ctx = context(well_strip(55, 58), demo)
+    [finding] = list(RULE.check(ctx))
+    # R = Rs L / W (REFERENCE-VALUES.md, Physics) between the tap edge at 1.5 and the device
+    # edge at 55, both spanning the 5 um well: 1000 * 53.5 / 5 = 10.7 kohm, within 2%.
+    assert finding.value == pytest.approx(10700, rel=0.02)
+    assert finding.limit == pytest.approx(0.7 / 1e-4) and finding.unit == "ohm"
+    assert finding.rule == "shunt-resistance" and finding.severity.label == "warning"
+    # Three significant figures with SI prefixes (DESIGN 9), labelled an estimate (DESIGN 12).
+    assert re.search(r"resistance to its taps 10\.[67] kohm \(sheet model\)", finding.message)
+    assert re.search(r"so 6[56]\.\d uA through it forward-biases the junction", finding.message)
+    assert "below the 100 uA a core device must withstand" in finding.message
+    assert finding.figures["basis"] == "estimate from a sheet model"
+    assert finding.figures["trigger_current_a"] == pytest.approx(0.7 / finding.value)
+    assert finding.related[0].message == "nearest n-well tap"
+
+
+def test_near_tap_passes_and_the_table_has_the_figures(demo):
+    ctx = context(well_strip(10, 13), demo)
+    assert list(RULE.check(ctx)) == []
+    [row] = device_table(ctx)
+    # Strip again: (10 - 1.5) / 5 squares.
+    assert row.shunt_ohm == pytest.approx(1000 * 8.5 / 5, rel=0.02)
+    assert row.trigger_current_a == pytest.approx(0.7 / row.shunt_ohm, rel=1e-5)
+
+
+def test_pad_connected_device_must_withstand_the_injection_current(demo):
+    ctx = context(well_strip(10, 13, marker=True), demo)
+    [finding] = list(RULE.check(ctx))
+    assert "a pad-connected device must withstand" in finding.message and "100 mA" in finding.message
+    assert finding.limit == pytest.approx(0.7 / 0.1)
+    assert finding.figures["pad_connected"] is True
+
+
+def test_core_current_key_moves_the_limit(demo):
+    assert list(RULE.check(context(well_strip(10, 13), tech_with(demo, core_current=1e-3)))) != []
+    assert list(RULE.check(context(well_strip(55, 58), tech_with(demo, core_current=1e-5)))) == []
+
+
+def test_documented_default_core_current_passes_a_device_20um_down_a_5um_well(demo):
+    # The rule documentation's reason for the 100 uA default: a 2 um device 20 um from its
+    # tap in a 5 um wide 1 kohm/sq well has R of about 4 kohm, and passes.
+    c = CellBuilder("TOP").rect(NWELL, 0, 0, 40, 5)
+    n_tap(c, 0, 0, 1.5, 5)
+    c.rect(ACTIVE, 21.5, 1.5, 23.5, 3.5).rect(PPLUS, 21.5, 1.5, 23.5, 3.5)
+    ctx = context(c, demo)
+    assert list(RULE.check(ctx)) == []
+    assert 3500 < shunt_estimates(ctx)["p"].ohm[0] < 5000
+
+
+def test_no_sheet_value_no_estimate(demo):
+    ctx = context(well_strip(55, 58), tech_with(demo, nwell_sheet=None, psub_sheet=None))
+    assert list(RULE.check(ctx)) == []
+    [row] = device_table(ctx)
+    assert row.shunt_ohm is None and row.trigger_current_a is None
+
+
+def test_sheet_from_doping_and_depth(demo):
+    doped = tech_with(demo, nwell_sheet=None, nwell_doping=1e17, nwell_depth=2.0)
+    given = tech_with(demo, nwell_sheet=sheet_resistance(1e17, 2.0, "n"))
+    r_doped = shunt_estimates(context(well_strip(20, 23), doped))["p"].ohm[0]
+    r_given = shunt_estimates(context(well_strip(20, 23), given))["p"].ohm[0]
+    assert r_doped == pytest.approx(r_given, rel=1e-9)
+
+
+def test_floating_well_gets_no_shunt_finding(demo):
+    c = CellBuilder("TOP").rect(NWELL, 0, 0, 20, 5)
+    c.rect(ACTIVE, 5, 1, 8, 4).rect(PPLUS, 5, 1, 8, 4)
+    ctx = context(c, demo)
+    assert list(RULE.check(ctx)) == []
+    assert device_table(ctx)[0].shunt_ohm is None
+
+
+def test_substrate_island_inside_a_well_ring_has_no_path(demo):
+    # The substrate sheet has the wells cut out: an island fenced by an n-well ring with no
+    # p-tap of its own reaches no tap (the rule documentation states this assumption).
+    c = CellBuilder("TOP")
+    for box in ((0, 0, 20, 4), (0, 16, 20, 20), (0, 4, 4, 16), (16, 4, 20, 16)):
+        c.rect(NWELL, *box)
+    n_tap(c, 1, 1, 3, 3)
+    c.rect(ACTIVE, 9, 9, 11, 11).rect(NPLUS, 9, 9, 11, 11)
+    p_tap(c, 25, 9, 27, 11)
+    ctx = context(c, demo)
+    [finding] = list(RULE.check(ctx))
+    assert "no path through the substrate sheet" in finding.message and finding.value is None
+    assert device_table(ctx)[0].shunt_ohm is None
+
+
+class _Adder:
+    """gen_row draws through ``cell.add(gdstk polygon)``; this collects into a CellBuilder."""
+
+    def __init__(self, cell):
+        self.cell = cell
+
+    def add(self, polygon):
+        self.cell.polygon((polygon.layer, polygon.datatype), polygon.points)
+
+
+def row_context(tech, rows=3, groups=4):
+    c = CellBuilder("ROWS")
+    for row in range(rows):
+        gen_row.draw_row(_Adder(c), row, groups)
+    return context(c, tech)
+
+
+def test_windows_agree_with_whole_bodies_and_repeat_cells_are_solved_once(demo, monkeypatch):
+    whole = shunt_estimates(row_context(demo))
+    solves = []
+    real_solve = shunt.solve
+    monkeypatch.setattr(shunt, "solve", lambda problem: solves.append(1) or real_solve(problem))
+    monkeypatch.setattr(shunt, "WHOLE_BODY_DEVICES", 0)
+    windowed = shunt_estimates(row_context(demo))
+    for kind in ("p", "n"):
+        ratio = windowed[kind].ohm / whole[kind].ohm
+        # Cutting the sheet at the window can only raise R; the two grids differ by a few %.
+        assert ratio.min() > 0.96 and ratio.max() < 1.06, (kind, ratio.min(), ratio.max())
+    assert len(solves) < len(whole["p"].ohm) + len(whole["n"].ohm)
+
+
+def test_window_keys_see_translation_and_nothing_else():
+    import shapely
+    device = np.array([shapely.box(0, 0, 2, 2), shapely.box(100, 50, 102, 52), shapely.box(200, 0, 202, 2.5)],
+                      dtype=object)
+    boxes = np.array([[-5, -5, 7, 7], [95, 45, 107, 57], [195, -5, 207, 7]], float)
+    taps = np.array([shapely.box(4, 0, 5, 1), shapely.box(104, 50, 105, 51), shapely.box(204, 0, 205, 1)], dtype=object)
+    contents = shunt._WindowPieces(np.arange(3), np.full(3, 2), taps)
+    keys = shunt.window_keys(device, boxes, shapely.bounds(device)[:, :2], contents)
+    assert (keys[0] == keys[1]).all() and not (keys[0] == keys[2]).all()
+
+
+@pytest.mark.parametrize("key, value, named, expected", [
+    ("nwell_doping", 1e17, "electrical.nwell_depth", "depth in um"),
+    ("nwell_depth", 2.0, "electrical.nwell_doping", "beside electrical.nwell_depth"),
+    ("psub_depth", 10.0, "electrical.psub_doping", "psub_resistivity"),
+    ("pwell_doping", 1e25, "electrical.pwell_doping", "Masetti"),
+    ("core_current", -1.0, "electrical.core_current", "positive number"),
+])
+def test_electrical_key_errors_name_the_key(demo, key, value, named, expected):
+    with pytest.raises(TechnologyError) as info:
+        tech_with(demo, **{key: value})
+    assert info.value.file == "test.toml" and info.value.key == named and expected in str(info.value)
+
+
+def test_unknown_electrical_key_suggests_the_known_one(demo):
+    with pytest.raises(TechnologyError, match="did you mean 'core_current'"):
+        tech_with(demo, core_curent=1e-3)
+
+
+def test_sheet_lookup_order(demo):
+    e = tech_with(demo, psub_sheet=None, psub_resistivity=10.0, psub_depth=20.0).electrical
+    assert e.sheet("psub") == pytest.approx(10.0 / 20e-4)  # rho / t, ohm cm over cm
+    e = tech_with(demo, nwell_doping=1e17, nwell_depth=2.0).electrical
+    assert e.sheet("nwell") == 1000.0  # a given sheet value wins over doping
+    assert tech_with(demo, sheet_grid=0.25).electrical.sheet_grid == 0.25
+
+
+def test_si_figures():
+    assert [si(23500, "ohm"), si(2.98e-5, "A"), si(0.1, "A"), si(999.96, "ohm"), si(1.2, "V"), si(0, "A")] == [
+        "23.5 kohm", "29.8 uA", "100 mA", "1.00 kohm", "1.20 V", "0 A"]
+
+
+def test_hover_shows_the_estimates(demo):
+    ctx = context(well_strip(55, 58), demo)
+    rows = [dataclasses.replace(d, file="/proj/cell.py", line=7) for d in device_table(ctx)]
+    text = lsp_convert.hover_markdown("/proj/cell.py", 7, rows, [], lambda kind: 20.0)
+    assert "shunt resistance to the taps (estimate from a sheet model): up to 10." in text
+    assert re.search(r"forward-biases the junction: down to 6[56]\.\d uA", text)
