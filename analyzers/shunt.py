@@ -45,7 +45,6 @@ class KindShunt:
     ohm: np.ndarray  # estimated resistance to the body's taps; inf: no tap reachable; nan: no sheet value
     required: np.ndarray  # A the device must withstand
     pad: np.ndarray  # bool: pad-connected
-    tap: np.ndarray  # index into ``taps`` of the nearest contacted tap of its body, -1 if none
     taps: Pieces  # the contacted taps of the body type
     sheet: np.ndarray  # ohm/sq used per device (nan when unknown)
     vbe_on: float
@@ -70,29 +69,26 @@ def _estimate_kind(ctx, kind: str) -> KindShunt:
     pad = pad_connected(ctx)[kind] if n else np.zeros(0, bool)
     required = np.where(pad, elec.injection_current, elec.core_current)
     bodies, body_of = np.unique(pieces.body, return_inverse=True)
-    sheet_of_body = {int(b): _sheet_of(elec, kind, int(b)) for b in bodies}
-    sheet = np.array([sheet_of_body[int(b)] for b in bodies], float)[body_of.ravel()]
-    _, tap = nearest_taps(pieces, taps)
+    sheet = np.array([_sheet_of(elec, kind, int(b)) for b in bodies], float)[body_of.ravel()]
     ohm = np.full(n, np.inf)
     ohm[np.isnan(sheet)] = np.nan
+    tapped = np.isin(pieces.body, taps.body) & ~np.isnan(sheet)
+    regions = _regions(ex, kind)
     windowed = []
-    for body in bodies:
+    for body in np.unique(pieces.body[tapped]):
         members = np.flatnonzero(pieces.body == body)
-        rs = sheet_of_body[int(body)]
-        body_taps = np.flatnonzero(taps.body == body)
-        if np.isnan(rs) or len(body_taps) == 0:
-            continue
-        region, exclude, box = _body_region(ex, kind, int(body))
-        whole = SheetProblem(box, np.array([region], dtype=object), exclude, taps.geoms[body_taps],
-                             pieces.geoms[members], rs, elec.sheet_grid)
-        if len(members) <= WHOLE_BODY_DEVICES and make_mesh(whole)[0].cells <= WHOLE_BODY_CELLS:
-            ohm[members] = solve(whole).resistance
-        else:
-            windowed.append((int(body), members, region, exclude, box, body_taps))
-    for body, members, region, exclude, box, body_taps in windowed:
-        ohm[members] = _windowed(pieces, members, region, exclude, box, taps, body_taps,
-                                 sheet_of_body[body], elec.sheet_grid, kind == "n" and body == SUBSTRATE)
-    return KindShunt(ohm, required, pad, tap, taps, sheet, elec.vbe_on)
+        region, exclude, box = regions(int(body))
+        if len(members) <= WHOLE_BODY_DEVICES:
+            whole = SheetProblem(box, np.array([region], dtype=object), exclude, taps.geoms[taps.body == body],
+                                 pieces.geoms[members], float(sheet[members[0]]), elec.sheet_grid)
+            if make_mesh(whole)[0].cells <= WHOLE_BODY_CELLS:
+                ohm[members] = solve(whole).resistance
+                continue
+        windowed.append(members)
+    if windowed:
+        members = np.concatenate(windowed)
+        ohm[members] = _windowed(pieces, members, sheet[members], taps, regions, elec.sheet_grid)
+    return KindShunt(ohm, required, pad, taps, sheet, elec.vbe_on)
 
 
 def _sheet_of(elec, kind: str, body: int) -> float:
@@ -107,25 +103,40 @@ def substrate_box(ex) -> tuple[float, float, float, float]:
     return (float(x0 - m), float(y0 - m), float(x1 + m), float(y1 + m))
 
 
-def _body_region(ex, kind: str, body: int):
-    """(region polygon, polygons cut out of it, bounding box) of one body. Merged wells
-    keep the vertices where their drawn shapes met; simplify(0) drops those."""
+def _regions(ex, kind: str):
+    """body -> (region polygon, polygons cut out of it, bounding box). Merged wells keep
+    the vertices where their drawn shapes met; simplify(0) drops those."""
     empty = np.empty(0, dtype=object)
-    if kind == "p" or is_pwell_body(body):
-        region = shapely.simplify(ex.wells[body] if kind == "p" else ex.pwells[pwell_index(body)], 0.0)
-        return region, empty, tuple(shapely.bounds(region).tolist())
+    if kind == "p":
+        wells = shapely.simplify(ex.wells, 0.0)
+        return lambda body: (wells[body], empty, tuple(shapely.bounds(wells[body]).tolist()))
+    pwells = shapely.simplify(ex.pwells, 0.0)
     box = substrate_box(ex)
     cut = shapely.simplify(np.concatenate([ex.wells, ex.deep_nwells, ex.pwells]).astype(object), 0.0)
-    return shapely.box(*box), cut, box
+
+    def region(body):
+        if is_pwell_body(body):
+            k = pwell_index(body)
+            return pwells[k], empty, tuple(shapely.bounds(pwells[k]).tolist())
+        return shapely.box(*box), cut, box
+
+    return region
 
 
-def tap_reach(devices: np.ndarray, taps: np.ndarray) -> np.ndarray:
-    """Centre distance from each device to its WINDOW_TAPS-th nearest tap (or the
-    farthest, when there are fewer)."""
-    centre = lambda geoms: shapely.get_coordinates(shapely.centroid(geoms))
+def tap_reach(pieces: Pieces, taps: Pieces) -> np.ndarray:
+    """Centre distance from each piece to the WINDOW_TAPS-th nearest tap of its own body
+    (or its farthest, when the body has fewer)."""
+    def points(p):  # the body as a third coordinate far apart: neighbours stay in the body
+        xy = shapely.get_coordinates(shapely.centroid(p.geoms))
+        return np.c_[xy, p.body * _BODY_SPACING]
+
     k = min(WINDOW_TAPS, len(taps))
-    dist, _ = cKDTree(centre(taps)).query(centre(devices), k=[k])
-    return dist[:, 0]
+    dist, _ = cKDTree(points(taps)).query(points(pieces), k=list(range(1, k + 1)))
+    dist[dist >= _BODY_SPACING / 2] = -np.inf
+    return dist.max(axis=1)
+
+
+_BODY_SPACING = 1e12
 
 
 def nearest_taps(pieces: Pieces, taps: Pieces) -> tuple[np.ndarray, np.ndarray]:
@@ -153,21 +164,24 @@ def nearest_taps(pieces: Pieces, taps: Pieces) -> tuple[np.ndarray, np.ndarray]:
 
 # --- windows -------------------------------------------------------------------------
 
-def _windowed(pieces, members, region, exclude, body_box, taps, body_taps, rs, grid, substrate) -> np.ndarray:
+def _windowed(pieces, members, sheet, taps, regions, grid) -> np.ndarray:
+    """Estimates of ``pieces[members]``, each in its own window; windows of every body of
+    the kind are compared together, so a repeated well is solved once."""
     devices = pieces.geoms[members]
+    body = pieces.body[members]
     bounds = shapely.bounds(devices)
-    reach = WINDOW_REACH * tap_reach(devices, taps.geoms[body_taps])
+    reach = WINDOW_REACH * tap_reach(Pieces(devices, members, body), taps)
+    info = {int(b): regions(int(b)) for b in np.unique(body)}
+    body_box = np.array([info[int(b)][2] for b in body], float)
     ohm = np.full(len(members), np.inf)
     todo = np.arange(len(members))
     for attempt in range(WINDOW_RETRIES + 1):
         if len(todo) == 0:
             break
         r = reach[todo] * 4.0 ** attempt
-        b = bounds[todo]
-        boxes = np.c_[np.maximum(b[:, 0] - r, body_box[0]), np.maximum(b[:, 1] - r, body_box[1]),
-                      np.minimum(b[:, 2] + r, body_box[2]), np.minimum(b[:, 3] + r, body_box[3])]
-        ohm[todo] = _solve_windows(devices[todo], boxes, region, exclude, taps.geoms[body_taps], rs, grid,
-                                   substrate)
+        b, limit = bounds[todo], body_box[todo]
+        boxes = np.c_[np.maximum(b[:, :2] - r[:, None], limit[:, :2]), np.minimum(b[:, 2:] + r[:, None], limit[:, 2:])]
+        ohm[todo] = _solve_windows(devices[todo], body[todo], sheet[todo], boxes, info, taps, grid)
         todo = todo[np.isinf(ohm[todo])]
     return ohm
 
@@ -213,23 +227,24 @@ def _is_rectangle(geoms: np.ndarray) -> np.ndarray:
     return np.isclose(shapely.area(geoms), box_area, rtol=1e-12, atol=0)
 
 
-def _solve_windows(devices, boxes, region, exclude, taps, rs, grid, substrate) -> np.ndarray:
+def _solve_windows(devices, body, sheet, boxes, info, taps, grid) -> np.ndarray:
     n = len(devices)
     box_geoms = shapely.box(boxes[:, 0], boxes[:, 1], boxes[:, 2], boxes[:, 3])
-    parts = []
-    if not substrate:  # the substrate's region is its box: the window itself
-        parts.append(_clip(np.arange(n), np.array([region], dtype=object), np.zeros(n, np.int64), boxes, 0))
-    for category, shapes in ((1, exclude), (2, taps)):
-        if len(shapes) == 0:
-            continue
-        w, s = shapely.STRtree(shapes).query(box_geoms, predicate="intersects")
-        parts.append(_clip(w, shapes, s, boxes, category))
-    contents = _WindowPieces(*(np.concatenate([getattr(p, f) for p in parts]) if parts else empty
-                               for f, empty in (("window", np.zeros(0, np.int64)),
-                                                ("category", np.zeros(0, np.int64)),
-                                                ("geoms", np.empty(0, dtype=object)))))
-    origin = shapely.bounds(devices)[:, :2]
-    key = window_keys(devices, boxes, origin, contents)
+    # The substrate's region is its box (the window itself) less the wells; a well's is the well.
+    substrate = body == SUBSTRATE
+    own = np.flatnonzero(~substrate)
+    parts = [_clip(own, np.array([info[int(b)][0] for b in body[own]], dtype=object), np.arange(len(own)),
+                   boxes, 0)]
+    cut = info[SUBSTRATE][1] if substrate.any() else np.empty(0, dtype=object)
+    if len(cut):
+        w, c = shapely.STRtree(cut).query(box_geoms[substrate], predicate="intersects")
+        parts.append(_clip(np.flatnonzero(substrate)[w], cut, c, boxes, 1))
+    w, t = shapely.STRtree(taps.geoms).query(box_geoms, predicate="intersects")
+    same = taps.body[t] == body[w]
+    parts.append(_clip(w[same], taps.geoms, t[same], boxes, 2))
+    contents = _WindowPieces(*(np.concatenate([getattr(p, f) for p in parts]) for f in ("window", "category", "geoms")))
+    key = window_keys(devices, boxes, shapely.bounds(devices)[:, :2], contents)
+    key[:, 4] ^= sheet.view(np.uint64) ^ substrate.astype(np.uint64)
     _, first, inverse = np.unique(key, axis=0, return_index=True, return_inverse=True)
     order = np.argsort(contents.window, kind="stable")
     starts = np.searchsorted(contents.window[order], np.arange(n + 1))
@@ -237,9 +252,9 @@ def _solve_windows(devices, boxes, region, exclude, taps, rs, grid, substrate) -
     for u, w in enumerate(first):
         mine = order[starts[w]:starts[w + 1]]
         cat, geoms = contents.category[mine], contents.geoms[mine]
-        include = geoms[cat == 0] if not substrate else np.array([box_geoms[w]], dtype=object)
+        include = np.array([box_geoms[w]], dtype=object) if substrate[w] else geoms[cat == 0]
         problem = SheetProblem(tuple(boxes[w].tolist()), include, geoms[cat == 1], geoms[cat == 2],
-                               np.array([devices[w]], dtype=object), rs, grid)
+                               np.array([devices[w]], dtype=object), float(sheet[w]), grid)
         ohm_unique[u] = solve(problem).resistance[0]
     return ohm_unique[inverse.ravel()]
 

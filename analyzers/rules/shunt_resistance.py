@@ -9,7 +9,7 @@ import shapely
 
 from ..extract import SUBSTRATE
 from ..findings import Severity
-from ..shunt import shunt_estimates, si
+from ..shunt import nearest_taps, shunt_estimates, si
 from .base import Rule, RuleDoc
 from .tap_distance import describe
 
@@ -39,7 +39,9 @@ def check(ctx):
         order = failing[np.lexsort((-est.ohm[failing], pieces.shape[failing]))]
         first = np.r_[True, pieces.shape[order][1:] != pieces.shape[order][:-1]] if len(order) else []
         bounds = shapely.bounds(pieces.geoms)
-        for i in order[first]:
+        chosen = order[first]
+        _, nearest = nearest_taps(pieces.select(chosen), est.taps)
+        for i, tap in zip(chosen.tolist(), nearest.tolist()):
             body_kind = kind if kind == "p" or pieces.body[i] == SUBSTRATE else "pwell"
             body, tap_name = BODY[body_kind]
             role = "pad-connected" if est.pad[i] else "core"
@@ -47,8 +49,8 @@ def check(ctx):
             words = dict(what=describe(kind, bool(gated[i])), body=body, tap=tap_name, role=role,
                          required=si(est.required[i], "A"))
             related = ()
-            if est.tap[i] >= 0:
-                related = (ctx.related_shape(int(est.taps.shape[est.tap[i]]), f"nearest {tap_name}"),)
+            if tap >= 0:
+                related = (ctx.related_shape(int(est.taps.shape[tap]), f"nearest {tap_name}"),)
             finite = np.isfinite(ohm)
             message = (MESSAGE.format(ohm=si(ohm, "ohm"), trigger=si(est.vbe_on / ohm, "A"), **words)
                        if finite else MESSAGE_NO_PATH.format(**words))
