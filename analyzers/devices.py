@@ -56,7 +56,7 @@ def device_table(ctx) -> list[Device]:
         r = ctx.memo(("tap-distance", True), lambda: {k: tap_distances(ctx, k, True) for k in KINDS})[kind]
         bounds = shapely.bounds(r.pieces.geoms)
         net_names = device_net_names(ctx, kind)
-        shunt = shunt_estimates(ctx)[kind]
+        shunt = shunt_estimates(ctx, exact=True)[kind]
         ohm, trigger = _finite(shunt.ohm), _finite(shunt.trigger)
         for i in range(len(r.pieces)):
             loc = ctx.provenance.locate_shape(int(r.pieces.shape[i]))
