@@ -835,6 +835,8 @@ def run(options):
     sys.argv = [script]
     failure = None
     returned = None
+    if options.control_fd is not None:  # a crash (C-stack overflow, say) still names the line
+        faulthandler.enable(file=options.control_fd, all_threads=False)
     if options.timeout is not None and options.timeout > 0:
         faulthandler.dump_traceback_later(options.timeout, exit=True,
                                           file=options.control_fd if options.control_fd is not None else sys.stderr)

@@ -153,7 +153,7 @@ class _ChildRun:
         if pidfd is not None:
             selector.register(pidfd, selectors.EVENT_READ)
         deadline = started + self.timeout + STARTUP_ALLOWANCE
-        finished_seen = False
+        finished_seen = terminated = False
         kill_at = None
         try:
             while not _exited(process.pid):
@@ -163,10 +163,13 @@ class _ChildRun:
                     deadline = now + COLLECT_ALLOWANCE
                 if self.stop_reason is None:
                     self.stop_reason = self._stop_reason(now, deadline)
-                    if self.stop_reason is not None:
-                        self.worker.close_job_pipe()
-                        kill_group(process.pid, signal.SIGTERM)
-                        kill_at = now + KILL_GRACE
+                if self.stop_reason is not None and not terminated:
+                    terminated = True
+                    if self.worker.job_w in _registered(selector):
+                        selector.unregister(self.worker.job_w)
+                    self.worker.close_job_pipe()
+                    kill_group(process.pid, signal.SIGTERM)
+                    kill_at = now + KILL_GRACE
                 elif kill_at is not None and now >= kill_at:
                     kill_group(process.pid, signal.SIGKILL)
                     kill_at = None
@@ -296,10 +299,13 @@ class _ChildRun:
             name = _signal_name(number)
             if number == getattr(signal, "SIGXCPU", None):
                 return ScriptFailure("limit", None, "the script exceeded its CPU-time limit")
-            hint = " (possibly the memory limit: a library failed to allocate)" if number in (
-                signal.SIGSEGV, signal.SIGABRT, getattr(signal, "SIGBUS", -1)) else ""
+            crash = _crash_dump(control)
+            frames = _dump_frames(crash) if crash else ()
+            hint = (" (a crash: recursion deeper than the C stack, or a library that failed to allocate "
+                    "within the memory limit)") if number in (signal.SIGSEGV, signal.SIGABRT,
+                                                             getattr(signal, "SIGBUS", -1)) else ""
             return ScriptFailure("error", None, f"the script's process was killed by {name}{hint} "
-                                                f"before it reported a result")
+                                                f"before it reported a result", frames)
         if "\nstarted\n" not in "\n" + control:
             if "\nbad job: " in "\n" + control:
                 return ScriptFailure("error", None, "the latchwatch probe refused its job: "
@@ -321,6 +327,12 @@ def _kind(status) -> str:
 def _timeout_dump(control: str) -> str | None:
     """The faulthandler dump the probe's watchdog wrote, if it fired."""
     at = control.find("Timeout (")
+    return control[at:] if at >= 0 else None
+
+
+def _crash_dump(control: str) -> str | None:
+    """The stack faulthandler wrote when the child crashed, if it did."""
+    at = control.find("Fatal Python error")
     return control[at:] if at >= 0 else None
 
 

@@ -28,6 +28,7 @@ PROTECTIONS = (
     ("core", "core dumps"),
     ("tcp", "TCP connections (second line of defence)"),
     ("signals", "signals to processes outside the run"),
+    ("other-processes", "reading other processes' environment and memory"),
     ("stdin", "standard input"),
     ("environment", "secrets in the environment"),
     ("process-group", "the run's process group"),

@@ -336,15 +336,19 @@ def drop_privileges(config, record, plan):
         return False
     if "identity" in set(config.get("skip", ())):
         record.no("privileges", "privileges not dropped (switched off for this run)")
+        record.no("other-processes", "privileges not dropped (switched off for this run)")
         return own_namespace
     if plan is None:  # inside root's user namespace geteuid() no longer says 0: the plan tells
         if os.geteuid() != 0:
             _drop_capabilities()
             record.ok("privileges", "runs as the unprivileged user %d, without capabilities" % os.geteuid())
+            record.no("other-processes", "the user's other processes (the editor's, say) are readable by the same "
+                                         "user unless Landlock stops it")
             return own_namespace
         plan = plan_identity(config, record, None)
     if plan.get("no_user"):
         _drop_capabilities()
+        record.ok("other-processes", "no capabilities: root's processes (the tool's own) cannot be read")
         record.no("privileges", "running as root and there is no user %r to drop to; capabilities dropped" % NOBODY)
         return False
     uid, gid, unreadable = plan["uid"], plan["gid"], plan["unreadable"]
@@ -353,6 +357,7 @@ def drop_privileges(config, record, plan):
         os.setresuid(uid, uid, uid)
         _drop_capabilities()
         record.ok("privileges", "runs as %s (uid %d, gid %d), without capabilities" % (NOBODY, uid, gid))
+        record.ok("other-processes", "as %s without capabilities: the tool's own processes cannot be read" % NOBODY)
         return plan["user_namespace"]
     if plan["user_namespace"]:
         # The tool's files are not readable by nobody (an interpreter under /root, say):
@@ -363,8 +368,10 @@ def drop_privileges(config, record, plan):
         _drop_capabilities()
         record.ok("privileges", "root's file access without capabilities, real user %s, in a user namespace "
                                 "(%s cannot read %s)" % (NOBODY, NOBODY, unreadable))
+        record.ok("other-processes", "no capabilities: root's processes (the tool's own) cannot be read")
         return True
     _drop_capabilities()
+    record.ok("other-processes", "no capabilities: root's processes (the tool's own) cannot be read")
     record.no("privileges", "running as root: %s cannot read %s and there is no user namespace; capabilities "
                             "dropped, but root's process limit cannot be enforced" % (NOBODY, unreadable))
     return False
@@ -480,6 +487,21 @@ def apply_limits(config, record, own_user_namespace):
             record.no(name, "setrlimit(%s) failed: %s" % (which, _why(error)))
             continue
         record.ok(name, _limit_text(name, soft_value) + detail)
+    if _can_raise_hard_limits(resource):
+        for name, _which, _key in LIMITS:
+            if name in record.in_force:
+                del record.in_force[name]
+                record.no(name, "set, but the script keeps root's privileges and could lift it")
+
+
+def _can_raise_hard_limits(resource):
+    """True when this process could undo its limits (root with its capabilities)."""
+    try:
+        resource.setrlimit(resource.RLIMIT_CORE, (0, 1))
+    except (ValueError, OSError):
+        return False
+    resource.setrlimit(resource.RLIMIT_CORE, (0, 0))
+    return True
 
 
 def _process_allowance(value, own_user_namespace, record):
@@ -577,6 +599,7 @@ def confine_with_landlock(config, record):
         os.close(ruleset)
     record.ok("writes", "Landlock ABI %d: writes only beneath the run's folder and to %s"
               % (abi, ", ".join(_WRITABLE_DEVICES)))
+    record.ok("other-processes", "Landlock: no ptrace, so no /proc/PID/environ or memory of processes outside the run")
     if abi >= 4:
         record.ok("tcp", "Landlock ABI %d: no TCP connect or bind" % abi)
     else:
