@@ -144,20 +144,31 @@ class SparePool:
         self.capacity = capacity
         self._spares: OrderedDict[WorkerKey, Worker] = OrderedDict()
         self._lock = threading.Lock()
+        self._closed = False
 
     def take(self, key: WorkerKey, needs_reading: list[str]) -> Worker:
         """A started worker for ``key`` (the spare if there is a live one), and a new spare."""
         with self._lock:
+            self._closed = False
             spare = self._spares.pop(key, None)
         if spare is not None and not spare.alive():
             spare.discard()
             spare = None
         worker = spare or Worker.start(key, needs_reading)
-        try:
-            self._put(Worker.start(key, needs_reading))
-        except RunnerError:
-            pass  # the job's own worker started; the next run will say what is wrong
+        # The next spare starts now, off the job's path (starting a child takes a few ms).
+        threading.Thread(target=self._refill, args=(key, needs_reading), daemon=True,
+                         name="latchwatch-spare").start()
         return worker
+
+    def _refill(self, key: WorkerKey, needs_reading: list[str]) -> None:
+        try:
+            worker = Worker.start(key, needs_reading)
+        except RunnerError:
+            return  # the job's own worker started; the next run will say what is wrong
+        if self._closed:
+            worker.discard()
+        else:
+            self._put(worker)
 
     def _put(self, worker: Worker) -> None:
         with self._lock:
@@ -170,7 +181,9 @@ class SparePool:
             old.discard()
 
     def close(self) -> None:
+        """End every spare; spares started later are ended too (at exit) unless reopened."""
         with self._lock:
+            self._closed = True
             spares, self._spares = list(self._spares.values()), OrderedDict()
         for spare in spares:
             spare.discard()
