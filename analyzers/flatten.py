@@ -181,19 +181,38 @@ def _polygons_from_rings(coords, offsets):
     return out
 
 
-def repair(polygons: np.ndarray):
+def _non_finite_rings(coords, offsets):
+    """Boolean per ring: a NaN or infinite vertex (one check of the whole array when none)."""
+    finite = np.isfinite(coords).all(axis=1)
+    if finite.all():
+        return np.zeros(len(offsets) - 1, dtype=bool)
+    bad_vertex = np.concatenate([[0], np.cumsum(~finite)])
+    return bad_vertex[offsets[1:]] > bad_vertex[offsets[:-1]]
+
+
+def repair(polygons: np.ndarray, non_finite: np.ndarray | None = None):
     """Make invalid polygons valid, keeping only their polygonal parts.
 
-    A degenerate polygon (zero area) becomes an empty geometry that no query hits."""
+    A degenerate polygon (zero area) becomes an empty geometry that no query hits, and
+    so does one marked in ``non_finite`` (NaN or infinite coordinates), which GEOS
+    cannot repair."""
+    broken = np.zeros(len(polygons), dtype=bool) if non_finite is None else non_finite
     # Rectangles are valid by construction; GEOS validity is costly, so test the rest only.
-    others = np.flatnonzero(~axis_aligned_rectangles(polygons))
+    others = np.flatnonzero(~axis_aligned_rectangles(polygons) | broken)
     sub = polygons[others]
-    invalid = others[~shapely.is_valid(sub) | (shapely.area(sub) <= 0)]
+    non_finite = broken[others]
+    flawed = non_finite.copy()
+    finite = sub[~non_finite]
+    flawed[~non_finite] = ~shapely.is_valid(finite) | (shapely.area(finite) <= 0)
+    invalid = others[flawed]
     if len(invalid) == 0:
         return invalid, np.empty(0, dtype=object), polygons
-    bad = polygons[invalid]
+    unusable = non_finite[flawed]
+    bad = polygons[invalid].copy()
+    bad[unusable] = shapely.Polygon()
     reasons = np.array(shapely.is_valid_reason(bad), dtype=object)
     reasons[reasons == "Valid Geometry"] = "zero area"
+    reasons[unusable] = "NaN or infinite coordinates"
     fixed = shapely.make_valid(bad)
     parts, owner = shapely.get_parts(fixed, return_index=True)
     keep = shapely.get_type_id(parts) == shapely.GeometryType.POLYGON
@@ -211,7 +230,7 @@ def flatten(captured: CapturedLayout, top: int) -> FlatLayout:
     grid = captured.precision / captured.unit
     order = np.argsort(inst.cell, kind="stable")
     groups = np.split(order, np.flatnonzero(np.diff(inst.cell[order])) + 1) if len(order) else []
-    polys, layers, dts, stacks, owners, sources = [], [], [], [], [], []
+    polys, layers, dts, stacks, owners, sources, non_finite = [], [], [], [], [], [], []
     lt, ll, ltt, lxy, lst, lin = [], [], [], [], [], []
     for members in groups:
         cell = captured.cells[inst.cell[members[0]]]
@@ -220,7 +239,9 @@ def flatten(captured: CapturedLayout, top: int) -> FlatLayout:
             pts = _transform_points(cell.points, inst.matrix[members], inst.offset[members], grid)
             counts = np.diff(cell.poly_offsets)
             all_offsets = np.concatenate([[0], np.cumsum(np.tile(counts, k))])
-            polys.append(_polygons_from_rings(pts.reshape(-1, 2), all_offsets))
+            non_finite.append(_non_finite_rings(pts.reshape(-1, 2), all_offsets))
+            with np.errstate(invalid="ignore" if non_finite[-1].any() else "warn"):  # repair() reports them
+                polys.append(_polygons_from_rings(pts.reshape(-1, 2), all_offsets))
             layers.append(np.tile(cell.poly_layer, k))
             dts.append(np.tile(cell.poly_datatype, k))
             stacks.append(np.tile(cell.poly_stack, k))
@@ -239,7 +260,7 @@ def flatten(captured: CapturedLayout, top: int) -> FlatLayout:
         return np.concatenate(parts) if parts else np.zeros(shape, dtype=dtype)
 
     polygons = cat(polys, object)
-    invalid, reasons, polygons = repair(polygons)
+    invalid, reasons, polygons = repair(polygons, cat(non_finite, bool))
     return FlatLayout(
         captured=captured, top=top, instances=inst, invalid=invalid, invalid_reason=reasons,
         polygons=polygons, layer=cat(layers, np.int32), datatype=cat(dts, np.int32),

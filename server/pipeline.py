@@ -17,7 +17,7 @@ from latchwatch.analyzers.technology import Technology
 
 from .layoutfile import read_layout
 from .report import Report, RunSummary
-from .runner import run_script
+from .runner import read_layout_file, run_script
 from .suppression import apply_suppressions
 
 SCRIPT_SUFFIXES = (".py",)
@@ -63,12 +63,10 @@ def expand_paths(paths: Iterable[Path], excluded: Callable[[Path], bool] = lambd
 def run_path(path: Path, settings: CheckSettings, source: str | None = None, cancel=None,
              warm: bool | None = None) -> RunOutcome:
     """Run a script, or read a layout file, into a RunOutcome; ``warm`` overrides settings.warm."""
-    if path.suffix.lower() in LAYOUT_SUFFIXES:
-        start = time.perf_counter()
-        layout = read_layout(path)
-        return RunOutcome(script=str(path), status="ok", seconds=time.perf_counter() - start, layout=layout,
-                          failure=None, output="", sandbox={"network": "not applicable",
-                                                            "writes": "not applicable", "limits": []})
+    if path.suffix.lower() in LAYOUT_SUFFIXES:  # read in a child too: gdstk can crash on a corrupt file
+        kind = "oas" if path.suffix.lower() in (".oas", ".oasis") else "gds"
+        return read_layout_file(path, kind, python=settings.python, timeout=max(settings.timeout, 60.0),
+                                cancel=cancel, require_sandbox=settings.require_sandbox)
     return run_script(path, source=source, python=settings.python, timeout=settings.timeout,
                       project_root=settings.project_root, cancel=cancel, require_sandbox=settings.require_sandbox,
                       warm=settings.warm if warm is None else warm)

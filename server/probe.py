@@ -743,9 +743,10 @@ class _Options:
     call = None  # a function to import the script for and call, instead of running it
     kwargs = {}
     non_layout = "error"
+    layout = None  # "gds" or "oas": read the file at ``script`` with gdstk instead of running anything
 
 
-JOB_KEYS = ("script", "source", "timeout", "paths", "depth", "call", "kwargs", "non_layout")
+JOB_KEYS = ("script", "source", "timeout", "paths", "depth", "call", "kwargs", "non_layout", "layout")
 
 
 def options_from_job(job, config):
@@ -765,6 +766,8 @@ def options_from_job(job, config):
         raise ValueError("job kwargs must be an object, got %r" % (options.kwargs,))
     if options.non_layout not in ("error", "ignore"):
         raise ValueError("job non_layout is error or ignore, got %r" % (options.non_layout,))
+    if options.layout not in (None, "gds", "oas"):
+        raise ValueError("job layout is gds or oas, got %r" % (options.layout,))
     options.result_fd = config.get("result_fd")
     options.control_fd = config.get("control_fd")
     options.memory = config.get("memory")
@@ -808,6 +811,8 @@ def run(options):
                               "the interpreter %s cannot import numpy and gdstk: %s"
                               % (sys.executable, _IMPORT_ERROR)), []
     control = _Control(options.control_fd)
+    if options.layout is not None:
+        return read_layout_file(options, control)
     script = options.script
     try:
         if options.source is not None:  # lone surrogates from an editor buffer fail to compile, not here
@@ -875,6 +880,26 @@ def run(options):
     except Exception as error:
         return failure_header("error", type(error).__name__,
                               "latchwatch could not read the script's layout: %s" % (error,)), []
+
+
+def read_layout_file(options, control):
+    """A GDSII or OASIS file read here, not in the tool: gdstk may crash on a corrupt one."""
+    kind = "GDSII" if options.layout == "gds" else "OASIS"
+    try:
+        reader = gdstk.read_gds if options.layout == "gds" else gdstk.read_oas
+        library = reader(options.script)
+    except (OSError, RuntimeError, ValueError) as error:
+        return failure_header("error", None, "cannot read %s as %s: %s"
+                              % (os.path.basename(options.script), kind, error)), []
+    except MemoryError as error:
+        return _exception_failure(error, options.memory), []
+    control.say("finished")  # reading is done; collecting gets the collection allowance
+    try:
+        header, arrays = collect(library.cells, recorder=None, unit=library.unit, source=options.script)
+    except MemoryError as error:
+        return _exception_failure(error, options.memory), []
+    header["precision"] = library.precision
+    return header, arrays
 
 
 NOT_A_LAYOUT = "returned %s, not a gdstk.Cell, a gdstk.Library or a list of them"

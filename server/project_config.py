@@ -77,6 +77,9 @@ def _read_toml(path: Path) -> dict:
             return tomllib.load(handle)
     except tomllib.TOMLDecodeError as error:
         raise ConfigError(f"{path}: not valid TOML: {error}", file=path) from None
+    except UnicodeDecodeError as error:
+        raise ConfigError(f"{path}: not valid TOML: not UTF-8 text (byte {error.object[error.start]:#04x} at "
+                          f"offset {error.start})", file=path) from None
     except OSError as error:
         raise ConfigError(f"{path}: cannot be read: {error.strerror}", file=path) from None
 

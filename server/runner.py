@@ -64,23 +64,39 @@ def run_script(path: str | Path, *, source: str | None = None, python: str | Non
     Raises RunnerError when the interpreter cannot be started, SandboxUnavailable
     (a RunnerError) when the sandbox is required and incomplete.
     """
-    if not timeout or timeout <= 0:
-        raise ValueError(f"timeout must be a positive number of seconds, got {timeout!r}")
-    settings = SandboxSettings(require=require_sandbox, memory_limit=memory_limit,
-                               skip=frozenset(skip_protections))
     root = os.path.abspath(project_root) if project_root is not None else None
-    key = WorkerKey(python or sys.executable, root, settings, float(timeout))
     script = os.path.abspath(path)
-    job = {"script": script, "source": source, "timeout": float(timeout),
-           "paths": [os.path.dirname(script)] + ([root] if root else [])}
+    job = {"script": script, "source": source, "paths": [os.path.dirname(script)] + ([root] if root else [])}
     if call is not None:
         function, kwargs = call
         job.update(call=function, kwargs=kwargs, non_layout="ignore" if accept_non_layout else "error")
-    if warm and root is not None and _inside(script, root):
+    settings = SandboxSettings(require=require_sandbox, memory_limit=memory_limit, skip=frozenset(skip_protections))
+    return _run_job(str(path), job, python, timeout, root, settings, cancel, warm)
+
+
+def read_layout_file(path: str | Path, kind: str, *, python: str | None = None, timeout: float = 60.0,
+                     memory_limit: int = 4 << 30, cancel: threading.Event | None = None,
+                     require_sandbox: bool = False, skip_protections: tuple[str, ...] = ()) -> RunOutcome:
+    """Read a GDSII (``kind`` "gds") or OASIS ("oas") file in a sandboxed child.
+
+    gdstk can crash on a corrupt file; in the child that is a failed run (a finding on
+    the file), not a crashed command line or language server."""
+    job = {"script": os.path.abspath(path), "layout": kind, "paths": []}
+    settings = SandboxSettings(require=require_sandbox, memory_limit=memory_limit, skip=frozenset(skip_protections))
+    return _run_job(str(path), job, python, timeout, None, settings, cancel, warm=False)
+
+
+def _run_job(label: str, job: dict, python: str | None, timeout: float, root: str | None,
+             settings: SandboxSettings, cancel, warm: bool) -> RunOutcome:
+    if not timeout or timeout <= 0:
+        raise ValueError(f"timeout must be a positive number of seconds, got {timeout!r}")
+    job["timeout"] = float(timeout)
+    key = WorkerKey(python or sys.executable, root, settings, float(timeout))
+    if warm and root is not None and _inside(job["script"], root):
         worker = SPARES.take(key, needs_reading=[root])
     else:
-        worker = Worker.start(key, needs_reading=job["paths"])
-    return _ChildRun(str(path), worker, job, cancel).execute()
+        worker = Worker.start(key, needs_reading=job["paths"] or [os.path.dirname(job["script"])])
+    return _ChildRun(label, worker, job, cancel).execute()
 
 
 def _inside(path: str, folder: str) -> bool:

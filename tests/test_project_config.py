@@ -111,6 +111,13 @@ def test_nothing_found_gives_the_empty_config(tmp_path):
     assert config.root is None and config.severity == {} and expand_includes(config) == []
 
 
+def test_binary_project_file_is_a_config_error(tmp_path):
+    source = tmp_path / "latchwatch.toml"
+    source.write_bytes(b"tech = \xff\n")
+    message = str(load_error(source))
+    assert message == f"{source}: not valid TOML: not UTF-8 text (byte 0xff at offset 7)"
+
+
 def test_invalid_toml_names_the_file_and_line(tmp_path):
     source = write(tmp_path / "latchwatch.toml", 'tech = "demo"\ntimeout = = 3\n')
     message = str(load_error(source))
