@@ -35,7 +35,7 @@ WHOLE_BODY_DEVICES = 48  # more devices than this: windows (the grid grows with 
 WINDOW_TAPS = 2  # a window reaches WINDOW_REACH times the distance to the device's WINDOW_TAPS-th nearest tap
 WINDOW_REACH = 1.5
 WINDOW_RETRIES = 2  # a device cut off from its taps inside its window gets a 4x wider one
-CHANNEL_TAPS = 3  # taps tried for a device's channel bound
+CHANNEL_TAPS = 2  # taps tried for a device's channel bound
 PRUNE_MARGIN = 1.1  # a bound this far inside the limit skips the solve (the grid errs by under 6%)
 QUANTUM = 1e-6  # layout units: window contents are compared on this grid
 
@@ -133,13 +133,14 @@ def channel_bound(pieces: Pieces, taps: Pieces, sheet: np.ndarray, regions) -> n
     normal = np.c_[-(b - a)[:, 1], (b - a)[:, 0]] / length[:, None] * (width / 2)[:, None]
     corners = np.stack([a + normal, b + normal, b - normal, a - normal], axis=1)
     channels = shapely.polygons(corners)
-    inside = np.zeros(len(dev), bool)
-    for body in np.unique(pieces.body[dev]):
-        sel = np.flatnonzero(pieces.body[dev] == body)
-        region, cut, _ = regions(int(body))
-        inside[sel] = shapely.covers(region, channels[sel])
-        if len(cut):
-            hit, _ = g.overlap_pairs(channels[sel], cut)
+    body = pieces.body[dev]
+    bodies, body_of = np.unique(body, return_inverse=True)
+    info = [regions(int(b)) for b in bodies]
+    inside = shapely.covers(np.array([i[0] for i in info], dtype=object)[body_of.ravel()], channels)
+    for k, (_, cut, _) in enumerate(info):
+        if len(cut):  # a channel that meets a cut-out shape at all is not used (touching too)
+            sel = np.flatnonzero(body_of.ravel() == k)
+            hit, _ = shapely.STRtree(cut).query(channels[sel], predicate="intersects")
             inside[sel[hit]] = False
     value = np.where(inside, sheet[dev] * length / width, np.inf)
     np.minimum.at(bound, dev, value)
@@ -148,10 +149,17 @@ def channel_bound(pieces: Pieces, taps: Pieces, sheet: np.ndarray, regions) -> n
 
 def _inner_disc(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Centroid of each polygon and the radius of the disc around it inside the polygon
-    (0 when the centroid lies outside)."""
-    centre = shapely.centroid(geoms)
-    radius = np.where(shapely.contains(geoms, centre), shapely.distance(centre, shapely.boundary(geoms)), 0.0)
-    return shapely.get_coordinates(centre), radius
+    (0 when the centroid lies outside). Rectangles take their box (no GEOS call)."""
+    b = shapely.bounds(geoms)
+    centre = (b[:, :2] + b[:, 2:]) / 2
+    radius = np.minimum(b[:, 2] - b[:, 0], b[:, 3] - b[:, 1]) / 2
+    other = np.flatnonzero(~_is_rectangle(geoms))
+    if len(other):
+        c = shapely.centroid(geoms[other])
+        radius[other] = np.where(shapely.contains(geoms[other], c),
+                                 shapely.distance(c, shapely.boundary(geoms[other])), 0.0)
+        centre[other] = shapely.get_coordinates(c)
+    return centre, radius
 
 
 def _sheet_of(elec, kind: str, body: int) -> float:
@@ -187,11 +195,11 @@ def _regions(ex, kind: str):
 
 
 def tap_reach(pieces: Pieces, taps: Pieces) -> np.ndarray:
-    """Centre distance from each piece to the WINDOW_TAPS-th nearest tap of its own body
-    (or its farthest, when the body has fewer)."""
+    """Distance between box centres from each piece to the WINDOW_TAPS-th nearest tap of
+    its own body (or its farthest, when the body has fewer)."""
     def points(p):  # the body as a third coordinate far apart: neighbours stay in the body
-        xy = shapely.get_coordinates(shapely.centroid(p.geoms))
-        return np.c_[xy, p.body * _BODY_SPACING]
+        b = shapely.bounds(p.geoms)
+        return np.c_[(b[:, :2] + b[:, 2:]) / 2, p.body * _BODY_SPACING]
 
     k = min(WINDOW_TAPS, len(taps))
     dist, _ = cKDTree(points(taps)).query(points(pieces), k=list(range(1, k + 1)))
