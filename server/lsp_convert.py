@@ -182,7 +182,9 @@ def _count_phrase(group: Group, devices: DeviceIndex) -> str | None:
 
 
 def _figure(value: float, unit: str | None) -> str:
-    return f"{value:.2f}" if unit in (None, "um") else f"{value:.3g}"
+    """Lengths with 2 decimals (the unit follows the list); electrical values with 3
+    significant figures and their unit (DESIGN 9)."""
+    return f"{value:.2f}" if unit in (None, "um") else si(value, unit)
 
 
 def group_message(group: Group, devices: DeviceIndex) -> str:
@@ -200,7 +202,8 @@ def group_message(group: Group, devices: DeviceIndex) -> str:
         if others:
             listed = ", ".join(_figure(v, worst.unit) for v in others[:MAX_OTHER_FIGURES])
             more = ", ..." if len(others) > MAX_OTHER_FIGURES else ""
-            message += f"; others: {listed}{more}{' ' + worst.unit if worst.unit else ''}"
+            unit = f" {worst.unit}" if worst.unit == "um" else ""
+            message += f"; others: {listed}{more}{unit}"
     if group.via:
         message = f"drawn at {_short(worst.file)}:{worst.line} through this call: {message}"
     return message

@@ -274,3 +274,24 @@ def test_pruning_keeps_the_findings(demo, core_current):
     assert [f.message for f in RULE.check(pruned)] == [f.message for f in RULE.check(exact)]
     skipped = sum(np.isnan(e.ohm).sum() for e in shunt_estimates(pruned).values())
     assert skipped > 0 or core_current > 1e-4
+
+
+def test_merged_shunt_diagnostic_lists_the_other_figures_with_prefixes(demo):
+    # Three diffusions drawn on one line, at three distances down the strip well.
+    from latchwatch.analyzers.findings import Frame
+
+    c = CellBuilder("TOP").rect(NWELL, 0, 0, 80, 5)
+    n_tap(c, 0, 0, 1.5, 5)
+    for x in (40, 55, 70):
+        c.rect(ACTIVE, x, 0, x + 3, 5, stack=0).rect(PPLUS, x, 0, x + 3, 5)
+    captured = layout(c, frames=[Frame("/proj/cell.py", 4, "<module>")], stacks=[(0,)], source="/proj/cell.py")
+    ctx = CheckContext(outcome(captured, script="/proj/cell.py"), demo, CheckOptions(project_root="/proj"),
+                       flatten(captured, 0))
+    findings = list(RULE.check(ctx))
+    assert len(findings) == 3 and {f.line for f in findings} == {4}
+    by_file = lsp_convert.diagnostics_by_file(findings, device_table(ctx), "/proj/cell.py",
+                                              lambda file, line: "box(cell, ACTIVE, x, 0, x + 3, 5)")
+    (diagnostic,) = by_file["/proj/cell.py"]
+    # Strip estimates (R = Rs L / W): 13.7, 10.7 and 7.70 kohm; the worst first.
+    assert re.search(r"worst: P\+ diffusion: estimated n-well resistance to its taps 13\.\d kohm", diagnostic.message)
+    assert re.search(r"others: 10\.\d kohm, 7\.\d\d kohm$", diagnostic.message)

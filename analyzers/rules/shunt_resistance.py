@@ -93,7 +93,9 @@ RULE = Rule(
             "second-nearest tap (cutting the sheet away also only raises R); repeated cells are solved once. "
             "The grid follows every edge of Manhattan shapes exactly (oblique and curved edges are "
             "staircased); its discretization puts the estimate 0 to 6% above the converged sheet solution on "
-            "the validation layouts ([electrical] sheet_grid sets a uniform, finer grid)."
+            "the validation layouts ([electrical] sheet_grid sets a uniform, finer grid). A plain check skips "
+            "devices that a straight-channel bound already proves 10% inside their limit; --devices and the "
+            "editor estimate every device."
         ),
         why=(
             "Current flowing in a well or the substrate (carriers injected at an I/O pin, supply bounce, a "
