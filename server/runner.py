@@ -323,6 +323,8 @@ class _ChildRun:
             return ScriptFailure("error", None, f"the script's process was killed by {name}{hint} "
                                                 f"before it reported a result", frames)
         if "\nstarted\n" not in "\n" + control:
+            if self.report is not None and "set-up" in self.report.missing:
+                return ScriptFailure("error", None, self.report.missing["set-up"])
             if "\nbad job: " in "\n" + control:
                 return ScriptFailure("error", None, "the latchwatch probe refused its job: "
                                      + control.split("bad job: ", 1)[1].splitlines()[0])

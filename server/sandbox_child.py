@@ -353,8 +353,12 @@ def drop_privileges(config, record, plan):
         return False
     uid, gid, unreadable = plan["uid"], plan["gid"], plan["unreadable"]
     if unreadable is None:
-        os.setresgid(gid, gid, gid)
-        os.setresuid(uid, uid, uid)
+        if hasattr(os, "setresuid"):
+            os.setresgid(gid, gid, gid)
+            os.setresuid(uid, uid, uid)
+        else:  # macOS: as root, setuid sets the real, effective and saved ids alike
+            os.setgid(gid)
+            os.setuid(uid)
         _drop_capabilities()
         record.ok("privileges", "runs as %s (uid %d, gid %d), without capabilities" % (NOBODY, uid, gid))
         record.ok("other-processes", "as %s without capabilities: the tool's own processes cannot be read" % NOBODY)
@@ -621,7 +625,7 @@ def run_worker(config, record, plan, started, forked):
             _prctl(PR_SET_PDEATHSIG, signal.SIGKILL)
         apply_limits(config, record, own_user_namespace)
         confine_with_landlock(config, record)
-    except OSError as error:  # an unexpected refusal: run nothing, say why
+    except (OSError, AttributeError, ValueError) as error:  # an unexpected refusal: run nothing, say why
         record.no("set-up", "the sandbox could not be set up: %s" % _why(error))
         _report(config, record, started)
         os._exit(70)
