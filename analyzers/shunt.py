@@ -79,8 +79,10 @@ def _estimate_kind(ctx, kind: str, prune: bool) -> KindShunt:
     ohm = np.full(n, np.inf)
     ohm[np.isnan(sheet)] = np.nan
     tapped = np.isin(pieces.body, taps.body) & ~np.isnan(sheet)
+    if not tapped.any():
+        return KindShunt(ohm, required, pad, taps, sheet, elec.vbe_on)
     regions = _regions(ex, kind)
-    if prune and tapped.any():
+    if prune:
         bound = np.full(n, np.inf)
         bound[tapped] = channel_bound(pieces.select(tapped), taps, sheet[tapped], regions)
         proven = tapped & (bound * PRUNE_MARGIN <= elec.vbe_on / required)

@@ -295,3 +295,9 @@ def test_merged_shunt_diagnostic_lists_the_other_figures_with_prefixes(demo):
     # Strip estimates (R = Rs L / W): 13.7, 10.7 and 7.70 kohm; the worst first.
     assert re.search(r"worst: P\+ diffusion: estimated n-well resistance to its taps 13\.\d kohm", diagnostic.message)
     assert re.search(r"others: 10\.\d kohm, 7\.\d\d kohm$", diagnostic.message)
+
+
+def test_layouts_without_devices_or_shapes(demo):
+    for cell in (CellBuilder("EMPTY"), n_tap(CellBuilder("TAPS").rect(NWELL, 0, 0, 5, 5), 1, 1, 3, 3)):
+        ctx = context(cell, demo)
+        assert list(RULE.check(ctx)) == [] and device_table(ctx) == []
