@@ -490,12 +490,33 @@ def apply_limits(config, record, own_user_namespace):
         except (ValueError, OSError) as error:
             record.no(name, "setrlimit(%s) failed: %s" % (which, _why(error)))
             continue
+        if name == "processes" and not _process_limit_holds(resource, soft_value, hard_value):
+            record.no(name, "set, but a fork beyond it still succeeds (the kernel exempts a real user that is "
+                            "root outside the user namespaces)")
+            continue
         record.ok(name, _limit_text(name, soft_value) + detail)
     if _can_raise_hard_limits(resource):
         for name, _which, _key in LIMITS:
             if name in record.in_force:
                 del record.in_force[name]
                 record.no(name, "set, but the script keeps root's privileges and could lift it")
+
+
+def _process_limit_holds(resource, soft, hard):
+    """Whether a fork fails beyond the limit: with the soft limit at 1 it must."""
+    if not hasattr(os, "fork"):
+        return True
+    resource.setrlimit(resource.RLIMIT_NPROC, (1, hard))
+    try:
+        child = os.fork()
+    except OSError:
+        return True
+    finally:
+        resource.setrlimit(resource.RLIMIT_NPROC, (soft, hard))
+    if child == 0:
+        os._exit(0)
+    os.waitpid(child, 0)
+    return False
 
 
 def _can_raise_hard_limits(resource):
