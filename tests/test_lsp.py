@@ -235,9 +235,15 @@ async def test_unsaved_buffer_runs_under_its_real_name(tmp_path, session):
     assert diagnostic.range.start.line == LOOP_LINE + 1
 
 
+def slow_script(token: str) -> str:
+    """Sleeps, with a marker process named ``token``: a warm child is started before its
+    script is known, so its own command line cannot name the script."""
+    return f"import subprocess, time\nsubprocess.Popen(['sh', '-c', 'sleep 30; true', {token!r}])\ntime.sleep(30)\n"
+
+
 async def test_stale_result_loses_the_race_and_its_child_is_killed(tmp_path, session):
     token = f"slow_{uuid.uuid4().hex}"
-    slow = "import time\ntime.sleep(30)\n" + FAILING
+    slow = slow_script(token) + FAILING
     script = make_project(tmp_path / "proj", slow, name=f"{token}.py")
     s = session()
     await s.start(tmp_path / "proj", options=trusted(tmp_path / "proj", timeout=60))
@@ -252,7 +258,7 @@ async def test_stale_result_loses_the_race_and_its_child_is_killed(tmp_path, ses
 
 async def test_closing_during_a_run_kills_the_child(tmp_path, session):
     token = f"slow_{uuid.uuid4().hex}"
-    script = make_project(tmp_path / "proj", "import time\ntime.sleep(30)\n", name=f"{token}.py")
+    script = make_project(tmp_path / "proj", slow_script(token), name=f"{token}.py")
     s = session()
     await s.start(tmp_path / "proj", options=trusted(tmp_path / "proj", timeout=60))
     uri = s.open(script)
