@@ -5,15 +5,20 @@ library only, Python 3.8 and later (the interpreter may be the user's own). It r
 before numpy or gdstk are imported, because only a single-threaded process may enter
 a user namespace.
 
-Two processes result:
+Three processes result on Linux:
 
 - the keeper (the process the runner started) enters fresh network and PID
-  namespaces (through a user namespace when it is not root), forks the worker and
-  waits for it. In a PID namespace the worker is its init, so every process of the run
-  ends with it; without one the keeper is a child subreaper and kills whatever the run
-  left behind. Then it exits with the worker's status.
+  namespaces (through a user namespace when it is not root), forks, waits, and exits
+  with the worker's status. Without a PID namespace it is a child subreaper instead,
+  forks the worker directly and kills whatever the run left behind.
+- the init, PID 1 of the new namespace: for root it enters a user namespace of the
+  run's own (the keeper maps nobody into it), then forks the worker and reaps orphans.
+  When the worker ends the init ends, and the kernel ends every process left in the
+  namespace.
 - the worker gives up root's privileges, sets the resource limits, confines writes
   (and TCP) with Landlock and loads the probe, which imports gdstk and waits for its job.
+
+Elsewhere (macOS, Windows) the one process applies what exists and runs the probe.
 
 Every step either works or is recorded with the reason it did not. The worker reports
 the record as one control-pipe line, ``sandbox {json}``, before anything else runs;
@@ -28,14 +33,15 @@ import signal
 import sys
 import time
 
-try:  # imported before the identity changes, which may hide the standard library
-    import ctypes
+# Imported before the identity changes, which may hide the standard library.
+import ctypes
+
+try:
     import pwd
     import resource
 except ImportError:  # Windows
-    ctypes = pwd = resource = None
+    pwd = resource = None
 
-CLONE_NEWNS = 0x00020000
 CLONE_NEWUSER = 0x10000000
 CLONE_NEWPID = 0x20000000
 CLONE_NEWNET = 0x40000000
@@ -107,7 +113,7 @@ def _unshare(flags):
     if hasattr(os, "unshare"):  # Python 3.12+
         os.unshare(flags)
     else:
-            _call(_libc().unshare, ctypes.c_int(flags))
+        _call(_libc().unshare, ctypes.c_int(flags))
 
 
 def _why(error):
