@@ -57,7 +57,7 @@ def check(ctx):
             yield ctx.shape_finding(
                 RULE, int(pieces.shape[i]), message,
                 location=shapely.get_coordinates(shapely.point_on_surface(pieces.geoms[i]))[0],
-                bbox=bounds[i], value=ohm if finite else None, limit=float(limit[i]), unit="ohm",
+                bbox=bounds[i], value=ohm if finite else None, limit=float(f"{limit[i]:.6g}"), unit="ohm",
                 related=related,
                 figures={"shunt_ohm": ohm if finite else None,
                          "trigger_current_a": est.vbe_on / ohm if finite else 0.0,
