@@ -24,6 +24,8 @@ from pygls.uris import from_fs_path
 from pytest_lsp import LanguageClient
 from pytest_lsp.client import DEFAULT_CLIENT_FEATURES, register_lsp_features
 
+from procs import processes_with as running_processes_with
+
 SERVER = [sys.executable, "-m", "latchwatch.server.cli", "serve"]
 
 # An n-well with one contacted n-tap at its left end (x -3..-1) and a loop drawing three
@@ -56,17 +58,6 @@ def make_project(folder: Path, script: str = FAILING, name: str = "cell.py", ext
     return path
 
 
-def running_processes_with(token: str) -> list[int]:
-    """PIDs whose command line mentions ``token`` (Linux /proc)."""
-    found = []
-    for entry in Path("/proc").iterdir():
-        if entry.name.isdigit():
-            try:
-                if token.encode() in (entry / "cmdline").read_bytes():
-                    found.append(int(entry.name))
-            except OSError:
-                continue
-    return found
 
 
 async def wait_until(predicate, timeout: float = 20.0, what: str = "condition"):

@@ -14,6 +14,7 @@ import pytest
 
 from latchwatch.server import probe, runner
 from latchwatch.server.runner import RunnerError, run_script
+from procs import processes_with as _processes_with
 
 linux_only = pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")
 
@@ -24,23 +25,6 @@ def _script(tmp_path, body, name="gen.py"):
     return path
 
 
-def _processes_with(token):
-    """Live (not zombie) processes whose command line holds ``token``, from /proc.
-
-    A script in a PID namespace cannot name its host process group, so the tests mark
-    the processes they start with a unique argument and look for it afterwards."""
-    found = []
-    for entry in Path("/proc").iterdir():
-        if not entry.name.isdigit():
-            continue
-        try:
-            command = (entry / "cmdline").read_bytes()
-            state = (entry / "stat").read_text().rsplit(")", 1)[1].split()[0]
-        except (OSError, IndexError):
-            continue
-        if token.encode() in command and state != "Z":
-            found.append(int(entry.name))
-    return found
 
 
 def _token():

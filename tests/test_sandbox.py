@@ -19,6 +19,7 @@ from latchwatch.server import runner
 from latchwatch.server.runner import run_script
 from latchwatch.server.sandbox import REQUIRED, SandboxReport, SandboxSettings
 from latchwatch.server.workers import inspect_sandbox
+from procs import processes_with as _processes_with
 
 linux_only = pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")
 
@@ -43,19 +44,6 @@ def _script(folder: Path, body: str, name: str = "hostile.py") -> Path:
     return path
 
 
-def _processes_with(token: str) -> list[int]:
-    """Live processes whose command line holds ``token`` (a unique sleep length)."""
-    found = []
-    for entry in Path("/proc").iterdir():
-        if entry.name.isdigit():
-            try:
-                command = (entry / "cmdline").read_bytes()
-                state = (entry / "stat").read_text().rsplit(")", 1)[1].split()[0]
-            except (OSError, IndexError):
-                continue
-            if token.encode() in command and state != "Z":
-                found.append(int(entry.name))
-    return found
 
 
 def _token() -> str:
