@@ -22,6 +22,7 @@ class RunSummary:
     cells: int
     shapes: int
     sandbox: dict  # as the sandbox reports it, e.g. {"network": "blocked", ...}
+    function: str | None = None  # the generator function a corner or preview called
 
 
 @dataclass(frozen=True)

@@ -85,7 +85,7 @@ def finding_to_dict(finding: Finding) -> dict:
 
 
 def run_to_dict(run: RunSummary) -> dict:
-    return {
+    entry = {
         "script": run.script,
         "corner": plain(run.corner),
         "status": run.status,
@@ -94,6 +94,10 @@ def run_to_dict(run: RunSummary) -> dict:
         "shapes": run.shapes,
         "sandbox": plain(run.sandbox),
     }
+    if run.function is not None:
+        # An added key (DESIGN 5.2 extended compatibly): which function a corner called.
+        entry["function"] = run.function
+    return entry
 
 
 def device_to_dict(device: Device) -> dict:

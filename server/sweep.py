@@ -273,6 +273,8 @@ def run_task(task: Task, settings: CheckSettings, source: str | None = None, can
     if outcome.status == "cancelled" or (cancel is not None and cancel.is_set()):
         return None
     findings, devices, summary = check_run(outcome, settings, read_source=read_source)
+    if task.function is not None:
+        summary = replace(summary, function=task.function)
     cells = len(outcome.layout.cells) if outcome.layout is not None else 0
     return RunResult(task, outcome.status, cells, summary, findings, devices, outcome.output)
 

@@ -150,3 +150,13 @@ def test_render_json_is_the_dict_as_json(tmp_path):
     text = render_json(report, base=tmp_path)
     assert text.endswith("\n")
     assert json.loads(text) == report_to_dict(report, base=tmp_path)
+
+
+def test_run_names_the_function_a_corner_called():
+    from latchwatch.server.report import RunSummary
+    from latchwatch.server.report_json import run_to_dict
+
+    plain_run = RunSummary("a.py", None, "ok", 0.1, 1, 4, {})
+    called = RunSummary("a.py", {"fingers": 16}, "ok", 0.1, 1, 4, {}, function="finger_array")
+    assert "function" not in run_to_dict(plain_run)  # the DESIGN 5.2 keys, unchanged
+    assert run_to_dict(called)["function"] == "finger_array"

@@ -232,6 +232,7 @@ def test_a_file_of_generator_functions_is_previewed(project, settings):
     report = sweep.check_all([project / "fingers.py"], settings, [], jobs=2)
     # finger_array() (4 fingers) is clean, wide_pair() draws 16 fingers; pitch_of returns a float.
     assert [(r.corner, r.cells) for r in report.runs] == [({}, 1), ({}, 1)]
+    assert [r.function for r in report.runs] == ["finger_array", "wide_pair"]  # told apart in JSON runs
     (finding,) = report.findings
     assert (finding.rule, finding.line, finding.cell) == ("tap-distance", DIFFUSION_LINE, "FINGERS_16")
     # A script that builds something itself is not previewed.
