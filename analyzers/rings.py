@@ -29,6 +29,7 @@ interval [a, b] cannot exceed (f(a) + f(b) + |b - a|) / 2); exact to ``tol``.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Callable
 
 import numpy as np
 import shapely
@@ -167,21 +168,29 @@ class Narrowest:
     location: np.ndarray  # (2,) a point of the narrowest spot
 
 
+def _bisect(lo: float, hi: float, below: Callable[[float], bool], done: Callable[[float, float], bool]):
+    """Bracket the radius where a monotone test changes: ``below(r)`` is true for radii
+    under it. Returns the final (lo, hi)."""
+    for _ in range(_MAX_STEPS):
+        if done(lo, hi):
+            break
+        mid = (lo + hi) / 2
+        if below(mid):
+            lo = mid
+        else:
+            hi = mid
+    return lo, hi
+
+
 def narrowest_band(region, hole, diff, min_width: float, tol: float = DEFAULT_TOL) -> Narrowest | None:
     """None when ``region`` holds a band at least ``min_width`` wide around ``diff``
     (to tol), else the narrowest width of its best band and where it occurs. ``hole``
     is the hole of ``region`` that holds ``diff``."""
     if surrounds(erode(region, min_width / 2 - tol / 2), diff):
         return None
-    lo, hi = 0.0, min_width / 2
-    for _ in range(_MAX_STEPS):
-        if hi - lo <= 1e-7:  # well below tol, so the reported figure reads as drawn
-            break
-        mid = (lo + hi) / 2
-        if surrounds(erode(region, mid), diff):
-            lo = mid
-        else:
-            hi = mid
+    # Stop well below tol, so the reported figure reads as drawn.
+    lo, hi = _bisect(0.0, min_width / 2, lambda r: surrounds(erode(region, r), diff),
+                     lambda lo, hi: hi - lo <= 1e-7)
     opened = shapely.buffer(erode(region, hi), hi, quad_segs=QUAD_SEGS) if hi > 0 else region
     residue, _ = g.explode(np.array([shapely.difference(region, opened)], dtype=object), np.zeros(1, np.int64))
     inner, outer = shapely.get_exterior_ring(hole), outline(region, hole)
@@ -210,15 +219,9 @@ def find_gap(taps, diff, r_max: float, tol: float = GAP_TOL) -> Gap | None:
     or None when no closing up to ``r_max`` makes them surround it."""
     if shapely.is_empty(taps) or not surrounds(closing(taps, r_max), diff):
         return None
-    lo, hi = 0.0, r_max
-    for _ in range(_MAX_STEPS):
-        if hi - lo <= max(tol, hi / 8):  # the radius only finds the gap; its width is measured
-            break
-        mid = (lo + hi) / 2
-        if surrounds(closing(taps, mid), diff):
-            hi = mid
-        else:
-            lo = mid
+    # The radius only finds the gap (its width is measured), so a coarse bracket will do.
+    lo, hi = _bisect(0.0, r_max, lambda r: not surrounds(closing(taps, r), diff),
+                     lambda lo, hi: hi - lo <= max(tol, hi / 8))
     closed = closing(taps, hi)
     parts = shapely.get_parts(closed)
     home = parts[shapely.within(diff, shapely.polygons(shapely.get_exterior_ring(parts)))]
