@@ -14,19 +14,9 @@ from pathlib import Path
 
 import gdstk
 import pytest
+from builders import FAR_SCRIPT
 
-# A P+ diffusion 30 um long with its n-tap at the left end: the farthest point is at
-# x = 30, 31 um from the tap edge at x = -1 (analytic), over the demo limit of 20 um.
-FAR = '''import gdstk
-lib = gdstk.Library()
-cell = lib.new_cell("TOP")
-cell.add(gdstk.rectangle((-5, -5), (40, 10), layer=1))
-cell.add(gdstk.rectangle((0, 0), (30, 4), layer=5))
-cell.add(gdstk.rectangle((0, 0), (30, 4), layer=2))    # P+ diffusion, 30 um long
-cell.add(gdstk.rectangle((-3, 0), (-1, 4), layer=4))
-cell.add(gdstk.rectangle((-3, 0), (-1, 4), layer=2))   # its n-tap at the left end
-cell.add(gdstk.rectangle((-2.5, 1.5), (-1.5, 2.5), layer=6))
-'''
+FAR = FAR_SCRIPT
 
 HUGE = '''import gdstk, math
 cell = gdstk.Cell("HUGE")

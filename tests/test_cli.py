@@ -11,6 +11,7 @@ from pathlib import Path
 
 import gdstk
 import pytest
+from builders import FAR_SCRIPT
 
 FLOATING = '''import gdstk
 lib = gdstk.Library()
@@ -22,16 +23,7 @@ cell.add(gdstk.rectangle((0, 6), (2, 8), layer=4))     # N+ implant
 cell.add(gdstk.rectangle((0, 6), (2, 8), layer=2))     # an n-tap without contact
 '''
 
-FAR = '''import gdstk
-lib = gdstk.Library()
-cell = lib.new_cell("TOP")
-cell.add(gdstk.rectangle((-5, -5), (40, 10), layer=1))
-cell.add(gdstk.rectangle((0, 0), (30, 4), layer=5))
-cell.add(gdstk.rectangle((0, 0), (30, 4), layer=2))    # P+ diffusion, 30 um long
-cell.add(gdstk.rectangle((-3, 0), (-1, 4), layer=4))
-cell.add(gdstk.rectangle((-3, 0), (-1, 4), layer=2))   # its n-tap at the left end
-cell.add(gdstk.rectangle((-2.5, 1.5), (-1.5, 2.5), layer=6))
-'''
+FAR = FAR_SCRIPT
 
 
 def latchwatch(*args, cwd, timeout=120):
