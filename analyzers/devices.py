@@ -39,12 +39,13 @@ def tap_distances(ctx, kind: str, exact: bool) -> KindResult:
     gated = ex.pdiff_gated if kind == "p" else ex.ndiff_gated
     taps = ex.ntap.select(ex.ntap_contacted) if kind == "p" else ex.ptap.select(ex.ptap_contacted)
     spacing = spacing_to_opposite_well(ex, kind) if tech.has_spacing_table() else np.full(len(pieces), np.nan)
-    limits = np.array(
-        [np.nan if (v := tech.tap_distance_limit(kind, None if np.isnan(s) else float(s))) is None else v
-         for s in spacing] if tech.has_spacing_table()
-        else [np.nan if (v := tech.tap_distance_limit(kind)) is None else v] * len(pieces),
-        dtype=float,
-    )
+    def limit_at(s: float) -> float:
+        value = tech.tap_distance_limit(kind, None if np.isnan(s) else float(s))
+        return np.nan if value is None else value
+
+    # Without a spacing table every piece has the same limit (spacing is all nan).
+    limits = np.array([limit_at(s) for s in spacing] if tech.has_spacing_table()
+                      else [limit_at(np.nan)] * len(pieces), dtype=float)
     index = TapIndex(taps.geoms, taps.body)
     result = farthest_from_taps(pieces.geoms, pieces.body, index, limits, exact=exact)
     return KindResult(kind, pieces, taps, gated, limits, spacing, result)
