@@ -76,12 +76,10 @@ class Provenance:
         layers: dict[tuple[str, int], set] = {}
         if len(flat.stack) == 0:
             return layers
-        key = (flat.stack.astype(np.int64) << 32) | (flat.layer.astype(np.int64) << 16) | flat.datatype
-        for k in np.unique(key):
-            stack_id = int(k >> 32)
-            layer = (int((k >> 16) & 0xFFFF), int(k & 0xFFFF))
-            for frame in self.captured.stack_frames(stack_id if stack_id < 2**31 else -1):
-                layers.setdefault((frame.file, frame.line), set()).add(layer)
+        triples = np.unique(np.column_stack([flat.stack, flat.layer, flat.datatype]), axis=0)
+        for stack_id, layer, datatype in triples.tolist():
+            for frame in self.captured.stack_frames(stack_id):
+                layers.setdefault((frame.file, frame.line), set()).add((layer, datatype))
         return layers
 
     def _relative(self, frame: Frame) -> Frame:
