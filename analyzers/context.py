@@ -9,7 +9,7 @@ from functools import cached_property
 from .extract import Extraction, extract
 from .findings import Finding, Related, Severity
 from .flatten import FlatLayout
-from .provenance import Provenance, display_path
+from .provenance import Provenance, display_path, is_user_file, relative_frame
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:
@@ -76,13 +76,8 @@ class CheckContext:
 
     def run_finding(self, rule, message: str, frames=(), **fields) -> Finding:
         """A finding about the run itself, on its innermost user frame (or the script's first line)."""
-        from .provenance import is_user_file
-
         user = [f for f in frames if is_user_file(f.file, self.options.project_root)]
-        stack = tuple(
-            type(f)(display_path(f.file, self.options.display_base), f.line, f.function, f.column, f.end_line, f.end_column)
-            for f in user
-        )
+        stack = tuple(relative_frame(f, self.options.display_base) for f in user)
         top = stack[0] if stack else None
         return Finding(
             rule=rule.id, severity=rule.severity, message=message,

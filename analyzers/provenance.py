@@ -10,11 +10,10 @@ from __future__ import annotations
 
 import os
 import sysconfig
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
-from .captured import CapturedLayout
 from .findings import Frame, Placement
 from .flatten import FlatLayout, placement_chain
 
@@ -47,6 +46,12 @@ def display_path(path: str | None, base: str | None) -> str | None:
     except ValueError:
         return path
     return path if rel.startswith("..") else rel
+
+
+def relative_frame(frame: Frame, base: str | None) -> Frame:
+    """The frame with its file shown relative to ``base`` when inside it."""
+    rel = display_path(frame.file, base)
+    return frame if rel == frame.file else replace(frame, file=rel)
 
 
 @dataclass(frozen=True)
@@ -82,12 +87,6 @@ class Provenance:
                 layers.setdefault((frame.file, frame.line), set()).add((layer, datatype))
         return layers
 
-    def _relative(self, frame: Frame) -> Frame:
-        rel = display_path(frame.file, self.base)
-        if rel == frame.file:
-            return frame
-        return Frame(rel, frame.line, frame.function, frame.column, frame.end_line, frame.end_column)
-
     def anchor(self, stack_id: int, layer_specific: bool = True) -> Anchor:
         key = (int(stack_id), layer_specific)
         if key not in self._stack_cache:
@@ -98,7 +97,7 @@ class Provenance:
                     if len(self._line_layers.get((f.file, f.line), ())) == 1:
                         pick = i
                         break
-            frames = tuple(self._relative(f) for f in user[pick:])
+            frames = tuple(relative_frame(f, self.base) for f in user[pick:])
             self._stack_cache[key] = Anchor(frames[0] if frames else None, frames)
         return self._stack_cache[key]
 
