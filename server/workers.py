@@ -52,10 +52,11 @@ def child_environment(temp_dir: Path) -> dict[str, str]:
     """The environment the script sees: locale and paths only, never tokens or keys."""
     env = {name: value for name, value in os.environ.items() if name in _ENV_NAMES or name.startswith("LC_")}
     env.setdefault("PATH", os.defpath)
-    # numpy's BLAS reserves address space per thread; on a many-core machine that
-    # alone could exceed the address-space limit, so the child uses a few threads.
+    # One BLAS thread unless the user asks for more: a layout script does little linear
+    # algebra, a thread pool costs each child start-up CPU and address space, and a
+    # corner host (server/hosts.py) must have no threads when it forks.
     for name in _THREAD_NAMES:
-        env[name] = os.environ.get(name, str(min(4, os.cpu_count() or 1)))
+        env[name] = os.environ.get(name, "1")
     for name in ("TMPDIR", "TMP", "TEMP"):
         env[name] = str(temp_dir)
     return env
