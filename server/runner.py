@@ -28,9 +28,10 @@ from latchwatch.analyzers.findings import Frame
 from latchwatch.analyzers.run_outcome import RunOutcome, ScriptFailure
 
 from . import wire
+from .hosts import HOSTS
 from .sandbox import SandboxReport, SandboxSettings, unavailable_message
 from .workers import (COLLECT_ALLOWANCE, PROBE, SANDBOX_CHILD, SPARES, STARTUP_ALLOWANCE, RunnerError,
-                      SandboxUnavailable, Worker, WorkerKey, child_environment, kill_group)
+                      SandboxUnavailable, Worker, WorkerKey, child_environment)
 
 __all__ = ["run_script", "RunnerError", "SandboxUnavailable", "child_environment", "OUTPUT_HEAD", "OUTPUT_TAIL",
            "OUTPUT_KILL", "GEOMETRY_KILL", "STARTUP_ALLOWANCE", "COLLECT_ALLOWANCE"]
@@ -50,7 +51,7 @@ def run_script(path: str | Path, *, source: str | None = None, python: str | Non
                project_root: Path | None = None, memory_limit: int = 4 << 30,
                cancel: threading.Event | None = None, call: tuple[str, dict] | None = None,
                accept_non_layout: bool = False, require_sandbox: bool = False, warm: bool = False,
-               skip_protections: tuple[str, ...] = ()) -> RunOutcome:
+               hosted: bool = False, skip_protections: tuple[str, ...] = ()) -> RunOutcome:
     """Run one layout script as ``__main__`` in a sandboxed child; never raises for script faults.
 
     ``source`` runs instead of the file's content, compiled under the file's name.
@@ -58,7 +59,9 @@ def run_script(path: str | Path, *, source: str | None = None, python: str | Non
     ``function(**kwargs)`` returns (kwargs JSON values); a return value that is no
     layout is a script error, or an empty capture with ``accept_non_layout``.
     ``warm`` takes a spare child started ahead (and starts the next one): for the
-    language server, whose runs repeat with the same settings. ``require_sandbox``
+    language server, whose runs repeat with the same settings. ``hosted`` runs the job
+    in a child forked from a corner host that has gdstk imported (server/hosts.py):
+    for the many calls of a sweep. ``require_sandbox``
     makes a missing protection an error; ``skip_protections`` (sandbox.SKIPPABLE)
     leaves mechanisms out, as on a machine without them.
     Raises RunnerError when the interpreter cannot be started, SandboxUnavailable
@@ -71,7 +74,7 @@ def run_script(path: str | Path, *, source: str | None = None, python: str | Non
         function, kwargs = call
         job.update(call=function, kwargs=kwargs, non_layout="ignore" if accept_non_layout else "error")
     settings = SandboxSettings(require=require_sandbox, memory_limit=memory_limit, skip=frozenset(skip_protections))
-    return _run_job(str(path), job, python, timeout, root, settings, cancel, warm)
+    return _run_job(str(path), job, python, timeout, root, settings, cancel, warm, hosted)
 
 
 def read_layout_file(path: str | Path, kind: str, *, python: str | None = None, timeout: float = 60.0,
@@ -87,16 +90,37 @@ def read_layout_file(path: str | Path, kind: str, *, python: str | None = None, 
 
 
 def _run_job(label: str, job: dict, python: str | None, timeout: float, root: str | None,
-             settings: SandboxSettings, cancel, warm: bool) -> RunOutcome:
+             settings: SandboxSettings, cancel, warm: bool, hosted: bool = False) -> RunOutcome:
     if not timeout or timeout <= 0:
         raise ValueError(f"timeout must be a positive number of seconds, got {timeout!r}")
     job["timeout"] = float(timeout)
     key = WorkerKey(python or sys.executable, root, settings, float(timeout))
+    if hosted:
+        outcome = _hosted_run(label, job, key, cancel)
+        if outcome is not None:
+            return outcome
     if warm and root is not None and _inside(job["script"], root):
         worker = SPARES.take(key, needs_reading=[root])
     else:
         worker = Worker.start(key, needs_reading=job["paths"] or [os.path.dirname(job["script"])])
     return _ChildRun(label, worker, job, cancel).execute()
+
+
+def _hosted_run(label: str, job: dict, key: WorkerKey, cancel) -> RunOutcome | None:
+    """The job in a corner host's child; None when no host could run it (one that
+    cannot start, or ends before it reports the job's end), so a plain worker runs it
+    and says what is wrong."""
+    needs = job["paths"] or [os.path.dirname(job["script"])]
+    for _attempt in range(2):  # an idle host may have died since its last job
+        try:
+            hosted = HOSTS.take(key, needs).submit()
+        except RunnerError:
+            continue
+        run = _ChildRun(label, hosted, job, cancel)
+        outcome = run.execute()
+        if not hosted.host_failed or run.stop_reason is not None:
+            return outcome
+    return None
 
 
 def _inside(path: str, folder: str) -> bool:
@@ -156,23 +180,23 @@ class _ChildRun:
             self.worker.discard()
         if self.stop_reason == "sandbox":
             raise SandboxUnavailable(f"{self.script}: " + unavailable_message(self.report.missing_required()))
-        return self._outcome(self.worker.process.returncode, time.monotonic() - started)
+        return self._outcome(self.worker.returncode, time.monotonic() - started)
 
     def _supervise(self, started: float) -> None:
-        process = self.worker.process
+        worker = self.worker
         selector = selectors.DefaultSelector()
-        sinks = {process.stdout.fileno(): self.output.feed, self.worker.result_r: self.result.extend,
-                 self.worker.control_r: self._control}
+        sinks = {worker.output_fd: self.output.feed, worker.result_r: self.result.extend,
+                 worker.control_r: self._control}
         for fd in sinks:
             selector.register(fd, selectors.EVENT_READ)
-        pidfd = _open_pidfd(process.pid)
-        if pidfd is not None:
-            selector.register(pidfd, selectors.EVENT_READ)
+        exit_fd = worker.exit_fd()
+        if exit_fd is not None:
+            selector.register(exit_fd, selectors.EVENT_READ)
         deadline = started + self.timeout + STARTUP_ALLOWANCE
         finished_seen = terminated = False
         kill_at = None
         try:
-            while not _exited(process.pid):
+            while not worker.exited():
                 now = time.monotonic()
                 if not finished_seen and b"\nfinished\n" in self.control:
                     finished_seen = True
@@ -184,20 +208,20 @@ class _ChildRun:
                     if self.worker.job_w in _registered(selector):
                         selector.unregister(self.worker.job_w)
                     self.worker.close_job_pipe()
-                    kill_group(process.pid, signal.SIGTERM)
+                    worker.signal(signal.SIGTERM)
                     kill_at = now + KILL_GRACE
                 elif kill_at is not None and now >= kill_at:
-                    kill_group(process.pid, signal.SIGKILL)
+                    worker.signal(signal.SIGKILL)
                     kill_at = None
                 if self._job_bytes is not None and self.stop_reason is None and self.worker.job_w is not None \
                         and self.worker.job_w not in _registered(selector):
                     os.set_blocking(self.worker.job_w, False)
                     selector.register(self.worker.job_w, selectors.EVENT_WRITE)
-                wait = _POLL if pidfd is not None else min(_POLL, 0.01)
+                wait = _POLL if exit_fd is not None else min(_POLL, 0.01)
                 if kill_at is not None:
                     wait = max(0.0, min(wait, kill_at - now))
                 for key, _events in selector.select(wait):
-                    if key.fd == pidfd:
+                    if key.fd == exit_fd:
                         continue
                     if key.fd == self.worker.job_w:
                         self._send_job(selector)
@@ -205,9 +229,9 @@ class _ChildRun:
                         self._read(selector, key.fd, sinks)
             # The child is gone (not yet reaped, so its group id cannot be reused):
             # end whatever it left running, then collect the pipes' last bytes.
-            kill_group(process.pid, signal.SIGKILL)
-            if pidfd is not None:
-                selector.unregister(pidfd)
+            worker.signal(signal.SIGKILL)
+            if exit_fd is not None:
+                selector.unregister(exit_fd)
             if self.worker.job_w in _registered(selector):
                 selector.unregister(self.worker.job_w)
             drain_until = time.monotonic() + _DRAIN_LIMIT
@@ -216,8 +240,6 @@ class _ChildRun:
                     self._read(selector, key.fd, sinks)
         finally:
             selector.close()
-            if pidfd is not None:
-                os.close(pidfd)
 
     def _control(self, chunk: bytes) -> None:
         """Control-pipe bytes; the sandbox report decides whether the job is sent."""
@@ -376,20 +398,6 @@ def _signal_name(number: int) -> str:
         return f"signal {number}"
 
 
-def _open_pidfd(pid: int) -> int | None:
-    try:
-        return os.pidfd_open(pid)
-    except (AttributeError, OSError):
-        return None
-
-
-def _exited(pid: int) -> bool:
-    """True once the child has ended, without reaping it."""
-    try:
-        info = os.waitid(os.P_PID, pid, os.WEXITED | os.WNOHANG | os.WNOWAIT)
-    except ChildProcessError:
-        return True
-    return info is not None
 
 
 def _registered(selector: selectors.BaseSelector) -> list[int]:

@@ -24,8 +24,8 @@ pipeline (server/pipeline.py). Shared by ``latchwatch check`` and the language s
   gdstk object is dropped, one that raises is a script-error like any other.
 
 Runs finish in any order; reports list them in the order planned, so a report does
-not depend on ``jobs``. Function calls take warm spare children (run_script's
-``warm``): while one corner runs, the next child is already importing gdstk.
+not depend on ``jobs``. Function calls run in children forked from corner hosts
+(server/hosts.py, run_script's ``hosted``), which have gdstk imported already.
 """
 
 from __future__ import annotations
@@ -267,7 +267,7 @@ def run_task(task: Task, settings: CheckSettings, source: str | None = None, can
         settings = replace(settings, top=None)  # a call's tops are the cells it returns
         outcome = run_script(task.path, source=source, python=settings.python, timeout=settings.timeout,
                              project_root=settings.project_root, cancel=cancel,
-                             require_sandbox=settings.require_sandbox, warm=True,
+                             require_sandbox=settings.require_sandbox, hosted=True,
                              call=(task.function, task.corner or {}), accept_non_layout=task.preview)
         outcome = replace(outcome, corner=dict(task.corner or {}))
     if outcome.status == "cancelled" or (cancel is not None and cancel.is_set()):

@@ -87,10 +87,14 @@ class Worker:
         self.result_r = result_r
         self.control_r = control_r
         self.job_w: int | None = job_w
+        self._pidfd: int | None = None
 
     @classmethod
-    def start(cls, key: WorkerKey, needs_reading: list[str]) -> Worker:
-        """Start the child; raises RunnerError when the interpreter cannot be started."""
+    def start(cls, key: WorkerKey, needs_reading: list[str], host_fd: int | None = None) -> Worker:
+        """Start the child; raises RunnerError when the interpreter cannot be started.
+
+        With ``host_fd`` (a socket) the child is a corner host (server/hosts.py): it runs
+        no job of its own and forks a child per job it receives there."""
         work = Path(tempfile.mkdtemp(prefix="latchwatch-run-"))
         result_r, result_w = os.pipe()
         control_r, control_w = os.pipe()
@@ -99,11 +103,16 @@ class Worker:
         config = sandbox.child_config(
             key.settings, probe=str(PROBE), work=str(work), result_fd=result_w, control_fd=control_w,
             job_fd=job_r, cpu_seconds=cpu_seconds(key.timeout), needs_reading=needs_reading)
+        env = child_environment(work)
+        if host_fd is not None:
+            config["host_fd"] = host_fd
+            env.update(dict.fromkeys(_THREAD_NAMES, "1"))  # a process with threads must not fork
         try:
             process = subprocess.Popen(
                 [key.python, "-I", str(SANDBOX_CHILD), json.dumps(config)], stdin=subprocess.DEVNULL,
-                stdout=subprocess.PIPE, stderr=subprocess.STDOUT, cwd=work, env=child_environment(work),
-                start_new_session=True, pass_fds=(result_w, control_w, job_r))
+                stdout=subprocess.PIPE if host_fd is None else subprocess.DEVNULL, stderr=subprocess.STDOUT,
+                cwd=work, env=env, start_new_session=True,
+                pass_fds=(result_w, control_w, job_r) + ((host_fd,) if host_fd is not None else ()))
         except OSError as error:
             for fd in (result_r, result_w, control_r, control_w, job_r, job_w):
                 os.close(fd)
@@ -112,6 +121,37 @@ class Worker:
         for fd in (result_w, control_w, job_r):
             os.close(fd)
         return cls(key, process, work, result_r, control_r, job_w)
+
+    # What server/runner.py supervises; server/hosts.py's HostedJob offers the same.
+
+    @property
+    def output_fd(self) -> int:
+        return self.process.stdout.fileno()
+
+    @property
+    def returncode(self) -> int | None:
+        return self.process.returncode
+
+    def exit_fd(self) -> int | None:
+        """A descriptor readable once the child has ended (a pidfd), or None: poll exited()."""
+        if self._pidfd is None:
+            try:
+                self._pidfd = os.pidfd_open(self.process.pid)
+            except (AttributeError, OSError):
+                self._pidfd = -1
+        return self._pidfd if self._pidfd >= 0 else None
+
+    def exited(self) -> bool:
+        """True once the child has ended, without reaping it (its group id stays taken)."""
+        try:
+            info = os.waitid(os.P_PID, self.process.pid, os.WEXITED | os.WNOHANG | os.WNOWAIT)
+        except ChildProcessError:
+            return True
+        return info is not None
+
+    def signal(self, sig: int) -> None:
+        """Signal the child's whole process group."""
+        kill_group(self.process.pid, sig)
 
     def alive(self) -> bool:
         return self.process.poll() is None
@@ -129,7 +169,11 @@ class Worker:
         self.close_job_pipe()
         kill_group(self.process.pid, signal.SIGKILL)
         self.process.wait()
-        self.process.stdout.close()
+        if self.process.stdout is not None:
+            self.process.stdout.close()
+        if self._pidfd is not None and self._pidfd >= 0:
+            os.close(self._pidfd)
+        self._pidfd = None
         for fd in (self.result_r, self.control_r):
             try:
                 os.close(fd)

@@ -1,10 +1,12 @@
 """Hostile scripts against the sandbox (DESIGN 7, issue 6): each test asserts that the
 run was contained, and skips only where `latchwatch doctor` reports the mechanism it
 needs as unavailable, with doctor's reason. Network tests connect only to listeners
-started here, on the loopback interface."""
+started here, on the loopback interface. Every test runs twice: in a fresh child, and
+in a child forked from a corner host (server/hosts.py), as sweep corners run."""
 
 from __future__ import annotations
 
+import functools
 import os
 import socket
 import sys
@@ -22,6 +24,14 @@ from latchwatch.server.workers import inspect_sandbox
 from procs import processes_with as _processes_with
 
 linux_only = pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")
+
+
+@pytest.fixture(autouse=True, params=[False, True], ids=["fresh-child", "corner-host"])
+def hosted(request, monkeypatch):
+    """The tests' run_script, in a fresh child or in a corner host's forked child."""
+    monkeypatch.setattr(sys.modules[__name__], "run_script", functools.partial(runner.run_script,
+                                                                               hosted=request.param))
+    return request.param
 
 
 @pytest.fixture(scope="module")

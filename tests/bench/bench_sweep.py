@@ -7,9 +7,11 @@ shapes). For each J (default: 1 and the number of cores) the sweep runs in a fre
 project folder through ``sweep.check_all`` (the code ``latchwatch check --sweep`` runs),
 R times; printed per J: the best and median wall time, corners per second, and the
 split of the best run into time in children (the sum of the runs' own seconds) and the
-rest (checking in this process, thread hand-over). Corner runs take warm spare
-children (server/sweep.py). The target is 50 corners in
-<= 5 s on a 2-core machine.
+rest (checking in this process, thread hand-over). Corner runs are forked from corner
+hosts (server/hosts.py). "cold" starts with no host, as every `latchwatch check` does
+(the hosts start with the first corners); "warm" finds the hosts of the previous
+sweep idle, as the language server does. The target is 50 corners in <= 5 s on a
+2-core machine.
 """
 
 from __future__ import annotations
@@ -26,7 +28,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from test_sweep import GENERATOR  # noqa: E402  (the cell of the sweep tests)
 
-from latchwatch.server import sweep, techfiles  # noqa: E402
+from latchwatch.server import hosts, sweep, techfiles  # noqa: E402
 from latchwatch.server.pipeline import CheckSettings  # noqa: E402
 
 
@@ -36,7 +38,9 @@ def corner_params(count: int) -> list[str]:
     return [f"fingers={fingers}", "w=1.0,2.0"]
 
 
-def one_sweep(folder: Path, count: int, jobs: int) -> tuple[float, float, int]:
+def one_sweep(folder: Path, count: int, jobs: int, cold: bool = True) -> tuple[float, float, int]:
+    if cold:
+        hosts.HOSTS.close()
     settings = CheckSettings(tech=techfiles.load_technology("demo", folder), timeout=30, project_root=folder)
     chosen = sweep.ad_hoc_sweep(folder / "fingers.py", "finger_array", corner_params(count))
     started = time.perf_counter()
@@ -57,18 +61,20 @@ def main() -> None:
     jobs_list = args.jobs or sorted({1, sweep.default_jobs()})
     print(f"{args.corners} corners of finger_array, {os.cpu_count()} cores, best and median of {args.repeat}; "
           f"load average {os.getloadavg()[0]:.2f}")
-    print(f"{'jobs':>4}  {'best s':>7}  {'median s':>8}  {'corners/s':>9}  {'in children s':>13}  {'rest s':>6}")
+    print(f"{'jobs':>4}  {'hosts':>5}  {'best s':>7}  {'median s':>8}  {'corners/s':>9}  {'in children s':>13}  "
+          f"{'rest s':>6}")
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
         (folder / "latchwatch.toml").write_text('tech = "demo"\n')
         (folder / "fingers.py").write_text(GENERATOR)
         one_sweep(folder, 2, 1)  # warm the file caches and this process's imports
         for jobs in jobs_list:
-            samples = [one_sweep(folder, args.corners, jobs) for _ in range(args.repeat)]
-            best = min(samples)
-            walls = [s[0] for s in samples]
-            print(f"{jobs:>4}  {best[0]:>7.2f}  {statistics.median(walls):>8.2f}  {best[2] / best[0]:>9.1f}  "
-                  f"{best[1]:>13.2f}  {max(0.0, best[0] - best[1] / jobs):>6.2f}")
+            for cold in (True, False):
+                samples = [one_sweep(folder, args.corners, jobs, cold) for _ in range(args.repeat)]
+                best = min(samples)
+                walls = [s[0] for s in samples]
+                print(f"{jobs:>4}  {'cold' if cold else 'warm':>5}  {best[0]:>7.2f}  {statistics.median(walls):>8.2f}  "
+                      f"{best[2] / best[0]:>9.1f}  {best[1]:>13.2f}  {max(0.0, best[0] - best[1] / jobs):>6.2f}")
 
 
 if __name__ == "__main__":
