@@ -67,7 +67,7 @@ def device_table(ctx) -> list[Device]:
                 bbox=tuple(round(float(v), 6) for v in bounds[i]), file=loc["file"], line=loc["line"],
                 body=body_name(kind, int(r.pieces.body[i])),
                 tap_distance_um=None if not np.isfinite(value) else round(float(value), 6),
-                net=net_names[i], shunt_ohm=ohm[i], trigger_current_a=trigger[i],
+                net=net_names[i], shunt_ohm=ohm[i], trigger_current_a=trigger[i], corner=ctx.outcome.corner,
             ))
     return rows
 

@@ -109,3 +109,4 @@ class Device:
     shunt_ohm: float | None = None
     trigger_current_a: float | None = None
     net: str | None = None  # names of the labelled nets its terminals are on, comma-separated
+    corner: dict | None = None  # the parameter corner of the run it came from (issue 7)

@@ -112,6 +112,7 @@ def device_to_dict(device: Device) -> dict:
         "shunt_ohm": number(device.shunt_ohm),
         "trigger_current_a": number(device.trigger_current_a),
         "net": device.net,
+        "corner": plain(device.corner),  # added compatibly: which corner's run the row is from
     }
 
 

@@ -9,7 +9,11 @@ pipeline (server/pipeline.py). Shared by ``latchwatch check`` and the language s
   checked as its corners only.
 - ``--param`` values: ``true``/``false`` (any case) are booleans, ``12``/``-3`` ints,
   ``0.5``/``1e-3`` floats, text in single or double quotes the string inside it, and
-  anything else the string as written. Commas always separate values.
+  anything else the string as written. Commas separate values, except inside the
+  quotes of a quoted value: ``label='a,b',c`` is the two strings ``a,b`` and ``c``.
+- ``--top CELL`` applies to corners as to plain runs: the cell is looked for among
+  the cells a corner's call returns and the cells they reference. A preview checks
+  what each function returns (``--top`` would name a cell of one function only).
 - ``--corners N`` samples N corners of the grid: first the lowest corner (every
   parameter at its minimum) and the highest (every one at its maximum), so that each
   parameter's minimum and maximum are run; then other combinations of minima and
@@ -111,10 +115,31 @@ def parse_param(text: str) -> tuple[str, list]:
     name = name.strip()
     if not equals or not name.isidentifier():
         raise SweepError(f"--param: expected NAME=V1,V2,... with NAME a Python identifier, got {text!r}")
-    items = values.split(",")
+    items = _split_values(values)
+    if items is None:
+        raise SweepError(f"--param {name}: a quote in {values!r} is not closed")
     if any(not item.strip() for item in items):
         raise SweepError(f"--param {name}: empty value in {values!r}; separate values with single commas")
     return name, [parse_value(item) for item in items]
+
+
+def _split_values(text: str) -> list[str] | None:
+    """``text`` split at commas outside quotes; None for an open quote. A quote opens
+    only at the start of a value, so ``it's`` is text as written."""
+    items, current, quote = [], [], None
+    for char in text:
+        if quote is None and char == ",":
+            items.append("".join(current))
+            current = []
+            continue
+        if quote is None and char in "'\"" and not "".join(current).strip():
+            quote = char
+        elif char == quote:
+            quote = None
+        current.append(char)
+    if quote is not None:
+        return None
+    return items + ["".join(current)]
 
 
 def ad_hoc_sweep(script: Path, function: str, param_texts: Iterable[str]) -> Sweep:
@@ -264,7 +289,8 @@ def run_task(task: Task, settings: CheckSettings, source: str | None = None, can
     if task.function is None:
         outcome = run_path(task.path, settings, source=source, cancel=cancel)
     else:
-        settings = replace(settings, top=None)  # a call's tops are the cells it returns
+        if task.preview:
+            settings = replace(settings, top=None)  # each previewed function's cells are its own tops
         outcome = run_script(task.path, source=source, python=settings.python, timeout=settings.timeout,
                              project_root=settings.project_root, cancel=cancel,
                              require_sandbox=settings.require_sandbox, hosted=True,

@@ -59,8 +59,8 @@ def example_report(devices=True):
 def test_design_example_is_reproduced_key_for_key_in_order(tmp_path):
     document = report_to_dict(example_report(), base=tmp_path)
     expected = dict(DESIGN_EXAMPLE, tool={"name": "latchwatch", "version": latchwatch.__version__})
-    # The devices table gained "net" after the design's example (a backward-compatible new key, last).
-    expected["devices"] = [dict(row, net=None) for row in DESIGN_EXAMPLE["devices"]]
+    # The devices table gained "net" and "corner" after the design's example (backward-compatible keys, last).
+    expected["devices"] = [dict(row, net=None, corner=None) for row in DESIGN_EXAMPLE["devices"]]
     summary = document.pop("summary")
     assert document == expected
     # Key order is part of the contract (DESIGN 5.2 lists it); dict equality ignores it.

@@ -113,6 +113,14 @@ def test_param_text_and_its_errors():
         sweep.ad_hoc_sweep(Path("g.py"), "f", ["w=1", "w=2"])
 
 
+def test_param_commas_inside_quotes_belong_to_the_value():
+    assert sweep.parse_param("label='a,b',c") == ("label", ["a,b", "c"])
+    assert sweep.parse_param('label="x, y", \'1,2\'') == ("label", ["x, y", "1,2"])
+    assert sweep.parse_param("note=it's,fine") == ("note", ["it's", "fine"])  # a quote opens only a value
+    with pytest.raises(sweep.SweepError, match="not closed"):
+        sweep.parse_param("label='a,b")
+
+
 def test_the_grid_varies_the_last_parameter_fastest():
     assert sweep.corner_grid({"fingers": [1, 4], "w": [0.5, 5.0]}) == [
         {"fingers": 1, "w": 0.5}, {"fingers": 1, "w": 5.0}, {"fingers": 4, "w": 0.5}, {"fingers": 4, "w": 5.0}]
@@ -265,6 +273,22 @@ def test_command_line_sweep_corners_and_jobs(project):
     assert "\r" not in run.stderr  # no progress bar: stderr is not a terminal
     text = latchwatch("check", "fingers.py", "--sweep", "finger_array", "--param", "fingers=16", cwd=project)
     assert f"fingers.py:{DIFFUSION_LINE}:5: error: " in text.stdout and "(corner fingers=16)" in text.stdout
+
+
+def test_command_line_sweep_devices_carry_their_corner_and_top_selects_a_cell(project):
+    run = latchwatch("check", "fingers.py", "--sweep", "finger_array", "--param", "fingers=1,16", "--devices",
+                     "--format", "json", cwd=project)
+    report = json.loads(run.stdout)
+    rows = {d["corner"]["fingers"]: d for d in report["devices"] if d["kind"] == "pdiff"}
+    # The module docstring's analytic distances: fingers * 1.5 + 1.5 um.
+    assert rows[1]["tap_distance_um"] == pytest.approx(3.0) and rows[16]["tap_distance_um"] == pytest.approx(25.5)
+    assert rows[16]["cell"] == "FINGERS_16"
+    chosen = latchwatch("check", "fingers.py", "--sweep", "finger_array", "--param", "fingers=16", "--top",
+                        "FINGERS_16", "--format", "json", cwd=project)
+    assert chosen.returncode == 1 and json.loads(chosen.stdout)["findings"][0]["cell"] == "FINGERS_16"
+    missing = latchwatch("check", "fingers.py", "--sweep", "finger_array", "--param", "fingers=16", "--top", "NOPE",
+                         cwd=project)
+    assert missing.returncode == 2 and "no cell named 'NOPE'" in missing.stderr and "FINGERS_16" in missing.stderr
 
 
 def test_command_line_runs_the_configured_sweep(project):
