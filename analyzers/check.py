@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass, replace
 from typing import Iterable
 
@@ -19,6 +20,10 @@ from .technology import Technology
 
 class TopCellError(ValueError):
     """--top names a cell the layout does not have."""
+
+
+INCOMPLETE = ("latchwatch could not complete this check{where}: {error} (at {place}). This is a fault in "
+              "latchwatch, not a verdict on the layout; the other rules ran. Please report it with the script")
 
 
 @dataclass
@@ -54,7 +59,7 @@ def check_outcome(outcome: RunOutcome, tech: Technology, options: CheckOptions =
     devices: list[Device] | None = [] if want_devices else None
     ctx = CheckContext(outcome, tech, options)
     for rule in rules:
-        findings.extend(rule.check(ctx))
+        findings.extend(_checked(rule, ctx))
     layout = outcome.layout
     shapes = 0
     if outcome.status == "ok" and layout is not None:
@@ -63,7 +68,7 @@ def check_outcome(outcome: RunOutcome, tech: Technology, options: CheckOptions =
             shapes += len(flat.polygons)
             ctx = CheckContext(outcome, tech, options, flat)
             for rule in rules:
-                findings.extend(rule.check(ctx))
+                findings.extend(_checked(rule, ctx, layout.cells[top].name))
             if want_devices:
                 devices.extend(device_table(ctx))
     if severity:
@@ -72,6 +77,21 @@ def check_outcome(outcome: RunOutcome, tech: Technology, options: CheckOptions =
         findings=sorted(_unique(findings), key=Finding.sort_key), devices=devices,
         cells=len(layout.cells) if layout else 0, shapes=shapes,
     )
+
+
+def _checked(rule: Rule, ctx: CheckContext, cell: str | None = None) -> list[Finding]:
+    """The rule's findings; if the rule itself fails, one error finding saying so, so that
+    a fault in one rule neither hides the others' findings nor passes a gate silently."""
+    try:
+        return list(rule.check(ctx))
+    except Exception as error:  # noqa: BLE001 - any fault of a rule is reported, not raised
+        import traceback
+
+        frame = traceback.extract_tb(error.__traceback__)[-1]
+        place = f"{os.path.basename(frame.filename)} line {frame.lineno}"
+        where = f" on cell {cell}" if cell else ""
+        message = INCOMPLETE.format(where=where, error=f"{type(error).__name__}: {error}", place=place)
+        return [ctx.run_finding(rule, message, cell=cell).with_severity(Severity.ERROR)]
 
 
 def _unique(findings: list[Finding]) -> list[Finding]:
