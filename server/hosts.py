@@ -42,7 +42,10 @@ class Host:
 
     @classmethod
     def start(cls, key: WorkerKey, needs_reading: list[str]) -> Host:
-        ours, theirs = socket.socketpair(socket.AF_UNIX, socket.SOCK_SEQPACKET)
+        try:
+            ours, theirs = socket.socketpair(socket.AF_UNIX, socket.SOCK_SEQPACKET)
+        except (AttributeError, OSError) as error:  # no such socket here: the runner uses a fresh child
+            raise RunnerError(f"no corner host on this system: {error}") from None
         try:
             worker = Worker.start(key, needs_reading, host_fd=theirs.fileno())
         finally:

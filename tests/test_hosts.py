@@ -203,3 +203,14 @@ def test_host_settings_are_part_of_its_key(tmp_path, fresh_pool):
     settings = {slot[0].settings for slot in fresh_pool._idle}
     assert settings == {SandboxSettings(), SandboxSettings(skip=frozenset({"landlock"}))}
     assert os.path.isdir(next(iter(fresh_pool._idle.values()))[0].worker.work)
+
+
+def test_without_host_sockets_jobs_run_in_fresh_children(tmp_path, monkeypatch):
+    def refuse(*args):
+        raise OSError(94, "Socket type not supported")
+
+    monkeypatch.setattr(hosts.socket, "socketpair", refuse)
+    path = _script(tmp_path)
+    outcome = _call(path)
+    assert outcome.status == "ok", outcome.failure
+    assert [c.name for c in outcome.layout.cells] == ["TOP"]
