@@ -79,3 +79,25 @@ def test_invalid_polygon_is_repaired_and_recorded():
     assert flat.invalid_reason[1]  # GEOS names what is wrong with a zero-width box
     assert shapely.is_valid(flat.polygons).all()
     assert flat.polygons[0].area == pytest.approx(2.0)  # two triangles of the bow tie
+
+
+def test_polygons_from_rings_match_shapely_polygons_one_by_one():
+    """The ragged-array build against shapely.polygons (the reference library) on rings
+    of 1 to 9 vertices, non-convex ones and a NaN vertex included."""
+    from latchwatch.analyzers.flatten import _polygons_from_rings
+
+    rng = np.random.default_rng(3)
+    counts = rng.integers(1, 10, 400)
+    coords = rng.uniform(-50, 50, (int(counts.sum()), 2))
+    coords[7] = np.nan
+    offsets = np.concatenate([[0], np.cumsum(counts)])
+    built = _polygons_from_rings(coords, offsets)
+    for i, count in enumerate(counts):
+        ring = coords[offsets[i]:offsets[i + 1]]
+        if count < 3:
+            assert built[i].is_empty
+        else:
+            with np.errstate(invalid="ignore"):  # shapely warns of the NaN vertex
+                reference = shapely.polygons(ring)
+            assert np.array_equal(shapely.get_coordinates(built[i]), shapely.get_coordinates(reference),
+                                  equal_nan=True), i
