@@ -301,7 +301,10 @@ def test_deep_recursion_past_the_c_stack_is_a_clear_error_at_its_line(tmp_path):
     outcome = run_script(path, timeout=20)
     assert outcome.status == "error" and time.monotonic() - started < 10
     assert outcome.failure.exc_type == "RecursionError" or "recursion deeper than the C stack" in outcome.failure.message
-    assert (outcome.failure.frames[0].file, outcome.failure.frames[0].line) == (str(path), 5)
+    # The overflow strikes inside down(): on its call line, or while entering the frame,
+    # which faulthandler reports at the def line.
+    innermost = outcome.failure.frames[0]
+    assert (innermost.file, innermost.function) == (str(path), "down") and innermost.line in (4, 5)
 
 
 def test_300_mb_of_output_stops_the_run_and_keeps_the_log_small(tmp_path):
