@@ -25,7 +25,7 @@ import socket
 import threading
 from collections import OrderedDict
 
-from .workers import RunnerError, Worker, WorkerKey
+from .workers import RunnerError, Worker, WorkerKey, close_quietly
 
 RETIRE_AFTER = 500
 _STATUS_WAIT = 2.0  # s to wait for a killed job's status before the host is given up
@@ -52,8 +52,7 @@ class Host:
             theirs.close()
         # The host's own pipes carry nothing a job needs: its sandbox is reported per job.
         worker.close_job_pipe()
-        for fd in (worker.result_r, worker.control_r):
-            os.close(fd)
+        close_quietly(worker.result_r, worker.control_r)
         worker.result_r = worker.control_r = -1
         return cls(worker, ours, tuple(needs_reading))
 
@@ -100,12 +99,10 @@ class HostedJob:
         try:
             host.say(f"job {serial}", theirs)
         except OSError as error:
-            for fd in (self.output_fd, self.result_r, self.control_r, self.job_w, self.status_r):
-                os.close(fd)
+            close_quietly(self.output_fd, self.result_r, self.control_r, self.job_w, self.status_r)
             raise RunnerError(f"the corner host is gone: {error}") from None
         finally:
-            for fd in theirs:
-                os.close(fd)
+            close_quietly(*theirs)
         os.set_blocking(self.status_r, False)
         self._status = bytearray()
         self._ended = False
@@ -142,12 +139,8 @@ class HostedJob:
             pass
 
     def close_job_pipe(self) -> None:
-        if self.job_w is not None:
-            try:
-                os.close(self.job_w)
-            except OSError:
-                pass
-            self.job_w = None
+        close_quietly(self.job_w)
+        self.job_w = None
 
     def discard(self) -> None:
         """Free the job's pipes; the host goes back to the pool if it reported the job's end."""
@@ -156,11 +149,7 @@ class HostedJob:
             self.signal(signal.SIGKILL)
             _wait_readable(self.status_r, _STATUS_WAIT)
             self.exited()
-        for fd in (self.output_fd, self.result_r, self.control_r, self.status_r):
-            try:
-                os.close(fd)
-            except OSError:
-                pass
+        close_quietly(self.output_fd, self.result_r, self.control_r, self.status_r)
         if self.returncode is not None:
             HOSTS.give_back(self.host)
         else:

@@ -157,12 +157,8 @@ class Worker:
         return self.process.poll() is None
 
     def close_job_pipe(self) -> None:
-        if self.job_w is not None:
-            try:
-                os.close(self.job_w)
-            except OSError:
-                pass
-            self.job_w = None
+        close_quietly(self.job_w)
+        self.job_w = None
 
     def discard(self) -> None:
         """End the child and everything in its group, reap it, free its pipes and folder."""
@@ -171,14 +167,8 @@ class Worker:
         self.process.wait()
         if self.process.stdout is not None:
             self.process.stdout.close()
-        if self._pidfd is not None and self._pidfd >= 0:
-            os.close(self._pidfd)
+        close_quietly(self._pidfd, self.result_r, self.control_r)
         self._pidfd = None
-        for fd in (self.result_r, self.control_r):
-            try:
-                os.close(fd)
-            except OSError:
-                pass
         shutil.rmtree(self.work, ignore_errors=True)
 
 
@@ -236,6 +226,16 @@ class SparePool:
 
 SPARES = SparePool()
 atexit.register(SPARES.close)
+
+
+def close_quietly(*fds: int | None) -> None:
+    """Close each descriptor; None, -1 and ones already closed are left alone."""
+    for fd in fds:
+        if fd is not None and fd >= 0:
+            try:
+                os.close(fd)
+            except OSError:
+                pass
 
 
 def kill_group(pgid: int, sig: int) -> None:
