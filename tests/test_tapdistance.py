@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 import shapely
-from hypothesis import given, settings, strategies as st
+from hypothesis import example, given, settings, strategies as st
 
 from latchwatch.analyzers.tapdistance import DEFAULT_TOL, TapIndex, farthest_from_taps
 
@@ -62,7 +62,10 @@ def test_exactly_at_the_limit_passes_and_one_hundredth_beyond_fails():
 def _dense_reference(diff, tap_geoms, step):
     """Slow, obviously correct: sample the diffusion on a fine grid plus its vertices."""
     x0, y0, x1, y1 = diff.bounds
-    xs, ys = np.meshgrid(np.arange(x0, x1 + step, step), np.arange(y0, y1 + step, step))
+    # linspace, not arange: the edges themselves are sampled (arange's last row can land
+    # a rounding error outside the diffusion and lose the edge, where the farthest point is).
+    xs, ys = np.meshgrid(np.linspace(x0, x1, int(np.ceil((x1 - x0) / step)) + 1),
+                         np.linspace(y0, y1, int(np.ceil((y1 - y0) / step)) + 1))
     pts = np.column_stack([xs.ravel(), ys.ravel()])
     pts = np.concatenate([pts, shapely.get_coordinates(diff)])
     inside = shapely.covers(diff, shapely.points(pts))
@@ -77,6 +80,9 @@ rect = st.tuples(
 
 @settings(max_examples=60, deadline=None)
 @given(diff=rect, taps=st.lists(rect, min_size=1, max_size=4), angle=st.floats(0, 180))
+# Found by hypothesis: the farthest point is mid-edge, (1.5, 2), sqrt(1.25) = 1.118 um
+# from both tap corners (analytic); the old arange grid lost that edge row.
+@example(diff=shapely.box(0, 1, 2, 2), taps=[shapely.box(0, 0, 1, 1), shapely.box(2, 0, 3, 1)], angle=0.0)
 def test_matches_dense_sampling(diff, taps, angle):
     from shapely import affinity
 
