@@ -30,6 +30,7 @@ TOP_LEVEL_KEYS = (
     "electrical",
 )
 NET_KEYS = ("power", "ground", "pads")
+DOUBLE_KINDS = ("ndiff", "pdiff")  # [rules.io-guard-ring] double for one kind of device (the devices table's names)
 RULE_KEYS = {
     "tap-distance": ("limit", "limit_n", "limit_p", "by_spacing"),
     "io-guard-ring": ("min_width", "max_gap", "double"),
@@ -397,8 +398,9 @@ class _Checker:
                 if key == "by_spacing":
                     checked[key] = self.spacing_table(item, f"{prefix}.by_spacing")
                 elif key == "double":
-                    if not isinstance(item, bool):
-                        raise self.fail(f"{prefix}.double", "true or false", item)
+                    # true/false, or one device kind: double rings for pad-connected N+ only, say
+                    if not isinstance(item, bool) and item not in DOUBLE_KINDS:
+                        raise self.fail(f"{prefix}.double", 'true, false, "ndiff" or "pdiff"', item)
                     checked[key] = item
                 else:
                     checked[key] = self.number(item, f"{prefix}.{key}")

@@ -136,6 +136,8 @@ def describe_technology(tech: Technology) -> str:
                 out += [f"      >= {row.min_spacing:.2f} um: {row.limit:.2f} um" for row in value]
             elif isinstance(value, bool):
                 out.append(f"    {key:<10} {'yes' if value else 'no'}")
+            elif isinstance(value, str):  # double = "ndiff" or "pdiff"
+                out.append(f"    {key:<10} {value} only")
             else:
                 out.append(f"    {key:<10} {value:.2f} um")
     out += ["", "electrical"]

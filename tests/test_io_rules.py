@@ -24,6 +24,14 @@ def gf180():
 
 
 @pytest.fixture(scope="module")
+def gf180_p_ring_only(gf180):
+    """GF180MCU without IO.1's second (Nwell) ring: the P+ ring's own limits alone."""
+    data = gf180.to_mapping()
+    data["rules"]["io-guard-ring"]["double"] = False
+    return technology_from_mapping(data, "gf180mcu, P+ ring only")
+
+
+@pytest.fixture(scope="module")
 def demo():
     return load_technology("demo")
 
@@ -64,29 +72,52 @@ def pad_pmos_in_well(L, space=15.0, w=2.0):
 
 # --- GF180MCU IO.1 - IO.4 ----------------------------------------------------------------
 
-def test_gf180_ring_at_15_um_and_2_um_wide_passes(gf180):
+def test_gf180_ring_at_15_um_and_2_um_wide_passes(gf180_p_ring_only):
     # GF180MCU design manual, 56_IO_Latch-up1_156.csv IO.1: ring no more than 15 um away;
     # IO.2: ring width >= 2 um. Exactly at both limits: no finding.
     c = ring(pad_nmos(GF), GF, "pplus", -17, -17, 27, 21, 2.0)
-    assert findings(c, gf180, "io-guard-ring") == []
+    assert findings(c, gf180_p_ring_only, "io-guard-ring") == []
 
 
-def test_gf180_ring_one_hundredth_too_far_fails(gf180):
+def test_gf180_ring_one_hundredth_too_far_fails(gf180_p_ring_only):
     # GF180MCU IO.1 (56_IO_Latch-up1_156.csv): 15 um; the right side 15.01 um away fails.
     c = ring(pad_nmos(GF), GF, "pplus", -17, -17, 27.01, 21, 2.0)
-    [f] = findings(c, gf180, "io-guard-ring")
+    [f] = findings(c, gf180_p_ring_only, "io-guard-ring")
     assert f.value == pytest.approx(15.01, abs=1e-3) and f.limit == 15.0
     assert "up to 15.01 um from its P+ guard ring" in f.message
     assert f.location[0] == pytest.approx(10.0)  # on the diffusion's right edge
 
 
-def test_gf180_ring_one_hundredth_too_narrow_fails(gf180):
+def test_gf180_ring_one_hundredth_too_narrow_fails(gf180_p_ring_only):
     # GF180MCU IO.2 (56_IO_Latch-up1_156.csv): width >= 2 um; a 1.99 um top side fails.
     c = ring(pad_nmos(GF), GF, "pplus", -17, -17, 27, 21, 2.0, skip=("top",))
     c.rect(GF["active"], -17, 19, 27, 20.99).rect(GF["pplus"], -17, 19, 27, 20.99)
-    [f] = findings(c, gf180, "io-guard-ring")
+    [f] = findings(c, gf180_p_ring_only, "io-guard-ring")
     assert f.value == pytest.approx(1.99, abs=1e-3) and f.limit == 2.0
     assert "1.99 um wide" in f.message and 19 <= f.location[1] <= 20.99
+
+
+def nwell_ring(cell, L, x0, y0, x1, y1, w):
+    """An N+ tap ring of width w with outer edge (x0, y0)-(x1, y1) in an n-well frame 0.5 um wider all round."""
+    for box in ((x0 - 0.5, y0 - 0.5, x1 + 0.5, y0 + w + 0.5), (x0 - 0.5, y1 - w - 0.5, x1 + 0.5, y1 + 0.5),
+                (x0 - 0.5, y0 - 0.5, x0 + w + 0.5, y1 + 0.5), (x1 - w - 0.5, y0 - 0.5, x1 + 0.5, y1 + 0.5)):
+        cell.rect(L["nwell"], *box)
+    return ring(cell, L, "nplus", x0, y0, x1, y1, w)
+
+
+def test_gf180_pad_nmos_needs_its_nwell_ring_within_15_um(gf180):
+    # GF180MCU 56_IO_Latch-up1_156.csv IO.1: N+ tied to a pad surrounded by a substrate tap
+    # and an Nwell guard ring no more than 15 um away; IO.2: width >= 2 um. A P+ ring 3 um
+    # away, and the Nwell ring's inner edge exactly 15 um away: no finding.
+    c = ring(pad_nmos(GF), GF, "pplus", -5, -5, 15, 9, 2.0)
+    [f] = findings(c, gf180, "io-guard-ring")
+    assert f.message == ("no N+ guard ring surrounds the P+ guard ring of a pad-connected N+ diffusion "
+                         "(double rings required)")
+    assert findings(nwell_ring(c, GF, -17, -17, 27, 21, 2.0), gf180, "io-guard-ring") == []
+    far = nwell_ring(ring(pad_nmos(GF), GF, "pplus", -5, -5, 15, 9, 2.0), GF, -17, -17, 27.01, 21, 2.0)
+    [f] = findings(far, gf180, "io-guard-ring")
+    assert f.value == pytest.approx(15.01, abs=1e-3) and f.limit == 15.0
+    assert "up to 15.01 um from its outer N+ guard ring" in f.message
 
 
 def test_gf180_pmos_needs_an_nwell_tap_ring(gf180):
@@ -146,6 +177,15 @@ def test_double_rings(demo):
         c.rect(NWELL, *box)
     ring(c, DEMO, "nplus", -8.5, -8.5, 18.5, 12.5, 2)
     assert findings(c, double, "io-guard-ring") == []
+
+
+@pytest.mark.parametrize("kind, outer_needed", [("ndiff", True), ("pdiff", False)])
+def test_double_rings_for_one_device_kind(demo, kind, outer_needed):
+    data = demo.to_mapping()
+    data["rules"]["io-guard-ring"]["double"] = kind
+    tech = technology_from_mapping(data, f"demo with double rings for {kind}")
+    single = ring(pad_nmos(DEMO), DEMO, "pplus", -4, -4, 14, 8, 2)  # one P+ ring round a pad N+
+    assert len(findings(single, tech, "io-guard-ring")) == (1 if outer_needed else 0)
 
 
 def test_pad_connected_through_a_labelled_net(demo):

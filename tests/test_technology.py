@@ -178,9 +178,12 @@ def test_by_spacing_row_errors_name_the_row():
     assert err.key == "rules.tap-distance.by_spacing[1].min_spacing"
 
 
-def test_double_must_be_boolean():
+def test_double_is_a_boolean_or_a_device_kind():
     err = error_for(minimal(rules={"io-guard-ring": {"double": "yes"}}))
-    assert err.key == "rules.io-guard-ring.double" and err.expected == "true or false"
+    assert err.key == "rules.io-guard-ring.double" and err.expected == 'true, false, "ndiff" or "pdiff"'
+    for value in (True, False, "ndiff", "pdiff"):
+        tech = technology_from_mapping(minimal(rules={"io-guard-ring": {"double": value}}), "t")
+        assert tech.rules["io-guard-ring"]["double"] == value
 
 
 @pytest.mark.parametrize("data, key, suggestion", [

@@ -21,16 +21,13 @@ MESSAGE_NONE = "pad-connected {what} has no {ring} guard ring: no {tap} within {
 MESSAGE_OPEN = "pad-connected {what} has an open {ring} guard ring: a gap{width} at ({x:.2f}, {y:.2f}){more}"
 MESSAGE_WRONG = ("pad-connected {what} is surrounded only by an {other} ring ({other_tap}), not the {ring} "
                  "guard ring ({tap}) it needs")
-MESSAGE_NARROW = ("{ring} guard ring around a pad-connected {what} is {width:.2f} um wide at ({x:.2f}, {y:.2f}) "
+MESSAGE_NARROW = ("{name} around a pad-connected {what} is {width:.2f} um wide at ({x:.2f}, {y:.2f}) "
                   "(minimum {limit:.2f} um)")
-MESSAGE_FAR = ("pad-connected {what} lies up to {value:.2f} um from its {ring} guard ring, at "
+MESSAGE_FAR = ("pad-connected {what} lies up to {value:.2f} um from its {name}, at "
                "({x:.2f}, {y:.2f}) (limit {limit:.2f} um)")
-MESSAGE_BARE = "{ring} guard ring around a pad-connected {what} encloses no contact"
+MESSAGE_BARE = "{name} around a pad-connected {what} encloses no contact"
 MESSAGE_NO_OUTER = ("no {other} guard ring surrounds the {ring} guard ring of a pad-connected {what} "
                     "(double rings required)")
-MESSAGE_OUTER_NARROW = ("outer {other} guard ring around a pad-connected {what} is {width:.2f} um wide at "
-                        "({x:.2f}, {y:.2f}) (minimum {limit:.2f} um)")
-MESSAGE_OUTER_BARE = "outer {other} guard ring around a pad-connected {what} encloses no contact"
 
 
 class _Kind:
@@ -77,6 +74,7 @@ def check(ctx):
 
 def _check_kind(ctx, k: _Kind, devices: np.ndarray, params):
     min_width, max_gap, double = params.get("min_width"), params.get("max_gap"), params.get("double", False)
+    double = double is True or double == ("ndiff" if k.kind == "n" else "pdiff")
     geoms, body = k.pieces.geoms[devices], k.pieces.body[devices]
     own_hole = rings.innermost_holes(k.own, geoms, lambda d, r: k.own.body[r] == body[d])
     other_hole = rings.innermost_holes(k.other, geoms, lambda d, r: np.ones(len(d), bool))
@@ -100,35 +98,59 @@ def _check_kind(ctx, k: _Kind, devices: np.ndarray, params):
             if f is not None:
                 yield f
             continue
-        region = int(k.own.hole_owner[hole])
-        ring_geom, hole_geom = k.own.geoms[region], k.own.holes[hole]
-        ring_text = f"{words['ring']} guard ring"
-        if min_width is not None:
-            narrow = rings.narrowest_band(ring_geom, hole_geom, geoms[n], min_width)
-            if narrow is not None:
-                x, y = narrow.location
-                f = finding("narrow", MESSAGE_NARROW.format(width=narrow.width, x=x, y=y, limit=min_width, **words),
-                            narrow.location, _ring_piece(k.own, k.own_taps, region, narrow.location), ring_text,
-                            value=narrow.width, limit=min_width, unit="um")
+        inner = _Ring(k.own, k.own_taps, hole, f"{words['ring']} guard ring", "")
+        yield from _judge(inner, geoms[n], geoms[n], min_width, max_gap, words, finding)
+        if double:
+            ring_geom = inner.geom
+            outer = rings.innermost_holes(k.other, np.array([ring_geom], dtype=object),
+                                          lambda d, r: np.ones(len(d), bool))[0]
+            if outer < 0:
+                f = finding("no-outer", MESSAGE_NO_OUTER.format(**words), None, None, "")
                 if f is not None:
                     yield f
-        if max_gap is not None:
-            value, point = rings.farthest_on_line(shapely.get_exterior_ring(geoms[n]),
-                                                  np.array([ring_geom], dtype=object))
-            if value > max_gap + SLACK:
-                f = finding("far", MESSAGE_FAR.format(value=value, x=point[0], y=point[1], limit=max_gap, **words),
-                            point, _ring_piece(k.own, k.own_taps, region, point), ring_text,
-                            value=value, limit=max_gap, unit="um")
-                if f is not None:
-                    yield f
-        if not k.own.contacted[region]:
-            where = shapely.get_coordinates(shapely.point_on_surface(ring_geom))[0]
-            f = finding("bare", MESSAGE_BARE.format(**words), where,
-                        _ring_piece(k.own, k.own_taps, region, where), ring_text)
+                continue
+            outer_ring = _Ring(k.other, k.other_taps, outer, f"outer {words['other']} guard ring", "outer-")
+            yield from _judge(outer_ring, ring_geom, geoms[n], min_width, max_gap, words, finding)
+
+
+class _Ring:
+    """A closed ring: the tap region owning ``hole``, how messages name it, its finding codes' prefix."""
+
+    def __init__(self, regions: rings.TapRegions, taps, hole: int, name: str, code: str):
+        self.regions, self.taps, self.name, self.code = regions, taps, name, code
+        self.region = int(regions.hole_owner[hole])
+        self.geom, self.hole = regions.geoms[self.region], regions.holes[hole]
+
+    def piece(self, location) -> int:
+        return _ring_piece(self.regions, self.taps, self.region, location)
+
+
+def _judge(ring: _Ring, inside, device, min_width, max_gap, words, finding):
+    """Width (of the band around ``inside``), distance from the device and contact of one ring."""
+    words = dict(words, name=ring.name)
+    if min_width is not None:
+        narrow = rings.narrowest_band(ring.geom, ring.hole, inside, min_width)
+        if narrow is not None:
+            x, y = narrow.location
+            f = finding(ring.code + "narrow", MESSAGE_NARROW.format(width=narrow.width, x=x, y=y, limit=min_width,
+                                                                    **words),
+                        narrow.location, ring.piece(narrow.location), ring.name,
+                        value=narrow.width, limit=min_width, unit="um")
             if f is not None:
                 yield f
-        if double:
-            yield from _outer_ring(k, ring_geom, min_width, words, finding)
+    if max_gap is not None:
+        value, point = rings.farthest_on_line(shapely.get_exterior_ring(device), np.array([ring.geom], dtype=object))
+        if value > max_gap + SLACK:
+            f = finding(ring.code + "far", MESSAGE_FAR.format(value=value, x=point[0], y=point[1], limit=max_gap,
+                                                              **words),
+                        point, ring.piece(point), ring.name, value=value, limit=max_gap, unit="um")
+            if f is not None:
+                yield f
+    if not ring.regions.contacted[ring.region]:
+        where = shapely.get_coordinates(shapely.point_on_surface(ring.geom))[0]
+        f = finding(ring.code + "bare", MESSAGE_BARE.format(**words), where, ring.piece(where), ring.name)
+        if f is not None:
+            yield f
 
 
 def _missing_ring(ctx, k, n, i, geom, other_hole, min_width, max_gap, words, finding):
@@ -161,35 +183,6 @@ def _missing_ring(ctx, k, n, i, geom, other_hole, min_width, max_gap, words, fin
                    value=gap.width, unit="um" if gap.width is not None else None)
 
 
-def _outer_ring(k, ring_geom, min_width, words, finding):
-    outer = rings.innermost_holes(k.other, np.array([ring_geom], dtype=object),
-                                  lambda d, r: np.ones(len(d), bool))[0]
-    if outer < 0:
-        f = finding("no-outer", MESSAGE_NO_OUTER.format(**words), None, None, "")
-        if f is not None:
-            yield f
-        return
-    region = int(k.other.hole_owner[outer])
-    geom = k.other.geoms[region]
-    text = f"outer {words['other']} guard ring"
-    if min_width is not None:
-        narrow = rings.narrowest_band(geom, k.other.holes[outer], ring_geom, min_width)
-        if narrow is not None:
-            x, y = narrow.location
-            f = finding("outer-narrow", MESSAGE_OUTER_NARROW.format(width=narrow.width, x=x, y=y, limit=min_width,
-                                                                     **words),
-                        narrow.location, _ring_piece(k.other, k.other_taps, region, narrow.location), text,
-                        value=narrow.width, limit=min_width, unit="um")
-            if f is not None:
-                yield f
-    if not k.other.contacted[region]:
-        where = shapely.get_coordinates(shapely.point_on_surface(geom))[0]
-        f = finding("outer-bare", MESSAGE_OUTER_BARE.format(**words), where,
-                    _ring_piece(k.other, k.other_taps, region, where), text)
-        if f is not None:
-            yield f
-
-
 RULE = Rule(
     id="io-guard-ring",
     severity=Severity.ERROR,
@@ -207,7 +200,9 @@ RULE = Rule(
             "to 1 nm; the erosion draws arcs with 32 chords per quarter circle, which can let a ring pass at "
             "most r(1 - cos(pi/128)), 0.03 nm at 2 um, narrower than asked); max_gap, no point of the diffusion's edge may lie farther than that from the ring "
             "(its inner edge; exact to 1 nm), so a ring spaced max_gap away on every side passes; double = true, a closed ring of the "
-            "opposite type must surround the first. The ring must also enclose a contact. Only the innermost "
+            "opposite type must surround the first, held to the same width, to the same max_gap from the diffusion "
+            "and to a contact (double = \"ndiff\" or \"pdiff\" asks it for pad-connected N+ or P+ only). The "
+            "ring must also enclose a contact. Only the innermost "
             "ring of the right type is judged. An open ring (taps that a closing with a radius up to max_gap "
             "makes surround the diffusion, with most of the closed hole's edge tap) is reported with the place "
             "and width of its gap, a ring of the wrong type as such, and anything else as no ring."
