@@ -8,6 +8,9 @@ drained at the same time and capped. On a timeout, a cancel or an exceeded cap t
 whole process group is ended, and again after every run; the child's keeper ends
 whatever escaped the group (a PID namespace, or a sweep as child subreaper).
 
+The child is a fresh worker, a warm spare, or (``hosted``) a fork of a corner host
+(server/hosts.py); this module supervises all three through the same members.
+
 A job is a JSON object (server/probe.py, options_from_job): a plain run, or a
 function call of a parameter corner; another kind of job needs only a new key there
 and a new keyword here.
