@@ -116,8 +116,13 @@ def _hosted_run(label: str, job: dict, key: WorkerKey, cancel) -> RunOutcome | N
     needs = job["paths"] or [os.path.dirname(job["script"])]
     for _attempt in range(2):  # an idle host may have died since its last job
         try:
-            hosted = HOSTS.take(key, needs).submit()
+            host = HOSTS.take(key, needs)
         except RunnerError:
+            continue
+        try:
+            hosted = host.submit()
+        except RunnerError:
+            host.close()
             continue
         run = _ChildRun(label, hosted, job, cancel)
         outcome = run.execute()

@@ -7,6 +7,7 @@ that fails or times out leaves the host serving, a host that dies is replaced.""
 from __future__ import annotations
 
 import os
+import signal
 import textwrap
 import threading
 from pathlib import Path
@@ -214,3 +215,15 @@ def test_without_host_sockets_jobs_run_in_fresh_children(tmp_path, monkeypatch):
     outcome = _call(path)
     assert outcome.status == "ok", outcome.failure
     assert [c.name for c in outcome.layout.cells] == ["TOP"]
+
+
+def test_a_host_that_died_while_idle_is_replaced_and_reaped(tmp_path, fresh_pool, monkeypatch):
+    path = _script(tmp_path)
+    assert _call(path).status == "ok"
+    [dead] = [h for idle in fresh_pool._idle.values() for h in idle]
+    dead.worker.signal(signal.SIGKILL)
+    dead.worker.process.wait()
+    monkeypatch.setattr(hosts.Host, "alive", lambda self: True)  # as if it died just after the check
+    outcome = _call(path)
+    assert outcome.status == "ok", outcome.failure
+    assert not dead.worker.work.exists() and dead.channel.fileno() == -1  # closed, folder gone
