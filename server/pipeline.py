@@ -37,7 +37,7 @@ class CheckSettings:
     devices: bool = False
     project_root: Path | None = None
     require_sandbox: bool = False  # a missing sandbox protection is an error (SandboxUnavailable), not a fallback
-    warm: bool = False  # runs take a spare child started ahead (the language server's repeated runs)
+    hosted: bool = False  # runs are forks of corner hosts (server/hosts.py): many runs, the same settings
 
 
 def is_checkable(path: Path) -> bool:
@@ -60,16 +60,15 @@ def expand_paths(paths: Iterable[Path], excluded: Callable[[Path], bool] = lambd
     return out
 
 
-def run_path(path: Path, settings: CheckSettings, source: str | None = None, cancel=None,
-             warm: bool | None = None) -> RunOutcome:
-    """Run a script, or read a layout file, into a RunOutcome; ``warm`` overrides settings.warm."""
+def run_path(path: Path, settings: CheckSettings, source: str | None = None, cancel=None) -> RunOutcome:
+    """Run a script, or read a layout file, into a RunOutcome."""
     if path.suffix.lower() in LAYOUT_SUFFIXES:  # read in a child too: gdstk can crash on a corrupt file
         kind = "oas" if path.suffix.lower() in (".oas", ".oasis") else "gds"
         return read_layout_file(path, kind, python=settings.python, timeout=max(settings.timeout, 60.0),
                                 cancel=cancel, require_sandbox=settings.require_sandbox)
     return run_script(path, source=source, python=settings.python, timeout=settings.timeout,
                       project_root=settings.project_root, cancel=cancel, require_sandbox=settings.require_sandbox,
-                      warm=settings.warm if warm is None else warm)
+                      hosted=settings.hosted)
 
 
 def check_run(outcome: RunOutcome, settings: CheckSettings, read_source=None) -> tuple[list[Finding], list, RunSummary]:

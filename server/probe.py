@@ -3,7 +3,8 @@
 Loaded by server/sandbox_child.py once the child is confined, which then calls
 ``serve(config)``: the probe imports gdstk and numpy, says ``ready`` on the control
 pipe and waits for its job on the job pipe (a JSON object, see options_from_job), so a
-warm spare can be started before the job is known. It must stay self-contained
+child can be started before its job is known (a corner host forks it, server/hosts.py,
+after the imports). It must stay self-contained
 (standard library, numpy and gdstk only): the interpreter may be the user's own, which
 has gdstk but not latchwatch. Written for Python 3.8 and later. A job with ``call``
 imports the script as a module instead (not as ``__main__``) and collects the

@@ -8,8 +8,8 @@ drained at the same time and capped. On a timeout, a cancel or an exceeded cap t
 whole process group is ended, and again after every run; the child's keeper ends
 whatever escaped the group (a PID namespace, or a sweep as child subreaper).
 
-The child is a fresh worker, a warm spare, or (``hosted``) a fork of a corner host
-(server/hosts.py); this module supervises all three through the same members.
+The child is a fresh worker or (``hosted``) a fork of a corner host that has gdstk
+imported already (server/hosts.py); this module supervises both through the same members.
 
 A job is a JSON object (server/probe.py, options_from_job): a plain run, or a
 function call of a parameter corner; another kind of job needs only a new key there
@@ -33,7 +33,7 @@ from latchwatch.analyzers.run_outcome import RunOutcome, ScriptFailure
 from . import wire
 from .hosts import HOSTS
 from .sandbox import SandboxReport, SandboxSettings, unavailable_message
-from .workers import (COLLECT_ALLOWANCE, PROBE, SANDBOX_CHILD, SPARES, STARTUP_ALLOWANCE, RunnerError,
+from .workers import (COLLECT_ALLOWANCE, PROBE, SANDBOX_CHILD, STARTUP_ALLOWANCE, RunnerError,
                       SandboxUnavailable, Worker, WorkerKey, child_environment)
 
 __all__ = ["run_script", "RunnerError", "SandboxUnavailable", "child_environment", "OUTPUT_HEAD", "OUTPUT_TAIL",
@@ -53,18 +53,17 @@ _HARNESS_FILES = (str(PROBE), str(SANDBOX_CHILD))
 def run_script(path: str | Path, *, source: str | None = None, python: str | None = None, timeout: float = 10.0,
                project_root: Path | None = None, memory_limit: int = 4 << 30,
                cancel: threading.Event | None = None, call: tuple[str, dict] | None = None,
-               accept_non_layout: bool = False, require_sandbox: bool = False, warm: bool = False,
-               hosted: bool = False, skip_protections: tuple[str, ...] = ()) -> RunOutcome:
+               accept_non_layout: bool = False, require_sandbox: bool = False, hosted: bool = False,
+               skip_protections: tuple[str, ...] = ()) -> RunOutcome:
     """Run one layout script as ``__main__`` in a sandboxed child; never raises for script faults.
 
     ``source`` runs instead of the file's content, compiled under the file's name.
     ``call=(function, kwargs)`` imports the script as a module instead and checks what
     ``function(**kwargs)`` returns (kwargs JSON values); a return value that is no
     layout is a script error, or an empty capture with ``accept_non_layout``.
-    ``warm`` takes a spare child started ahead (and starts the next one): for the
-    language server, whose runs repeat with the same settings. ``hosted`` runs the job
-    in a child forked from a corner host that has gdstk imported (server/hosts.py):
-    for the many calls of a sweep. ``require_sandbox``
+    ``hosted`` runs the job in a child forked from a corner host that has gdstk
+    imported (server/hosts.py): for runs that repeat with the same settings (a sweep's
+    corners, many scripts, an editor's edits). ``require_sandbox``
     makes a missing protection an error; ``skip_protections`` (sandbox.SKIPPABLE)
     leaves mechanisms out, as on a machine without them.
     Raises RunnerError when the interpreter cannot be started, SandboxUnavailable
@@ -77,7 +76,7 @@ def run_script(path: str | Path, *, source: str | None = None, python: str | Non
         function, kwargs = call
         job.update(call=function, kwargs=kwargs, non_layout="ignore" if accept_non_layout else "error")
     settings = SandboxSettings(require=require_sandbox, memory_limit=memory_limit, skip=frozenset(skip_protections))
-    return _run_job(str(path), job, python, timeout, root, settings, cancel, warm, hosted)
+    return _run_job(str(path), job, python, timeout, root, settings, cancel, hosted)
 
 
 def read_layout_file(path: str | Path, kind: str, *, python: str | None = None, timeout: float = 60.0,
@@ -89,11 +88,11 @@ def read_layout_file(path: str | Path, kind: str, *, python: str | None = None, 
     the file), not a crashed command line or language server."""
     job = {"script": os.path.abspath(path), "layout": kind, "paths": []}
     settings = SandboxSettings(require=require_sandbox, memory_limit=memory_limit, skip=frozenset(skip_protections))
-    return _run_job(str(path), job, python, timeout, None, settings, cancel, warm=False)
+    return _run_job(str(path), job, python, timeout, None, settings, cancel, hosted=False)
 
 
 def _run_job(label: str, job: dict, python: str | None, timeout: float, root: str | None,
-             settings: SandboxSettings, cancel, warm: bool, hosted: bool = False) -> RunOutcome:
+             settings: SandboxSettings, cancel, hosted: bool) -> RunOutcome:
     if not timeout or timeout <= 0:
         raise ValueError(f"timeout must be a positive number of seconds, got {timeout!r}")
     job["timeout"] = float(timeout)
@@ -102,10 +101,7 @@ def _run_job(label: str, job: dict, python: str | None, timeout: float, root: st
         outcome = _hosted_run(label, job, key, cancel)
         if outcome is not None:
             return outcome
-    if warm and root is not None and _inside(job["script"], root):
-        worker = SPARES.take(key, needs_reading=[root])
-    else:
-        worker = Worker.start(key, needs_reading=job["paths"] or [os.path.dirname(job["script"])])
+    worker = Worker.start(key, needs_reading=job["paths"] or [os.path.dirname(job["script"])])
     return _ChildRun(label, worker, job, cancel).execute()
 
 
@@ -113,7 +109,10 @@ def _hosted_run(label: str, job: dict, key: WorkerKey, cancel) -> RunOutcome | N
     """The job in a corner host's child; None when no host could run it (one that
     cannot start, or ends before it reports the job's end), so a plain worker runs it
     and says what is wrong."""
-    needs = job["paths"] or [os.path.dirname(job["script"])]
+    root = key.project_root
+    # Scripts inside the project share its hosts, whatever their folder.
+    needs = [root] if root is not None and _inside(job["script"], root) else (
+        job["paths"] or [os.path.dirname(job["script"])])
     for _attempt in range(2):  # an idle host may have died since its last job
         try:
             host = HOSTS.take(key, needs)

@@ -45,7 +45,7 @@ SKIPPABLE = ("namespaces", "landlock", "identity")  # mechanisms a run can be to
 
 @dataclass(frozen=True)
 class SandboxSettings:
-    """What a run's child is confined by; part of the key of a warm spare."""
+    """What a run's child is confined by; part of the key of a corner host."""
 
     require: bool = False  # a missing REQUIRED protection is an error, not a fallback
     memory_limit: int | None = 4 << 30  # bytes of address space

@@ -1,20 +1,16 @@
-"""Started children that wait for one job each, and the spares kept warm for the editor.
+"""Started children that wait for one job each.
 
 A Worker is ``python -I server/sandbox_child.py CONFIG`` in a fresh temporary folder:
 its own session and process group, standard input on /dev/null, an allow-listed
 environment, and three pipes (result and control from the child, the job to it).
 The child confines itself, imports gdstk and waits; server/runner.py sends the job and
 supervises the run. A worker runs one job and ends: a child that ran a script is never
-used again.
-
-SPARES keeps one started worker per (interpreter, project root, sandbox settings,
-timeout) so that the language server's next run skips interpreter start and imports;
-taking a spare starts the next one at once.
+used again. A worker started with a socket is a corner host instead (server/hosts.py),
+which forks a child per job it receives.
 """
 
 from __future__ import annotations
 
-import atexit
 import json
 import math
 import os
@@ -23,8 +19,6 @@ import signal
 import subprocess
 import sys
 import tempfile
-import threading
-from collections import OrderedDict
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -170,62 +164,6 @@ class Worker:
         close_quietly(self._pidfd, self.result_r, self.control_r)
         self._pidfd = None
         shutil.rmtree(self.work, ignore_errors=True)
-
-
-class SparePool:
-    """At most one idle worker per key, for at most ``capacity`` keys (the oldest goes)."""
-
-    def __init__(self, capacity: int = 2):
-        self.capacity = capacity
-        self._spares: OrderedDict[WorkerKey, Worker] = OrderedDict()
-        self._lock = threading.Lock()
-        self._closed = False
-
-    def take(self, key: WorkerKey, needs_reading: list[str]) -> Worker:
-        """A started worker for ``key`` (the spare if there is a live one), and a new spare."""
-        with self._lock:
-            self._closed = False
-            spare = self._spares.pop(key, None)
-        if spare is not None and not spare.alive():
-            spare.discard()
-            spare = None
-        worker = spare or Worker.start(key, needs_reading)
-        # The next spare starts now, off the job's path (starting a child takes a few ms).
-        threading.Thread(target=self._refill, args=(key, needs_reading), daemon=True,
-                         name="latchwatch-spare").start()
-        return worker
-
-    def _refill(self, key: WorkerKey, needs_reading: list[str]) -> None:
-        try:
-            worker = Worker.start(key, needs_reading)
-        except RunnerError:
-            return  # the job's own worker started; the next run will say what is wrong
-        if self._closed:
-            worker.discard()
-        else:
-            self._put(worker)
-
-    def _put(self, worker: Worker) -> None:
-        with self._lock:
-            replaced = self._spares.pop(worker.key, None)
-            self._spares[worker.key] = worker
-            evicted = [replaced] if replaced else []
-            while len(self._spares) > self.capacity:
-                evicted.append(self._spares.popitem(last=False)[1])
-        for old in evicted:
-            old.discard()
-
-    def close(self) -> None:
-        """End every spare; spares started later are ended too (at exit) unless reopened."""
-        with self._lock:
-            self._closed = True
-            spares, self._spares = list(self._spares.values()), OrderedDict()
-        for spare in spares:
-            spare.discard()
-
-
-SPARES = SparePool()
-atexit.register(SPARES.close)
 
 
 def close_quietly(*fds: int | None) -> None:

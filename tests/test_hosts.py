@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import os
 import signal
+import sys
 import textwrap
 import threading
 from pathlib import Path
@@ -17,7 +18,7 @@ import pytest
 from latchwatch.server import hosts
 from latchwatch.server.runner import run_script
 from latchwatch.server.sandbox import SandboxSettings
-from latchwatch.server.workers import inspect_sandbox
+from latchwatch.server.workers import WorkerKey, inspect_sandbox
 
 
 @pytest.fixture(autouse=True)
@@ -227,3 +228,37 @@ def test_a_host_that_died_while_idle_is_replaced_and_reaped(tmp_path, fresh_pool
     outcome = _call(path)
     assert outcome.status == "ok", outcome.failure
     assert not dead.worker.work.exists() and dead.channel.fileno() == -1  # closed, folder gone
+
+
+def test_unsaved_source_reaches_a_hosted_child(tmp_path):
+    path = tmp_path / "cell.py"
+    path.write_text("raise SystemExit('the file on disk must not run')\n")
+    buffer = "import gdstk\n\ncell = gdstk.Cell('BUF')\ncell.add(gdstk.rectangle((0, 0), (1, 1)))\n"
+    run_script(path, project_root=tmp_path, hosted=True)  # starts the host
+    outcome = run_script(path, project_root=tmp_path, source=buffer, hosted=True)
+    assert outcome.status == "ok" and outcome.layout.cells[0].name == "BUF"
+
+
+def test_scripts_share_their_projects_hosts_and_others_get_their_own(tmp_path, fresh_pool):
+    project, elsewhere = tmp_path / "project", tmp_path / "elsewhere"
+    (project / "sub").mkdir(parents=True)
+    elsewhere.mkdir()
+    for path in (_script(project), _script(project / "sub"), _script(elsewhere)):
+        assert run_script(path, project_root=project, call=("cell", {}), hosted=True).status == "ok"
+    reading = sorted(slot[1] for slot in fresh_pool._idle)
+    assert reading == sorted([(str(project),), (str(elsewhere), str(project))])
+
+
+def test_the_pool_keeps_two_keys_and_ends_the_oldest(tmp_path):
+    pool = hosts.HostPool(per_key=1, keys=2)
+    started = [hosts.Host.start(WorkerKey(sys.executable, None, SandboxSettings(memory_limit=(2 + n) << 30),
+                                                10.0), []) for n in range(3)]
+    try:
+        for host in started:
+            pool.give_back(host)
+        kept = [h for idle in pool._idle.values() for h in idle]
+        assert kept == started[1:] and all(h.alive() for h in kept)
+        assert started[0].worker.process.poll() is not None  # ended when it was evicted
+    finally:
+        pool.close()
+    assert pool._idle == {} and all(h.worker.process.poll() is not None for h in started)

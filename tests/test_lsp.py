@@ -227,7 +227,7 @@ async def test_unsaved_buffer_runs_under_its_real_name(tmp_path, session):
 
 
 def slow_script(token: str) -> str:
-    """Sleeps, with a marker process named ``token``: a warm child is started before its
+    """Sleeps, with a marker process named ``token``: a child is started (or forked) before its
     script is known, so its own command line cannot name the script."""
     return f"import subprocess, time\nsubprocess.Popen(['sh', '-c', 'sleep 30; true', {token!r}])\ntime.sleep(30)\n"
 

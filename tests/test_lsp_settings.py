@@ -84,7 +84,7 @@ def test_require_sandbox_from_either_side(tmp_path, editor_value, project_line, 
     assert problems == []
     check = document_settings(script, editor, None, TechnologyCache()).check
     assert check.require_sandbox is required
-    assert check.warm  # the language server's runs take warm spares
+    assert check.hosted  # the language server's runs are forks of corner hosts
 
 
 def test_require_sandbox_must_be_a_boolean():
