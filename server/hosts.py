@@ -25,7 +25,7 @@ import socket
 import threading
 from collections import OrderedDict
 
-from .workers import RunnerError, Worker, WorkerKey, close_quietly
+from .workers import RunnerError, Worker, WorkerKey, close_quietly, widen_pipe
 
 RETIRE_AFTER = 500
 _STATUS_WAIT = 2.0  # s to wait for a killed job's status before the host is given up
@@ -48,6 +48,9 @@ class Host:
             raise RunnerError(f"no corner host on this system: {error}") from None
         try:
             worker = Worker.start(key, needs_reading, host_fd=theirs.fileno())
+        except RunnerError:
+            ours.close()
+            raise
         finally:
             theirs.close()
         # The host's own pipes carry nothing a job needs: its sandbox is reported per job.
@@ -96,6 +99,7 @@ class HostedJob:
         (self.output_fd, output_w), (self.result_r, result_w), (self.control_r, control_w), \
             (job_r, self.job_w), (self.status_r, status_w) = pipes
         theirs = [output_w, result_w, control_w, job_r, status_w]
+        widen_pipe(self.result_r)
         try:
             host.say(f"job {serial}", theirs)
         except OSError as error:

@@ -93,7 +93,7 @@ class Worker:
         result_r, result_w = os.pipe()
         control_r, control_w = os.pipe()
         job_r, job_w = os.pipe()
-        _widen_pipe(result_r)
+        widen_pipe(result_r)
         config = sandbox.child_config(
             key.settings, probe=str(PROBE), work=str(work), result_fd=result_w, control_fd=control_w,
             job_fd=job_r, cpu_seconds=cpu_seconds(key.timeout), needs_reading=needs_reading)
@@ -183,7 +183,7 @@ def kill_group(pgid: int, sig: int) -> None:
         pass
 
 
-def _widen_pipe(fd: int) -> None:
+def widen_pipe(fd: int) -> None:
     """Fewer wake-ups for large layouts: a 1 MiB pipe where Linux allows it."""
     try:
         import fcntl
