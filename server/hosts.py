@@ -12,8 +12,8 @@ forked from the host, which never runs a script itself.
 
 A HostedJob is what server/runner.py supervises, with the same members as a Worker.
 HOSTS keeps idle hosts per (worker key, folders to read), at most one per core for at
-most two keys, and retires a host after RETIRE_AFTER jobs (its own CPU-time limit
-counts every fork and wait).
+most two keys, retires a host after RETIRE_AFTER jobs (its own CPU-time limit counts
+every fork and wait) and ends one idle for longer than IDLE_LIMIT at the next take.
 """
 
 from __future__ import annotations
@@ -23,11 +23,13 @@ import os
 import signal
 import socket
 import threading
+import time
 from collections import OrderedDict
 
 from .workers import RunnerError, Worker, WorkerKey, close_quietly, widen_pipe
 
 RETIRE_AFTER = 500
+IDLE_LIMIT = 600.0  # s an idle host is kept: it holds memory, and the gdstk it imported may be replaced meanwhile
 _STATUS_WAIT = 2.0  # s to wait for a killed job's status before the host is given up
 
 
@@ -39,6 +41,7 @@ class Host:
         self.channel = channel
         self.reading = reading
         self.served = 0
+        self.idle_since = time.monotonic()
 
     @classmethod
     def start(cls, key: WorkerKey, needs_reading: list[str]) -> Host:
@@ -177,6 +180,8 @@ class HostPool:
 
     def take(self, key: WorkerKey, needs_reading: list[str]) -> Host:
         slot = (key, tuple(needs_reading))
+        for old in self._expired():
+            old.close()
         while True:
             with self._lock:
                 idle = self._idle.get(slot)
@@ -187,6 +192,15 @@ class HostPool:
                 return host
             host.close()
 
+    def _expired(self) -> list[Host]:
+        """Idle hosts past IDLE_LIMIT, taken out of the pool (checked whenever a host is taken)."""
+        now = time.monotonic()
+        with self._lock:
+            expired = [h for idle in self._idle.values() for h in idle if now - h.idle_since > IDLE_LIMIT]
+            for idle in self._idle.values():
+                idle[:] = [h for h in idle if h not in expired]
+        return expired
+
     def give_back(self, host: Host) -> None:
         slot = (host.key, host.reading)
         evicted = []
@@ -196,6 +210,7 @@ class HostPool:
             if host.served >= RETIRE_AFTER or len(idle) >= self.per_key:
                 evicted.append(host)
             else:
+                host.idle_since = time.monotonic()
                 idle.append(host)
             while len(self._idle) > self.keys:
                 evicted.extend(self._idle.popitem(last=False)[1])

@@ -262,3 +262,16 @@ def test_the_pool_keeps_two_keys_and_ends_the_oldest(tmp_path):
     finally:
         pool.close()
     assert pool._idle == {} and all(h.worker.process.poll() is not None for h in started)
+
+
+def test_a_host_idle_past_the_limit_is_ended_at_the_next_take(tmp_path, fresh_pool, monkeypatch):
+    path = _script(tmp_path, """\
+    def where(width=1.0):
+        print("folder=" + os.getcwd())
+        return cell(width)
+    """)
+    first = _folder(_call(path, "where")).parent
+    [idle] = [h for hosts_ in fresh_pool._idle.values() for h in hosts_]
+    monkeypatch.setattr(hosts, "IDLE_LIMIT", 0.0)
+    second = _folder(_call(path, "where")).parent
+    assert second != first and not first.exists() and idle.worker.process.poll() is not None
