@@ -261,26 +261,44 @@ def _windowed(pieces, members, sheet, taps, regions, grid) -> np.ndarray:
 
 @dataclass
 class _WindowPieces:
-    """Clipped contents of many windows, one row per polygon part."""
+    """Clipped contents of many windows, one row per part: a clipped rectangle as its
+    ``bounds`` row (its ``geoms`` entry None, built only for a window that is solved),
+    or a polygon part in ``geoms`` (its ``bounds`` row NaN)."""
 
     window: np.ndarray
     category: np.ndarray  # 0 region, 1 cut out of the region, 2 tap
     geoms: np.ndarray
+    bounds: np.ndarray | None = None
+
+    def __post_init__(self):
+        if self.bounds is None:
+            self.bounds = np.full((len(self.window), 4), np.nan)
+
+    def shapes(self, rows: np.ndarray) -> np.ndarray:
+        """The geometries of ``rows``."""
+        out = self.geoms[rows].copy()
+        b = self.bounds[rows]
+        rect = ~np.isnan(b[:, 0])
+        if rect.any():
+            out[rect] = shapely.box(b[rect, 0], b[rect, 1], b[rect, 2], b[rect, 3])
+        return out
 
 
 def _clip(windows: np.ndarray, shapes: np.ndarray, index: np.ndarray, boxes: np.ndarray,
           category: int) -> _WindowPieces:
     """Parts of ``shapes[index[k]]`` inside box ``windows[k]``. Rectangles are clipped
-    with their bounds (no GEOS overlay: most layout shapes are rectangles)."""
+    with their bounds and kept as bounds (no GEOS overlay or geometry: most layout
+    shapes are rectangles, and most windows repeat one already solved)."""
     geoms = shapes[index]
     rect = _is_rectangle(geoms)
-    out_window, out_geoms = [], []
+    out_window, out_geoms, out_bounds = [], [], []
     if rect.any():
         b, w = shapely.bounds(geoms[rect]), boxes[windows[rect]]
         c = np.c_[np.maximum(b[:, :2], w[:, :2]), np.minimum(b[:, 2:], w[:, 2:])]
         ok = (c[:, 2] > c[:, 0]) & (c[:, 3] > c[:, 1])
         out_window.append(windows[rect][ok])
-        out_geoms.append(shapely.box(c[ok, 0], c[ok, 1], c[ok, 2], c[ok, 3]))
+        out_geoms.append(np.full(int(ok.sum()), None, dtype=object))
+        out_bounds.append(c[ok])
     if (~rect).any():
         w = windows[~rect]
         box_geoms = shapely.box(boxes[w, 0], boxes[w, 1], boxes[w, 2], boxes[w, 3])
@@ -289,9 +307,12 @@ def _clip(windows: np.ndarray, shapes: np.ndarray, index: np.ndarray, boxes: np.
         # contents give equal coordinates wherever the window cut them out.
         out_window.append(w[owner])
         out_geoms.append(shapely.normalize(shapely.simplify(parts, 0.0)))
-    window = np.concatenate(out_window) if out_window else np.zeros(0, np.int64)
-    parts = np.concatenate(out_geoms) if out_geoms else np.empty(0, dtype=object)
-    return _WindowPieces(window, np.full(len(window), category, np.int64), parts)
+        out_bounds.append(np.full((len(parts), 4), np.nan))
+    if not out_window:
+        return _WindowPieces(np.zeros(0, np.int64), np.zeros(0, np.int64), np.empty(0, dtype=object))
+    window = np.concatenate(out_window)
+    return _WindowPieces(window, np.full(len(window), category, np.int64), np.concatenate(out_geoms),
+                         np.concatenate(out_bounds))
 
 
 def _is_rectangle(geoms: np.ndarray) -> np.ndarray:
@@ -315,7 +336,8 @@ def _solve_windows(devices, body, sheet, boxes, info, taps, grid) -> np.ndarray:
     w, t = shapely.STRtree(taps.geoms).query(box_geoms, predicate="intersects")
     same = taps.body[t] == body[w]
     parts.append(_clip(w[same], taps.geoms, t[same], boxes, 2))
-    contents = _WindowPieces(*(np.concatenate([getattr(p, f) for p in parts]) for f in ("window", "category", "geoms")))
+    contents = _WindowPieces(*(np.concatenate([getattr(p, f) for p in parts])
+                               for f in ("window", "category", "geoms", "bounds")))
     key = window_keys(devices, boxes, shapely.bounds(devices)[:, :2], contents)
     key[:, 4] ^= sheet.view(np.uint64) ^ substrate.astype(np.uint64)
     _, first, inverse = np.unique(key, axis=0, return_index=True, return_inverse=True)
@@ -324,7 +346,7 @@ def _solve_windows(devices, body, sheet, boxes, info, taps, grid) -> np.ndarray:
     ohm_unique = np.empty(len(first))
     for u, w in enumerate(first):
         mine = order[starts[w]:starts[w + 1]]
-        cat, geoms = contents.category[mine], contents.geoms[mine]
+        cat, geoms = contents.category[mine], contents.shapes(mine)
         include = np.array([box_geoms[w]], dtype=object) if substrate[w] else geoms[cat == 0]
         problem = SheetProblem(tuple(boxes[w].tolist()), include, geoms[cat == 1], geoms[cat == 2],
                                np.array([devices[w]], dtype=object), float(sheet[w]), grid)
@@ -361,23 +383,46 @@ def window_keys(devices, boxes, origin, contents: _WindowPieces) -> np.ndarray:
     keys = np.zeros((n, 5), np.uint64)
     size = np.round((boxes[:, 2:] - boxes[:, :2]) / QUANTUM).astype(np.int64)
     keys[:, 4] = (size[:, 0].astype(np.uint64) << np.uint64(32)) ^ size[:, 1].astype(np.uint64)
-    for column, (geoms, owner, category) in enumerate((
-            (devices, np.arange(n), np.zeros(n, np.int64)),
-            (contents.geoms, contents.window, contents.category))):
-        if len(geoms) == 0:
-            continue
-        xy, part = shapely.get_coordinates(geoms, return_index=True)
-        q = np.round((xy - origin[owner[part]]) / QUANTUM).astype(np.int64)
-        seq = np.c_[q, np.full(len(q), -1, np.int64)].ravel()  # -1 separates vertices from nothing
-        seq_part = np.repeat(part, 3)
-        for h, mult in enumerate(_MULTIPLIERS):
-            part_hash = _sequence_hash(seq, seq_part, len(geoms), mult)
-            # Order-free within a window: sort the parts by (category, hash) first.
-            order = np.lexsort((part_hash, category, owner))
-            seq2 = np.c_[category[order].astype(np.uint64), part_hash[order]].ravel().view(np.int64)
-            window_hash = _sequence_hash(seq2, np.repeat(owner[order], 2), n, mult)
-            keys[:, 2 * column + h] = window_hash
+    rect = ~np.isnan(contents.bounds[:, 0])
+    poly = np.flatnonzero(~rect)
+    for h, mult in enumerate(_MULTIPLIERS):
+        keys[:, h] = _window_hash(_polygon_hashes(devices, np.arange(n), origin, mult), np.zeros(n, np.int64),
+                                  np.arange(n), n, mult)
+        part_hash = np.zeros(len(rect), np.uint64)
+        part_hash[rect] = _rectangle_hashes(contents.bounds[rect], contents.window[rect], origin, mult)
+        part_hash[poly] = _polygon_hashes(contents.geoms[poly], contents.window[poly], origin, mult) ^ _POLYGON_TAG
+        keys[:, 2 + h] = _window_hash(part_hash, contents.category, contents.window, n, mult)
     return keys
+
+
+_POLYGON_TAG = np.uint64(0x5BD1E9955BD1E995)  # keeps a polygon part's hash apart from a rectangle's
+
+
+def _polygon_hashes(geoms, owner, origin, multiplier) -> np.ndarray:
+    """Per geometry, a hash of its vertices relative to its window's origin, in order."""
+    if len(geoms) == 0:
+        return np.zeros(0, np.uint64)
+    xy, part = shapely.get_coordinates(geoms, return_index=True)
+    q = np.round((xy - origin[owner[part]]) / QUANTUM).astype(np.int64)
+    seq = np.c_[q, np.full(len(q), -1, np.int64)].ravel()  # -1 separates vertices from nothing
+    return _sequence_hash(seq, np.repeat(part, 3), len(geoms), multiplier)
+
+
+def _rectangle_hashes(bounds, owner, origin, multiplier) -> np.ndarray:
+    """Per clipped rectangle, a hash of its four bounds relative to its window's origin."""
+    q = np.round((bounds - np.tile(origin[owner], 2)) / QUANTUM).astype(np.int64).astype(np.uint64)
+    out = np.zeros(len(q), np.uint64)
+    with np.errstate(over="ignore"):
+        for column in range(4):
+            out = out * multiplier + (q[:, column] + np.uint64(0x632BE59BD9B4E019))
+    return out
+
+
+def _window_hash(part_hash, category, owner, n, multiplier) -> np.ndarray:
+    """Per window, an order-free hash of its parts: sorted by (category, hash) first."""
+    order = np.lexsort((part_hash, category, owner))
+    seq = np.c_[category[order].astype(np.uint64), part_hash[order]].ravel().view(np.int64)
+    return _sequence_hash(seq, np.repeat(owner[order], 2), n, multiplier)
 
 
 # --- figures -------------------------------------------------------------------------
