@@ -60,6 +60,19 @@ class Anchor:
     stack: tuple[Frame, ...]  # user frames from the anchor outwards
 
 
+def _unique_rows(*columns: np.ndarray) -> np.ndarray:
+    """The distinct rows of the given columns, sorted; one lexsort (np.unique with axis=0
+    sorts a structured view, several times slower on a million rows).
+
+    >>> _unique_rows(np.array([2, 1, 2]), np.array([5, 7, 5])).tolist()
+    [[1, 7], [2, 5]]
+    """
+    rows = np.column_stack(columns)
+    rows = rows[np.lexsort(columns[::-1])]
+    keep = np.r_[True, (rows[1:] != rows[:-1]).any(axis=1)] if len(rows) else np.zeros(0, bool)
+    return rows[keep]
+
+
 class Provenance:
     """Anchors and placements of the shapes of one flattened layout."""
 
@@ -81,8 +94,7 @@ class Provenance:
         layers: dict[tuple[str, int], set] = {}
         if len(flat.stack) == 0:
             return layers
-        triples = np.unique(np.column_stack([flat.stack, flat.layer, flat.datatype]), axis=0)
-        for stack_id, layer, datatype in triples.tolist():
+        for stack_id, layer, datatype in _unique_rows(flat.stack, flat.layer, flat.datatype).tolist():
             for frame in self.captured.stack_frames(stack_id):
                 layers.setdefault((frame.file, frame.line), set()).add((layer, datatype))
         return layers
