@@ -373,8 +373,9 @@ class _CellLog:
         if n == 0:
             self.flat, self.flat_sid = [], np.zeros(0, np.int32)
             return
-        # Columns of the log; consecutive records usually share their key, so only
-        # the starts of runs are looked up one by one.
+        # Columns of the log, one key (code, lasti, lasti above, chain) per record. Runs
+        # of equal keys are common; the distinct keys of the run starts are found by one
+        # sort, and only those (a few hundred, typically) get their stack built.
         codes = list(map(_record_code, records))
         columns = [np.fromiter(map(id, codes), np.int64, n)]
         columns += [np.fromiter(map(getter, records), np.int64, n) for getter in _RECORD_INTS]
@@ -383,16 +384,17 @@ class _CellLog:
         for column in columns:
             starts[1:] |= column[1:] != column[:-1]
         start_index = np.flatnonzero(starts)
-        known = {}
-        run_sid = np.empty(len(start_index), np.int32)
-        for k, i in enumerate(start_index.tolist()):
-            key = (columns[0][i], columns[1][i], columns[2][i], columns[3][i])
-            sid = known.get(key)
-            if sid is None:
-                _e, code, lasti, above_lasti, cid = records[i]
-                sid = known[key] = self._stack(code, lasti, above_lasti, cid)
-            run_sid[k] = sid
-        record_sid = np.repeat(run_sid, np.diff(np.append(start_index, n)))
+        rows = np.column_stack([column[start_index] for column in columns])
+        order = np.lexsort(rows.T[::-1])
+        ordered = rows[order]
+        new_key = np.r_[True, (ordered[1:] != ordered[:-1]).any(axis=1)]
+        run_key = np.empty(len(order), np.int64)
+        run_key[order] = np.cumsum(new_key) - 1
+        key_sid = np.empty(int(new_key.sum()), np.int32)
+        for k, i in enumerate(start_index[order[new_key]].tolist()):
+            _e, code, lasti, above_lasti, cid = records[i]
+            key_sid[k] = self._stack(code, lasti, above_lasti, cid)
+        record_sid = np.repeat(key_sid[run_key], np.diff(np.append(start_index, n)))
         elements = list(map(_record_elements, records))
         self.flat = list(chain.from_iterable(elements))
         if len(self.flat) == n:  # one element per add (empty adds are not logged)
@@ -485,7 +487,7 @@ def _polygon_arrays(polygons, stacks):
     layer = np.fromiter(map(_layer, polygons), np.int32, n)
     datatype = np.fromiter(map(_datatype, polygons), np.int32, n)
     copies = np.fromiter(map(_repetition_size, polygons), np.int64, n)
-    points = np.frombuffer(b"".join(pieces), np.float64).reshape(-1, 2)
+    points = np.concatenate(pieces).reshape(-1, 2)  # (k, 2) float64 arrays from gdstk
     offsets = np.zeros(n + 1, np.int64)
     np.cumsum(counts, out=offsets[1:])
     repeated = np.flatnonzero(copies > 0)
