@@ -155,7 +155,7 @@ def _inner_disc(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     b = shapely.bounds(geoms)
     centre = (b[:, :2] + b[:, 2:]) / 2
     radius = np.minimum(b[:, 2] - b[:, 0], b[:, 3] - b[:, 1]) / 2
-    other = np.flatnonzero(~_is_rectangle(geoms))
+    other = np.flatnonzero(~g.axis_aligned_rectangles(geoms))
     if len(other):
         c = shapely.centroid(geoms[other])
         radius[other] = np.where(shapely.contains(geoms[other], c),
@@ -290,7 +290,7 @@ def _clip(windows: np.ndarray, shapes: np.ndarray, index: np.ndarray, boxes: np.
     with their bounds and kept as bounds (no GEOS overlay or geometry: most layout
     shapes are rectangles, and most windows repeat one already solved)."""
     geoms = shapes[index]
-    rect = _is_rectangle(geoms)
+    rect = g.axis_aligned_rectangles(geoms)
     out_window, out_geoms, out_bounds = [], [], []
     if rect.any():
         b, w = shapely.bounds(geoms[rect]), boxes[windows[rect]]
@@ -313,12 +313,6 @@ def _clip(windows: np.ndarray, shapes: np.ndarray, index: np.ndarray, boxes: np.
     window = np.concatenate(out_window)
     return _WindowPieces(window, np.full(len(window), category, np.int64), np.concatenate(out_geoms),
                          np.concatenate(out_bounds))
-
-
-def _is_rectangle(geoms: np.ndarray) -> np.ndarray:
-    b = shapely.bounds(geoms)
-    box_area = (b[:, 2] - b[:, 0]) * (b[:, 3] - b[:, 1])
-    return np.isclose(shapely.area(geoms), box_area, rtol=1e-12, atol=0)
 
 
 def _solve_windows(devices, body, sheet, boxes, info, taps, grid) -> np.ndarray:
