@@ -6,16 +6,16 @@ import os
 from dataclasses import dataclass, replace
 from typing import Iterable
 
-from .context import CheckContext, CheckOptions
-from .devices import device_table
-from .findings import Device, Finding, Severity
-from .flatten import flatten
-from .rules import RULES, Rule
+from latchwatch.analyzers.context import CheckContext, CheckOptions
+from latchwatch.analyzers.extraction.devices import device_table
+from latchwatch.analyzers.model.findings import Device, Finding, Severity
+from latchwatch.analyzers.layout.flatten import flatten
+from latchwatch.analyzers.rules import RULES, Rule
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:
-    from .run_outcome import RunOutcome
-from .technology import Technology
+    from latchwatch.analyzers.model.run_outcome import RunOutcome
+from latchwatch.analyzers.technology.model import Technology
 
 
 class TopCellError(ValueError):

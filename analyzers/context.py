@@ -6,15 +6,15 @@ from __future__ import annotations
 from dataclasses import dataclass
 from functools import cached_property
 
-from .extract import Extraction, extract
-from .findings import Finding, Related, Severity
-from .flatten import FlatLayout
-from .provenance import Provenance, display_path, is_user_file, relative_frame
+from latchwatch.analyzers.extraction.extract import Extraction, extract
+from latchwatch.analyzers.model.findings import Finding, Related, Severity
+from latchwatch.analyzers.layout.flatten import FlatLayout
+from latchwatch.analyzers.layout.provenance import Provenance, display_path, is_user_file, relative_frame
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:
-    from .run_outcome import RunOutcome
-from .technology import Technology
+    from latchwatch.analyzers.model.run_outcome import RunOutcome
+from latchwatch.analyzers.technology.model import Technology
 
 
 @dataclass(frozen=True)

@@ -11,9 +11,10 @@ from pathlib import Path
 
 import gdstk
 
-from latchwatch.analyzers.captured import CapturedLayout
+from latchwatch.analyzers.model.captured import CapturedLayout
 
-from . import probe, wire
+from latchwatch.server.child import probe
+from latchwatch.server.sandbox import wire
 
 LAYOUT_SUFFIXES = {".gds": "gds", ".gds2": "gds", ".gdsii": "gds", ".oas": "oas", ".oasis": "oas"}
 

@@ -193,8 +193,8 @@ def test_malformed_project_file(tmp_path, text, words):
 def test_required_sandbox_from_the_project_file_is_an_error_where_incomplete(tmp_path):
     (tmp_path / "far.py").write_text(FAR)
     (tmp_path / "latchwatch.toml").write_text('tech = "demo"\nrequire-sandbox = true\n')
-    from latchwatch.server.sandbox import REQUIRED
-    from latchwatch.server.workers import inspect_sandbox
+    from latchwatch.server.sandbox.policy import REQUIRED
+    from latchwatch.server.sandbox.workers import inspect_sandbox
 
     in_force = inspect_sandbox(project_root=str(tmp_path))[0].in_force
     missing = [name for name in REQUIRED if name not in in_force]
@@ -213,7 +213,7 @@ def test_required_sandbox_from_the_project_file_is_an_error_where_incomplete(tmp
 def test_doctor_lists_every_protection(tmp_path):
     run = latchwatch("doctor", cwd=tmp_path)
     assert run.returncode == 0 and "Traceback" not in run.stderr
-    from latchwatch.server.sandbox import PROTECTIONS
+    from latchwatch.server.sandbox.policy import PROTECTIONS
 
     listed = [line.split()[2] if line.startswith("  in force") else line.split()[1]
               for line in run.stdout.splitlines() if line.startswith(("  in force", "  unavailable"))]

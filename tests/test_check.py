@@ -8,9 +8,9 @@ from dataclasses import replace
 
 from builders import ACTIVE, NWELL, PPLUS, CellBuilder, layout, outcome
 from latchwatch.analyzers.check import check_outcome
-from latchwatch.analyzers.findings import Severity
+from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.rules import RULES
-from latchwatch.server.techfiles import load_technology
+from latchwatch.server.config.techfiles import load_technology
 
 
 def _rule(rule_id):

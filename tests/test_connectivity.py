@@ -7,13 +7,13 @@ import shapely
 
 from builders import ACTIVE, CONTACT, METAL1, NPLUS, NWELL, POLY, PPLUS, CellBuilder, layout, outcome
 from latchwatch.analyzers.check import check_outcome
-from latchwatch.analyzers.connectivity import NDIFF, PDIFF, PTAP, connect, join_nets, meeting_pairs
+from latchwatch.analyzers.extraction.connectivity import NDIFF, PDIFF, PTAP, connect, join_nets, meeting_pairs
 from latchwatch.analyzers.context import CheckContext, CheckOptions
-from latchwatch.analyzers.extract import extract
-from latchwatch.analyzers.flatten import flatten
-from latchwatch.analyzers.nets import layout_nets, matches, pad_connected
-from latchwatch.analyzers.technology import technology_from_mapping
-from latchwatch.server.techfiles import load_technology
+from latchwatch.analyzers.extraction.extract import extract
+from latchwatch.analyzers.layout.flatten import flatten
+from latchwatch.analyzers.extraction.nets import layout_nets, matches, pad_connected
+from latchwatch.analyzers.technology.model import technology_from_mapping
+from latchwatch.server.config.techfiles import load_technology
 
 M1_LABEL, VIA1, METAL2, M2_LABEL, IO_MARKER = (7, 5), (8, 0), (9, 0), (9, 5), (12, 0)
 VIA2, METAL3, M3_LABEL = (20, 0), (21, 0), (21, 5)

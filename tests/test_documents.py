@@ -5,7 +5,7 @@ from __future__ import annotations
 import asyncio
 import threading
 
-from latchwatch.server.documents import RunScheduler
+from latchwatch.server.lsp.documents import RunScheduler
 
 
 class Recorder:

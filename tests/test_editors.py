@@ -22,7 +22,7 @@ if sys.version_info >= (3, 11):
 else:  # pragma: no cover
     import tomli as tomllib
 
-from latchwatch.server.lsp_settings import KEYS
+from latchwatch.server.lsp.settings import KEYS
 
 CONFIGS = Path(__file__).resolve().parent.parent / "editor-configs"
 EDITOR_TIMEOUT = 90

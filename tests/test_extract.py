@@ -4,10 +4,10 @@ import numpy as np
 import pytest
 
 from builders import ACTIVE, CONTACT, NPLUS, NWELL, POLY, PPLUS, CellBuilder
-from latchwatch.analyzers.extract import SUBSTRATE, extract
-from latchwatch.analyzers.flatten import flatten
-from latchwatch.analyzers.technology import technology_from_mapping
-from latchwatch.server.techfiles import load_technology
+from latchwatch.analyzers.extraction.extract import SUBSTRATE, extract
+from latchwatch.analyzers.layout.flatten import flatten
+from latchwatch.analyzers.technology.model import technology_from_mapping
+from latchwatch.server.config.techfiles import load_technology
 from builders import layout
 
 

@@ -6,7 +6,7 @@ import pytest
 import shapely
 
 from builders import ACTIVE, CellBuilder, layout
-from latchwatch.analyzers.flatten import HierarchyError, flatten
+from latchwatch.analyzers.layout.flatten import HierarchyError, flatten
 
 CASES = [
     dict(origin=(10, 5)),
@@ -84,7 +84,7 @@ def test_invalid_polygon_is_repaired_and_recorded():
 def test_polygons_from_rings_match_shapely_polygons_one_by_one():
     """The ragged-array build against shapely.polygons (the reference library) on rings
     of 1 to 9 vertices, non-convex ones and a NaN vertex included."""
-    from latchwatch.analyzers.flatten import _polygons_from_rings
+    from latchwatch.analyzers.layout.flatten import _polygons_from_rings
 
     rng = np.random.default_rng(3)
     counts = rng.integers(1, 10, 400)

@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 import shapely
 
-from latchwatch.analyzers import geometry as g
+from latchwatch.analyzers.layout import geometry as g
 
 
 def _same_region(a, b) -> bool:

@@ -15,17 +15,17 @@ from pathlib import Path
 
 import pytest
 
-from latchwatch.server import hosts
-from latchwatch.server.runner import run_script
-from latchwatch.server.sandbox import SandboxSettings
-from latchwatch.server.workers import WorkerKey, inspect_sandbox
+from latchwatch.server.sandbox import hosts
+from latchwatch.server.sandbox.runner import run_script
+from latchwatch.server.sandbox.policy import SandboxSettings
+from latchwatch.server.sandbox.workers import WorkerKey, inspect_sandbox
 
 
 @pytest.fixture(autouse=True)
 def fresh_pool(monkeypatch):
     pool = hosts.HostPool()
     monkeypatch.setattr(hosts, "HOSTS", pool)
-    monkeypatch.setattr("latchwatch.server.runner.HOSTS", pool)
+    monkeypatch.setattr("latchwatch.server.sandbox.runner.HOSTS", pool)
     yield pool
     pool.close()
 

@@ -26,7 +26,7 @@ from pytest_lsp.client import DEFAULT_CLIENT_FEATURES, register_lsp_features
 
 from procs import processes_with as running_processes_with
 
-SERVER = [sys.executable, "-m", "latchwatch.server.cli", "serve"]
+SERVER = [sys.executable, "-m", "latchwatch", "serve"]
 
 # An n-well with one contacted n-tap at its left end (x -3..-1) and a loop drawing three
 # 8 um P+ diffusions at x = 0, 14, 28. The farthest points lie 9, 23 and 37 um from the

@@ -5,8 +5,8 @@ from __future__ import annotations
 from lsprotocol import types
 from pygls.uris import from_fs_path
 
-from latchwatch.analyzers.findings import Device, Finding, Frame, Placement, Related, Severity
-from latchwatch.server import lsp_convert as convert
+from latchwatch.analyzers.model.findings import Device, Finding, Frame, Placement, Related, Severity
+from latchwatch.server.lsp import convert as convert
 
 MAIN, HELPER = "/project/main.py", "/project/helper.py"
 SOURCES = {

@@ -7,8 +7,8 @@ from dataclasses import replace
 
 from lsprotocol import types
 
-from latchwatch.analyzers.findings import Device, Finding, Frame, Severity
-from latchwatch.server import lsp_convert as convert
+from latchwatch.analyzers.model.findings import Device, Finding, Frame, Severity
+from latchwatch.server.lsp import convert as convert
 
 GEN = "/project/fingers.py"
 LINES = [

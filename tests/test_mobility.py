@@ -2,7 +2,7 @@
 
 import pytest
 
-from latchwatch.analyzers.mobility import mobility, resistivity, sheet_resistance
+from latchwatch.analyzers.electrical.mobility import mobility, resistivity, sheet_resistance
 
 
 def test_electron_mobility_and_resistivity_at_1e18():

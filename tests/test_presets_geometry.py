@@ -5,7 +5,7 @@ import pytest
 
 from builders import CellBuilder, layout, outcome
 from latchwatch.analyzers.check import CheckOptions, check_outcome
-from latchwatch.server.techfiles import load_technology
+from latchwatch.server.config.techfiles import load_technology
 
 # (preset, kind, published limit, where it is published)
 PUBLISHED = [

@@ -6,8 +6,9 @@ import gdstk
 import numpy as np
 import pytest
 
-from latchwatch.server import probe, wire
-from latchwatch.server.runner import run_script
+from latchwatch.server.child import probe
+from latchwatch.server.sandbox import wire
+from latchwatch.server.sandbox.runner import run_script
 
 
 def _collect(cells):

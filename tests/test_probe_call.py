@@ -6,7 +6,7 @@ import textwrap
 
 import pytest
 
-from latchwatch.server.runner import run_script
+from latchwatch.server.sandbox.runner import run_script
 
 GENERATOR = """\
 import gdstk

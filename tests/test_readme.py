@@ -7,7 +7,7 @@ import sys
 from pathlib import Path
 
 from latchwatch.analyzers.rules import RULES
-from latchwatch.server.cli import CAUTION
+from latchwatch.server.cli.main import CAUTION
 
 ROOT = Path(__file__).resolve().parents[1]
 README = (ROOT / "README.md").read_text(encoding="utf-8")
@@ -40,6 +40,6 @@ def test_every_rule_is_listed():
 def test_caution_in_readme_and_rules_command():
     flat = " ".join(README.split())
     assert " ".join(CAUTION.split()) in flat
-    out = subprocess.run([sys.executable, "-m", "latchwatch.server.cli", "rules"], capture_output=True,
+    out = subprocess.run([sys.executable, "-m", "latchwatch", "rules"], capture_output=True,
                          text=True, check=True).stdout
     assert "not sign-off" in out and "JESD78" in out

@@ -13,7 +13,7 @@ import gdstk
 from builders import outcome
 from latchwatch.analyzers.check import CheckOptions, check_outcome
 from latchwatch.server.layoutfile import read_layout
-from latchwatch.server.techfiles import load_technology
+from latchwatch.server.config.techfiles import load_technology
 
 NWELL, ACTIVE, NPLUS, PPLUS, CONTACT = 1, 2, 4, 5, 6
 STEP = 0.1  # um, the reference's sampling grid

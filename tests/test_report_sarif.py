@@ -8,10 +8,10 @@ from urllib.parse import urljoin
 import pytest
 
 import latchwatch
-from latchwatch.analyzers.findings import Finding, Frame, Placement, Related, Severity
+from latchwatch.analyzers.model.findings import Finding, Frame, Placement, Related, Severity
 from latchwatch.analyzers.rules.base import Rule, RuleDoc
-from latchwatch.server.report import Report, RunSummary
-from latchwatch.server.report_sarif import render_sarif
+from latchwatch.server.report.model import Report, RunSummary
+from latchwatch.server.report.as_sarif import render_sarif
 
 jsonschema = pytest.importorskip("jsonschema")
 

@@ -2,9 +2,9 @@
 
 import re
 
-from latchwatch.analyzers.findings import Finding, Severity
-from latchwatch.server.report import Report, RunSummary
-from latchwatch.server.report_text import render_text
+from latchwatch.analyzers.model.findings import Finding, Severity
+from latchwatch.server.report.model import Report, RunSummary
+from latchwatch.server.report.as_text import render_text
 
 # The GNU "file:line:column: severity: message" form compilers print and editors
 # (compilation buffers, quickfix lists) parse; common practice.

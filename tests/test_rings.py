@@ -8,8 +8,8 @@ import pytest
 import shapely
 from hypothesis import given, settings, strategies as st
 
-from latchwatch.analyzers import rings
-from latchwatch.analyzers.extract import Pieces
+from latchwatch.analyzers.extraction import rings
+from latchwatch.analyzers.extraction.extract import Pieces
 
 
 def _pieces(geoms):

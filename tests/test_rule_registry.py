@@ -4,7 +4,7 @@ import importlib
 import pkgutil
 
 import latchwatch.analyzers.rules as rules_pkg
-from latchwatch.analyzers.findings import Severity
+from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.rules import RULES, RULES_BY_ID
 
 # DESIGN 5.7 catalogue: id -> default severity (rules of later work are added as they land).

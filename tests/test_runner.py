@@ -12,8 +12,9 @@ from pathlib import Path
 
 import pytest
 
-from latchwatch.server import probe, runner
-from latchwatch.server.runner import RunnerError, run_script
+from latchwatch.server.child import probe
+from latchwatch.server.sandbox import runner
+from latchwatch.server.sandbox.runner import RunnerError, run_script
 from procs import processes_with as _processes_with
 
 linux_only = pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")

@@ -17,10 +17,10 @@ from pathlib import Path
 
 import pytest
 
-from latchwatch.server import runner
-from latchwatch.server.runner import run_script
-from latchwatch.server.sandbox import REQUIRED, SandboxReport, SandboxSettings
-from latchwatch.server.workers import inspect_sandbox
+from latchwatch.server.sandbox import runner
+from latchwatch.server.sandbox.runner import run_script
+from latchwatch.server.sandbox.policy import REQUIRED, SandboxReport, SandboxSettings
+from latchwatch.server.sandbox.workers import inspect_sandbox
 from procs import processes_with as _processes_with
 
 linux_only = pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")

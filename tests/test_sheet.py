@@ -8,8 +8,8 @@ import pytest
 import scipy.sparse.linalg as spla
 import shapely
 
-from latchwatch.analyzers import sheet
-from latchwatch.analyzers.sheet import SheetProblem, build_network, graded_lines, make_mesh, paint, solve
+from latchwatch.analyzers.electrical import sheet
+from latchwatch.analyzers.electrical.sheet import SheetProblem, build_network, graded_lines, make_mesh, paint, solve
 
 RS = 1000.0  # ohm per square; any value, the results scale with it
 NONE = np.empty(0, dtype=object)

@@ -11,16 +11,16 @@ import numpy as np
 import pytest
 
 from builders import ACTIVE, CONTACT, NPLUS, NWELL, PPLUS, CellBuilder, layout, outcome
-from latchwatch.analyzers import shunt
+from latchwatch.analyzers.electrical import shunt
 from latchwatch.analyzers.context import CheckContext, CheckOptions
-from latchwatch.analyzers.devices import device_table
-from latchwatch.analyzers.flatten import flatten
-from latchwatch.analyzers.mobility import sheet_resistance
+from latchwatch.analyzers.extraction.devices import device_table
+from latchwatch.analyzers.layout.flatten import flatten
+from latchwatch.analyzers.electrical.mobility import sheet_resistance
 from latchwatch.analyzers.rules.shunt_resistance import RULE
-from latchwatch.analyzers.shunt import shunt_estimates, si
-from latchwatch.analyzers.technology import TechnologyError, technology_from_mapping
-from latchwatch.server import lsp_convert
-from latchwatch.server.techfiles import load_technology
+from latchwatch.analyzers.electrical.shunt import shunt_estimates, si
+from latchwatch.analyzers.technology.model import TechnologyError, technology_from_mapping
+from latchwatch.server.lsp import convert as lsp_convert
+from latchwatch.server.config.techfiles import load_technology
 
 sys.path.insert(0, str(Path(__file__).parent / "bench"))
 import gen_row  # noqa: E402  (the benchmark's row generator draws the row layouts here too)
@@ -278,7 +278,7 @@ def test_pruning_keeps_the_findings(demo, core_current):
 
 def test_merged_shunt_diagnostic_lists_the_other_figures_with_prefixes(demo):
     # Three diffusions drawn on one line, at three distances down the strip well.
-    from latchwatch.analyzers.findings import Frame
+    from latchwatch.analyzers.model.findings import Frame
 
     c = CellBuilder("TOP").rect(NWELL, 0, 0, 80, 5)
     n_tap(c, 0, 0, 1.5, 5)

@@ -3,8 +3,8 @@ editor's add-a-comment edit."""
 
 import pytest
 
-from latchwatch.analyzers.findings import Finding, Frame, Severity
-from latchwatch.server.suppression import add_suppression, apply_suppressions, suppressions_in_source
+from latchwatch.analyzers.model.findings import Finding, Frame, Severity
+from latchwatch.server.runs.suppression import add_suppression, apply_suppressions, suppressions_in_source
 
 SOURCE = '''\
 import gdstk

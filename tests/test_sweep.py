@@ -22,10 +22,11 @@ from pathlib import Path
 
 import pytest
 
-from latchwatch.server import sweep, techfiles
-from latchwatch.server.pipeline import CheckSettings
-from latchwatch.server.project_config import ProjectConfig, SweepSpec, load_project_config
-from latchwatch.server.report_json import report_to_dict
+from latchwatch.server.runs import batch as sweep
+from latchwatch.server.config import techfiles
+from latchwatch.server.runs.pipeline import CheckSettings
+from latchwatch.server.config.project import ProjectConfig, SweepSpec, load_project_config
+from latchwatch.server.report.as_json import report_to_dict
 
 GENERATOR = '''\
 import gdstk

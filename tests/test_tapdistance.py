@@ -5,7 +5,7 @@ import pytest
 import shapely
 from hypothesis import example, given, settings, strategies as st
 
-from latchwatch.analyzers.tapdistance import DEFAULT_TOL, TapIndex, farthest_from_taps
+from latchwatch.analyzers.extraction.tapdistance import DEFAULT_TOL, TapIndex, farthest_from_taps
 
 
 def _run(diffs, taps, diff_body=None, tap_body=None, limit=None):

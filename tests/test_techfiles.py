@@ -8,10 +8,8 @@ from pathlib import Path
 
 import pytest
 
-from latchwatch.analyzers.technology import TechnologyError
-from latchwatch.server.techfiles import (
-    builtin_names, describe_technology, load_technology, tech_check_command,
-    tech_list_command, tech_show_command)
+from latchwatch.analyzers.technology.model import TechnologyError
+from latchwatch.server.config.techfiles import builtin_names, describe_technology, load_technology, tech_check_command, tech_list_command, tech_show_command
 
 PRESETS = ("demo", "gf180mcu", "sg13g2", "sky130")
 
@@ -143,7 +141,7 @@ def test_sky130_published_values():
 def test_published_preset_values_carry_a_citation(name):
     # Every value in the layer, label, rule and electrical tables of a published preset
     # has a comment on its line or on the lines just above it.
-    text = (resources.files("latchwatch.server") / "technologies" / f"{name}.toml").read_text()
+    text = (resources.files("latchwatch.server.config") / "technologies" / f"{name}.toml").read_text()
     section, comment_above = "", False
     for line in text.splitlines():
         stripped = line.strip()

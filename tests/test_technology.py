@@ -4,8 +4,7 @@ import copy
 
 import pytest
 
-from latchwatch.analyzers.technology import (
-    Electrical, SpacingLimit, TechnologyError, technology_from_mapping)
+from latchwatch.analyzers.technology.model import Electrical, SpacingLimit, TechnologyError, technology_from_mapping
 
 SOURCE = "tech.toml"
 

@@ -11,7 +11,7 @@ from pathlib import Path
 
 import pytest
 
-from latchwatch.server import trust
+from latchwatch.server.config import trust
 
 
 @pytest.fixture
@@ -111,7 +111,7 @@ def test_console_script(tmp_path, config_home):
     project = tmp_path / "project"
     project.mkdir()
     env = {**os.environ, "XDG_CONFIG_HOME": str(config_home)}
-    command = [sys.executable, "-m", "latchwatch.server.cli", "trust"]
+    command = [sys.executable, "-m", "latchwatch", "trust"]
     done = subprocess.run(command + [str(project)], env=env, capture_output=True, text=True)
     assert done.returncode == 0, done.stderr
     listed = subprocess.run(command + ["--list"], env=env, capture_output=True, text=True)

@@ -6,7 +6,8 @@ import gdstk
 import numpy as np
 import pytest
 
-from latchwatch.server import probe, wire
+from latchwatch.server.child import probe
+from latchwatch.server.sandbox import wire
 
 
 def _payload(header, arrays):

@@ -3,9 +3,9 @@ group, and leaves no folder behind."""
 
 from __future__ import annotations
 
-from latchwatch.server import workers
-from latchwatch.server.sandbox import SandboxSettings
-from latchwatch.server.workers import Worker, WorkerKey, close_quietly
+from latchwatch.server.sandbox import workers
+from latchwatch.server.sandbox.policy import SandboxSettings
+from latchwatch.server.sandbox.workers import Worker, WorkerKey, close_quietly
 
 
 def test_a_discarded_worker_leaves_no_folder(tmp_path):

@@ -2,22 +2,8 @@
 
 from __future__ import annotations
 
-from . import (
-    floating_well,
-    invalid_geometry,
-    io_guard_ring,
-    io_spacing,
-    isolation_tie,
-    no_geometry,
-    script_error,
-    script_limit,
-    script_timeout,
-    shunt_resistance,
-    tap_distance,
-    tap_supply,
-    uncontacted_tap,
-)
-from .base import Rule, RuleDoc
+from latchwatch.analyzers.rules import floating_well, invalid_geometry, io_guard_ring, io_spacing, isolation_tie, no_geometry, script_error, script_limit, script_timeout, shunt_resistance, tap_distance, tap_supply, uncontacted_tap
+from latchwatch.analyzers.rules.base import Rule, RuleDoc
 
 RULES: tuple[Rule, ...] = (
     tap_distance.RULE,

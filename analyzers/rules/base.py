@@ -6,7 +6,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Callable, Iterable
 
-from ..findings import Finding, Severity
+from latchwatch.analyzers.model.findings import Finding, Severity
 
 
 @dataclass(frozen=True)

@@ -6,9 +6,9 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
-from ..extract import is_pwell_body, pwell_index
-from ..findings import Severity
-from .base import Rule, RuleDoc
+from latchwatch.analyzers.extraction.extract import is_pwell_body, pwell_index
+from latchwatch.analyzers.model.findings import Severity
+from latchwatch.analyzers.rules.base import Rule, RuleDoc
 
 MESSAGE = "n-well holds {n} P+ {noun} but no contacted n-tap{extra}"
 MESSAGE_PWELL = "isolated p-well holds {n} N+ {noun} but no contacted p-tap{extra}"

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..findings import Severity
-from .base import Rule, RuleDoc
+from latchwatch.analyzers.model.findings import Severity
+from latchwatch.analyzers.rules.base import Rule, RuleDoc
 
 MESSAGE = "polygon on layer {layer}/{datatype} is invalid ({reason}); it was repaired before checking"
 

@@ -6,12 +6,12 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
-from .. import rings
-from ..findings import Severity
-from ..nets import pad_connected
-from ..tapdistance import SLACK
-from .base import Rule, RuleDoc
-from .tap_distance import describe
+from latchwatch.analyzers.extraction import rings
+from latchwatch.analyzers.model.findings import Severity
+from latchwatch.analyzers.extraction.nets import pad_connected
+from latchwatch.analyzers.extraction.tapdistance import SLACK
+from latchwatch.analyzers.rules.base import Rule, RuleDoc
+from latchwatch.analyzers.rules.tap_distance import describe
 
 # Per device kind: the ring it needs and the ring of the opposite type.
 RING = {"n": ("P+", "p-tap"), "p": ("N+", "n-tap")}

@@ -6,11 +6,11 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
-from ..findings import Severity
-from ..nets import pad_connected
-from ..tapdistance import SLACK
-from .base import Rule, RuleDoc
-from .tap_distance import describe
+from latchwatch.analyzers.model.findings import Severity
+from latchwatch.analyzers.extraction.nets import pad_connected
+from latchwatch.analyzers.extraction.tapdistance import SLACK
+from latchwatch.analyzers.rules.base import Rule, RuleDoc
+from latchwatch.analyzers.rules.tap_distance import describe
 
 MESSAGE = "pad-connected {what} is {value:.2f} um from {target} (minimum {limit:.2f} um){extra}"
 OPPOSITE = {"n": ("a P+ device diffusion", "nearest P+ device diffusion"),

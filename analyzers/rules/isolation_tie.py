@@ -6,10 +6,10 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
-from ..connectivity import meeting_pairs
-from ..extract import is_pwell_body, pwell_index
-from ..findings import Severity
-from .base import Rule, RuleDoc
+from latchwatch.analyzers.extraction.connectivity import meeting_pairs
+from latchwatch.analyzers.extraction.extract import is_pwell_body, pwell_index
+from latchwatch.analyzers.model.findings import Severity
+from latchwatch.analyzers.rules.base import Rule, RuleDoc
 
 MESSAGE_NO_WELL = "deep n-well has no tie: no n-well touches it"
 MESSAGE_UNTIED = "deep n-well has no tie: the {n} n-well{s} touching it hold{verb} no contacted n-tap"

@@ -3,8 +3,8 @@
 from __future__ import annotations
 
 
-from ..findings import Severity
-from .base import Rule, RuleDoc
+from latchwatch.analyzers.model.findings import Severity
+from latchwatch.analyzers.rules.base import Rule, RuleDoc
 
 MESSAGE = "script ran but drew no shapes on the layers of technology {tech}"
 

@@ -2,8 +2,8 @@
 
 from __future__ import annotations
 
-from ..findings import Severity
-from .base import Rule, RuleDoc
+from latchwatch.analyzers.model.findings import Severity
+from latchwatch.analyzers.rules.base import Rule, RuleDoc
 
 MESSAGE = "script exceeded a resource limit: {message}"
 

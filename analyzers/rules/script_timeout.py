@@ -2,8 +2,8 @@
 
 from __future__ import annotations
 
-from ..findings import Severity
-from .base import Rule, RuleDoc
+from latchwatch.analyzers.model.findings import Severity
+from latchwatch.analyzers.rules.base import Rule, RuleDoc
 
 MESSAGE = "script ran past its time limit and was stopped after {seconds:.1f} s while running this line"
 

@@ -7,11 +7,11 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
-from ..extract import SUBSTRATE
-from ..findings import Severity
-from ..shunt import nearest_taps, shunt_estimates, si
-from .base import Rule, RuleDoc
-from .tap_distance import describe
+from latchwatch.analyzers.extraction.extract import SUBSTRATE
+from latchwatch.analyzers.model.findings import Severity
+from latchwatch.analyzers.electrical.shunt import nearest_taps, shunt_estimates, si
+from latchwatch.analyzers.rules.base import Rule, RuleDoc
+from latchwatch.analyzers.rules.tap_distance import describe
 
 BODY = {"p": ("n-well", "n-well tap"), "n": ("substrate", "substrate tap"), "pwell": ("p-well", "p-well tap")}
 MESSAGE = ("{what}: estimated {body} resistance to its taps {ohm} (sheet model), so {trigger} through it "

@@ -5,10 +5,10 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
-from ..devices import KINDS, tap_distances
-from ..extract import SUBSTRATE, is_pwell_body
-from ..findings import Severity
-from .base import Rule, RuleDoc
+from latchwatch.analyzers.extraction.devices import KINDS, tap_distances
+from latchwatch.analyzers.extraction.extract import SUBSTRATE, is_pwell_body
+from latchwatch.analyzers.model.findings import Severity
+from latchwatch.analyzers.rules.base import Rule, RuleDoc
 
 NAMES = {"p": ("P+", "n-well tap", "the n-well edge"), "n": ("N+", "substrate tap", "the nearest n-well")}
 MESSAGE = "{what} is {value:.2f} um from the nearest {tap} (limit {limit:.2f} um{where})"

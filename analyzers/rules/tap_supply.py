@@ -6,10 +6,10 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
-from ..connectivity import NTAP, PTAP
-from ..findings import Severity
-from ..nets import nets
-from .base import Rule, RuleDoc
+from latchwatch.analyzers.extraction.connectivity import NTAP, PTAP
+from latchwatch.analyzers.model.findings import Severity
+from latchwatch.analyzers.extraction.nets import nets
+from latchwatch.analyzers.rules.base import Rule, RuleDoc
 
 SUPPLY = {"n": ("n-tap", "power", NTAP), "p": ("p-tap", "ground", PTAP)}
 MESSAGE_WRONG = "{tap} is on net {net}, which is not a {supply} net ({patterns})"

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
-from ..findings import Severity
-from .base import Rule, RuleDoc
+from latchwatch.analyzers.model.findings import Severity
+from latchwatch.analyzers.rules.base import Rule, RuleDoc
 
 MESSAGE = "{kind} encloses no contact; it is not counted as a tap"
 

@@ -33,7 +33,7 @@ def bare_run(python: str) -> float:
 
 
 def captured_run(python: str) -> tuple[float, int]:
-    from latchwatch.server.runner import run_script
+    from latchwatch.server.sandbox.runner import run_script
 
     started = time.perf_counter()
     outcome = run_script(GENERATOR, python=python, timeout=120)
@@ -47,7 +47,8 @@ def phase_child(capture: bool) -> None:
     """One measurement in this (fresh) interpreter; prints a JSON dict of seconds."""
     import gdstk  # noqa: F401  (imported first, as the probe does)
 
-    from latchwatch.server import probe, wire
+    from latchwatch.server.child import probe
+    from latchwatch.server.sandbox import wire
 
     recorder = probe._Recorder()
     if capture:

@@ -69,7 +69,7 @@ async def edit_to_publish(project: Path, script: Path, edits: int, pause: float)
             arrived.set()
 
     env = {**os.environ, "XDG_CONFIG_HOME": str(project.parent / "xdg"), "XDG_CACHE_HOME": str(project.parent / "cache")}
-    await client.start_io(sys.executable, "-m", "latchwatch.server.cli", "serve", env=env)
+    await client.start_io(sys.executable, "-m", "latchwatch", "serve", env=env)
     await client.initialize_async(types.InitializeParams(
         capabilities=types.ClientCapabilities(), root_uri=from_fs_path(str(project)),
         initialization_options={"latchwatch": {"trustedFolders": [str(project)], "debounce": 0}}))
@@ -107,8 +107,8 @@ async def wait_for(published: dict, arrived: asyncio.Event, version: int) -> Non
 def pipeline_parts(project: Path, script: Path, repeats: int) -> tuple[list[float], list[float], list[float]]:
     from dataclasses import replace
 
-    from latchwatch.server.lsp_settings import EditorSettings, TechnologyCache, document_settings
-    from latchwatch.server.pipeline import check_run, run_path
+    from latchwatch.server.lsp.settings import EditorSettings, TechnologyCache, document_settings
+    from latchwatch.server.runs.pipeline import check_run, run_path
 
     settings = document_settings(script, EditorSettings(), project, TechnologyCache()).check
     fresh = replace(settings, hosted=False)

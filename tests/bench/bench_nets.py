@@ -30,12 +30,12 @@ sys.path.insert(0, str(HERE))
 from gen_row import GROUP_W, ROW_H, ROW_PITCH, TAP_W, main as draw_rows  # noqa: E402
 
 from latchwatch.analyzers.context import CheckContext, CheckOptions  # noqa: E402
-from latchwatch.analyzers.flatten import flatten  # noqa: E402
-from latchwatch.analyzers.nets import nets  # noqa: E402
+from latchwatch.analyzers.layout.flatten import flatten
+from latchwatch.analyzers.extraction.nets import nets
 from latchwatch.analyzers.rules import RULES_BY_ID  # noqa: E402
-from latchwatch.analyzers.run_outcome import RunOutcome  # noqa: E402
+from latchwatch.analyzers.model.run_outcome import RunOutcome
 from latchwatch.server.layoutfile import read_layout  # noqa: E402
-from latchwatch.server.techfiles import load_technology  # noqa: E402
+from latchwatch.server.config.techfiles import load_technology
 
 DEFAULT_SIZES = (100_000, 1_000_000)
 CORE = ("tap-distance", "floating-well", "uncontacted-tap")

@@ -20,8 +20,8 @@ import tempfile
 import time
 from pathlib import Path
 
-from latchwatch.server import runner
-from latchwatch.server.sandbox import SKIPPABLE, SandboxReport
+from latchwatch.server.sandbox import runner
+from latchwatch.server.sandbox.policy import SKIPPABLE, SandboxReport
 
 SCRIPT = "import gdstk\ngdstk.Cell('T').add(gdstk.rectangle((0, 0), (1, 1)))\n"
 BUDGET_MS = 30.0

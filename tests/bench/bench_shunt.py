@@ -29,9 +29,9 @@ DEFAULT_SIZES = (100_000, 1_000_000)
 def check_seconds(layout_path: Path, with_shunt: bool, repeat: int = 1) -> tuple[float, object]:
     from latchwatch.analyzers.check import CheckOptions, check_outcome
     from latchwatch.analyzers.rules import RULES
-    from latchwatch.analyzers.run_outcome import RunOutcome
+    from latchwatch.analyzers.model.run_outcome import RunOutcome
     from latchwatch.server.layoutfile import read_layout
-    from latchwatch.server.techfiles import load_technology
+    from latchwatch.server.config.techfiles import load_technology
 
     tech = load_technology("demo")
     captured = read_layout(layout_path)
@@ -48,13 +48,13 @@ def check_seconds(layout_path: Path, with_shunt: bool, repeat: int = 1) -> tuple
 
 def phases(layout_path: Path) -> dict:
     """Seconds of the core check and of the estimate, and the estimate's counts."""
-    from latchwatch.analyzers import shunt
+    from latchwatch.analyzers.electrical import shunt
     from latchwatch.analyzers.context import CheckContext, CheckOptions
-    from latchwatch.analyzers.flatten import flatten
+    from latchwatch.analyzers.layout.flatten import flatten
     from latchwatch.analyzers.rules import RULES
-    from latchwatch.analyzers.run_outcome import RunOutcome
+    from latchwatch.analyzers.model.run_outcome import RunOutcome
     from latchwatch.server.layoutfile import read_layout
-    from latchwatch.server.techfiles import load_technology
+    from latchwatch.server.config.techfiles import load_technology
 
     tech = load_technology("demo")
     captured = read_layout(layout_path)

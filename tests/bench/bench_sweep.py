@@ -28,8 +28,10 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from test_sweep import GENERATOR  # noqa: E402  (the cell of the sweep tests)
 
-from latchwatch.server import hosts, sweep, techfiles  # noqa: E402
-from latchwatch.server.pipeline import CheckSettings  # noqa: E402
+from latchwatch.server.sandbox import hosts
+from latchwatch.server.runs import batch as sweep
+from latchwatch.server.config import techfiles
+from latchwatch.server.runs.pipeline import CheckSettings
 
 
 def corner_params(count: int) -> list[str]:

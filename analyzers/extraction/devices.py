@@ -1,0 +1,77 @@
+"""Per-device figures shared by the tap-distance rule and the ``--devices`` table."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import shapely
+
+from latchwatch.analyzers.extraction.extract import SUBSTRATE, Pieces, is_pwell_body, pwell_index, spacing_to_opposite_well
+from latchwatch.analyzers.model.findings import Device
+from latchwatch.analyzers.extraction.nets import device_net_names
+from latchwatch.analyzers.electrical.shunt import shunt_estimates
+from latchwatch.analyzers.extraction.tapdistance import FarthestPoints, TapIndex, farthest_from_taps
+
+KINDS = ("p", "n")  # P+ in an n-well, N+ in the p-body
+
+
+@dataclass
+class KindResult:
+    kind: str
+    pieces: Pieces
+    taps: Pieces  # contacted taps of the matching type
+    gated: np.ndarray
+    limit: np.ndarray  # per piece, nan when the technology sets none
+    spacing: np.ndarray
+    result: FarthestPoints
+
+
+def body_name(kind: str, body: int) -> str:
+    if body == SUBSTRATE:
+        return "psub"
+    return f"pwell#{pwell_index(body) + 1}" if is_pwell_body(body) else f"nwell#{body + 1}"
+
+
+def tap_distances(ctx, kind: str, exact: bool) -> KindResult:
+    ex, tech = ctx.extraction, ctx.tech
+    pieces = ex.pdiff if kind == "p" else ex.ndiff
+    gated = ex.pdiff_gated if kind == "p" else ex.ndiff_gated
+    taps = ex.ntap.select(ex.ntap_contacted) if kind == "p" else ex.ptap.select(ex.ptap_contacted)
+    spacing = spacing_to_opposite_well(ex, kind) if tech.has_spacing_table() else np.full(len(pieces), np.nan)
+    def limit_at(s: float) -> float:
+        value = tech.tap_distance_limit(kind, None if np.isnan(s) else float(s))
+        return np.nan if value is None else value
+
+    # Without a spacing table every piece has the same limit (spacing is all nan).
+    limits = np.array([limit_at(s) for s in spacing] if tech.has_spacing_table()
+                      else [limit_at(np.nan)] * len(pieces), dtype=float)
+    index = TapIndex(taps.geoms, taps.body)
+    result = farthest_from_taps(pieces.geoms, pieces.body, index, limits, exact=exact)
+    return KindResult(kind, pieces, taps, gated, limits, spacing, result)
+
+
+def device_table(ctx) -> list[Device]:
+    rows = []
+    for kind in KINDS:
+        r = ctx.memo(("tap-distance", True), lambda: {k: tap_distances(ctx, k, True) for k in KINDS})[kind]
+        bounds = shapely.bounds(r.pieces.geoms)
+        net_names = device_net_names(ctx, kind)
+        shunt = shunt_estimates(ctx, exact=True)[kind]
+        ohm, trigger = _finite(shunt.ohm), _finite(shunt.trigger)
+        for i in range(len(r.pieces)):
+            loc = ctx.provenance.locate_shape(int(r.pieces.shape[i]))
+            value = r.result.value[i]
+            rows.append(Device(
+                kind="pdiff" if kind == "p" else "ndiff", cell=loc["cell"],
+                bbox=tuple(round(float(v), 6) for v in bounds[i]), file=loc["file"], line=loc["line"],
+                body=body_name(kind, int(r.pieces.body[i])),
+                tap_distance_um=None if not np.isfinite(value) else round(float(value), 6),
+                net=net_names[i], shunt_ohm=ohm[i], trigger_current_a=trigger[i], corner=ctx.outcome.corner,
+            ))
+    return rows
+
+
+def _finite(values: np.ndarray) -> list[float | None]:
+    """Figures for the table: None where unknown (no sheet value) or unbounded (no tap)."""
+    return [float(f"{v:.6g}") if np.isfinite(v) else None for v in values]

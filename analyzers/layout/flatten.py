@@ -1,0 +1,286 @@
+"""Flatten a captured hierarchy into per-shape arrays, with numpy transforms.
+
+Each reference copy becomes an *instance*: an affine transform (2x2 matrix plus
+translation) and a parent pointer, so a finding can name the placements from the
+top cell down. Transforms follow the GDSII order: x-reflection, magnification,
+rotation, then translation; repetition offsets are added to the origin in the
+parent's coordinates. Arrays are expanded with numpy, never one copy at a time.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import shapely
+
+from latchwatch.analyzers.model.captured import CapturedLayout
+from latchwatch.analyzers.layout.geometry import axis_aligned_rectangles
+
+MAX_DEPTH = 64
+
+
+class HierarchyError(ValueError):
+    """The reference graph has a cycle or is deeper than MAX_DEPTH."""
+
+
+@dataclass
+class Instances:
+    """One row per placed copy of a cell; row 0.. are the top cell itself."""
+
+    cell: np.ndarray  # int32, the placed cell
+    parent: np.ndarray  # int32, parent instance or -1
+    ref: np.ndarray  # int32, index of the reference in the parent's cell, or -1
+    column: np.ndarray  # int32, repetition column (or explicit index)
+    row: np.ndarray  # int32, repetition row (-1 for explicit offsets)
+    matrix: np.ndarray  # (n, 2, 2)
+    offset: np.ndarray  # (n, 2)
+
+    def __len__(self) -> int:
+        return len(self.cell)
+
+
+@dataclass
+class FlatLayout:
+    captured: CapturedLayout
+    top: int
+    instances: Instances
+    polygons: np.ndarray  # shapely Polygons in top-cell coordinates
+    layer: np.ndarray  # int32
+    datatype: np.ndarray  # int32
+    stack: np.ndarray  # int32, stack id of the source polygon
+    instance: np.ndarray  # int32, instance holding the shape
+    source_polygon: np.ndarray  # int64, index of the polygon within its cell
+    label_text: np.ndarray  # object array of str
+    label_layer: np.ndarray
+    label_texttype: np.ndarray
+    label_xy: np.ndarray  # (k, 2)
+    label_stack: np.ndarray
+    label_instance: np.ndarray
+    invalid: np.ndarray  # flat indices of polygons that were invalid and got repaired
+    invalid_reason: np.ndarray  # GEOS's reason for each of them
+
+    @property
+    def top_name(self) -> str:
+        return self.captured.cells[self.top].name
+
+    def on_layer(self, spec: tuple[int, int] | None) -> np.ndarray:
+        """Indices of the shapes on one (layer, datatype) pair."""
+        if spec is None:
+            return np.zeros(0, dtype=np.int64)
+        return np.flatnonzero((self.layer == spec[0]) & (self.datatype == spec[1]))
+
+    def cell_of(self, shape: int) -> str:
+        return self.captured.cells[self.instances.cell[self.instance[shape]]].name
+
+
+def _reference_matrices(rotation, magnification, x_reflection):
+    cos, sin = np.cos(rotation) * magnification, np.sin(rotation) * magnification
+    flip = np.where(x_reflection, -1.0, 1.0)
+    # R(theta) * mag * diag(1, flip)
+    return np.stack(
+        [np.stack([cos, -sin * flip], axis=-1), np.stack([sin, cos * flip], axis=-1)], axis=-2
+    )
+
+
+def _reference_copies(cell):
+    """Every copy of every reference of ``cell``: (ref index, column, row, offset)."""
+    n_refs = cell.reference_count
+    explicit_counts = np.diff(cell.ref_explicit_offsets)
+    has_explicit = explicit_counts > 0
+    lattice_counts = np.maximum(cell.ref_columns, 1) * np.maximum(cell.ref_rows, 1)
+    counts = np.where(has_explicit, explicit_counts, lattice_counts).astype(np.int64)
+    ref = np.repeat(np.arange(n_refs), counts)
+    local = np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts)
+    cols = np.maximum(cell.ref_columns, 1)[ref]
+    column, row = local % cols, local // cols
+    lattice = column[:, None] * cell.ref_v1[ref] + row[:, None] * cell.ref_v2[ref]
+    explicit_idx = np.minimum(
+        cell.ref_explicit_offsets[ref] + local, max(len(cell.ref_explicit) - 1, 0)
+    )
+    explicit = cell.ref_explicit[explicit_idx] if len(cell.ref_explicit) else lattice
+    copy_explicit = has_explicit[ref]
+    offset = np.where(copy_explicit[:, None], explicit, lattice) + cell.ref_origin[ref]
+    column = np.where(copy_explicit, local, column)
+    row = np.where(copy_explicit, -1, row)
+    return ref, column.astype(np.int32), row.astype(np.int32), offset
+
+
+def expand_instances(captured: CapturedLayout, top: int) -> Instances:
+    """All placed copies of every cell under ``top``, level by level."""
+    cells = [np.array([top], dtype=np.int32)]
+    parents = [np.array([-1], dtype=np.int32)]
+    refs, columns, rows = [np.array([-1], np.int32)], [np.array([0], np.int32)], [np.array([0], np.int32)]
+    matrices, offsets = [np.eye(2)[None]], [np.zeros((1, 2))]
+    level_start, total = 0, 1
+    for _ in range(MAX_DEPTH):
+        level_cells = np.concatenate(cells)[level_start:]
+        level_mat = np.concatenate(matrices)[level_start:]
+        level_off = np.concatenate(offsets)[level_start:]
+        new_rows = 0
+        for cell_index in np.unique(level_cells):
+            cell = captured.cells[cell_index]
+            if cell.reference_count == 0:
+                continue
+            parent_rows = np.flatnonzero(level_cells == cell_index)
+            ref, col, row, copy_offset = _reference_copies(cell)
+            copy_matrix = _reference_matrices(
+                cell.ref_rotation[ref], cell.ref_magnification[ref], cell.ref_x_reflection[ref]
+            )
+            pm, po = level_mat[parent_rows], level_off[parent_rows]
+            # (parents, copies, 2, 2) and (parents, copies, 2)
+            mat = np.einsum("pij,cjk->pcik", pm, copy_matrix).reshape(-1, 2, 2)
+            off = (np.einsum("pij,cj->pci", pm, copy_offset) + po[:, None, :]).reshape(-1, 2)
+            n_par, n_copy = len(parent_rows), len(ref)
+            cells.append(np.tile(cell.ref_cell[ref], n_par).astype(np.int32))
+            parents.append(np.repeat(parent_rows + level_start, n_copy).astype(np.int32))
+            refs.append(np.tile(ref, n_par).astype(np.int32))
+            columns.append(np.tile(col, n_par))
+            rows.append(np.tile(row, n_par))
+            matrices.append(mat)
+            offsets.append(off)
+            new_rows += n_par * n_copy
+        if new_rows == 0:
+            break
+        level_start, total = total, total + new_rows
+    else:
+        raise HierarchyError(
+            f"cell {captured.cells[top].name!r}: references nest deeper than {MAX_DEPTH} levels (a cycle?)"
+        )
+    return Instances(
+        cell=np.concatenate(cells), parent=np.concatenate(parents), ref=np.concatenate(refs),
+        column=np.concatenate(columns), row=np.concatenate(rows),
+        matrix=np.concatenate(matrices), offset=np.concatenate(offsets),
+    )
+
+
+def _transform_points(points, matrix, offset, grid):
+    """points (m, 2) under each of k transforms -> (k, m, 2), snapped to the database grid.
+
+    Snapping is what a layout database does on placement, and it keeps exactly abutting
+    copies exactly abutting (cos 270 degrees is -1.8e-16 in floating point)."""
+    moved = np.einsum("kij,mj->kmi", matrix, points) + offset[:, None, :]
+    return np.round(moved / grid) * grid if grid > 0 else moved
+
+
+def _polygons_from_rings(coords, offsets):
+    """Shapely polygons from concatenated ring vertices, in one ragged-array call (five
+    times faster than shapely.polygons on a million rectangles). Rings are closed here,
+    so no shapely version has to; fewer than three vertices give an empty polygon,
+    which repair() reports."""
+    counts = np.diff(offsets)
+    out = np.empty(len(counts), dtype=object)
+    degenerate = counts < 3
+    if degenerate.any():
+        out[degenerate] = [shapely.Polygon()] * int(degenerate.sum())
+    keep = np.flatnonzero(~degenerate)
+    if len(keep) == 0:
+        return out
+    closed = counts[keep] + 1
+    ring_offsets = np.zeros(len(keep) + 1, np.int64)
+    np.cumsum(closed, out=ring_offsets[1:])
+    within = np.arange(ring_offsets[-1]) - np.repeat(ring_offsets[:-1], closed)
+    within[ring_offsets[1:] - 1] = 0  # each ring ends on its first vertex
+    vertices = coords[np.repeat(offsets[:-1][keep], closed) + within]
+    out[keep] = shapely.from_ragged_array(shapely.GeometryType.POLYGON, vertices,
+                                          (ring_offsets, np.arange(len(keep) + 1)))
+    return out
+
+
+def _non_finite_rings(coords, offsets):
+    """Boolean per ring: a NaN or infinite vertex (one check of the whole array when none)."""
+    finite = np.isfinite(coords).all(axis=1)
+    if finite.all():
+        return np.zeros(len(offsets) - 1, dtype=bool)
+    bad_vertex = np.concatenate([[0], np.cumsum(~finite)])
+    return bad_vertex[offsets[1:]] > bad_vertex[offsets[:-1]]
+
+
+def repair(polygons: np.ndarray, non_finite: np.ndarray | None = None):
+    """Make invalid polygons valid, keeping only their polygonal parts.
+
+    A degenerate polygon (zero area) becomes an empty geometry that no query hits, and
+    so does one marked in ``non_finite`` (NaN or infinite coordinates), which GEOS
+    cannot repair."""
+    broken = np.zeros(len(polygons), dtype=bool) if non_finite is None else non_finite
+    # Rectangles are valid by construction; GEOS validity is costly, so test the rest only.
+    others = np.flatnonzero(~axis_aligned_rectangles(polygons) | broken)
+    sub = polygons[others]
+    non_finite = broken[others]
+    flawed = non_finite.copy()
+    finite = sub[~non_finite]
+    flawed[~non_finite] = ~shapely.is_valid(finite) | (shapely.area(finite) <= 0)
+    invalid = others[flawed]
+    if len(invalid) == 0:
+        return invalid, np.empty(0, dtype=object), polygons
+    unusable = non_finite[flawed]
+    bad = polygons[invalid].copy()
+    bad[unusable] = shapely.Polygon()
+    reasons = np.array(shapely.is_valid_reason(bad), dtype=object)
+    reasons[reasons == "Valid Geometry"] = "zero area"
+    reasons[unusable] = "NaN or infinite coordinates"
+    fixed = shapely.make_valid(bad)
+    parts, owner = shapely.get_parts(fixed, return_index=True)
+    keep = shapely.get_type_id(parts) == shapely.GeometryType.POLYGON
+    rebuilt = np.array([shapely.Polygon()] * len(bad), dtype=object)
+    if keep.any():
+        present, dense = np.unique(owner[keep], return_inverse=True)
+        rebuilt[present] = shapely.multipolygons(parts[keep], indices=dense)
+    out = polygons.copy()
+    out[invalid] = rebuilt
+    return invalid, reasons, out
+
+
+def flatten(captured: CapturedLayout, top: int) -> FlatLayout:
+    inst = expand_instances(captured, top)
+    grid = captured.precision / captured.unit
+    order = np.argsort(inst.cell, kind="stable")
+    groups = np.split(order, np.flatnonzero(np.diff(inst.cell[order])) + 1) if len(order) else []
+    polys, layers, dts, stacks, owners, sources, non_finite = [], [], [], [], [], [], []
+    lt, ll, ltt, lxy, lst, lin = [], [], [], [], [], []
+    for members in groups:
+        cell = captured.cells[inst.cell[members[0]]]
+        k = len(members)
+        if cell.polygon_count:
+            pts = _transform_points(cell.points, inst.matrix[members], inst.offset[members], grid)
+            counts = np.diff(cell.poly_offsets)
+            all_offsets = np.concatenate([[0], np.cumsum(np.tile(counts, k))])
+            non_finite.append(_non_finite_rings(pts.reshape(-1, 2), all_offsets))
+            with np.errstate(invalid="ignore" if non_finite[-1].any() else "warn"):  # repair() reports them
+                polys.append(_polygons_from_rings(pts.reshape(-1, 2), all_offsets))
+            layers.append(np.tile(cell.poly_layer, k))
+            dts.append(np.tile(cell.poly_datatype, k))
+            stacks.append(np.tile(cell.poly_stack, k))
+            owners.append(np.repeat(members, cell.polygon_count))
+            sources.append(np.tile(np.arange(cell.polygon_count), k))
+        if len(cell.label_text):
+            n = len(cell.label_text)
+            lt.append(np.tile(np.array(cell.label_text, dtype=object), k))
+            ll.append(np.tile(cell.label_layer, k))
+            ltt.append(np.tile(cell.label_texttype, k))
+            lxy.append(_transform_points(cell.label_origin, inst.matrix[members], inst.offset[members], grid).reshape(-1, 2))
+            lst.append(np.tile(cell.label_stack, k))
+            lin.append(np.repeat(members, n))
+
+    def cat(parts, dtype, shape=(0,)):
+        return np.concatenate(parts) if parts else np.zeros(shape, dtype=dtype)
+
+    polygons = cat(polys, object)
+    invalid, reasons, polygons = repair(polygons, cat(non_finite, bool))
+    return FlatLayout(
+        captured=captured, top=top, instances=inst, invalid=invalid, invalid_reason=reasons,
+        polygons=polygons, layer=cat(layers, np.int32), datatype=cat(dts, np.int32),
+        stack=cat(stacks, np.int32), instance=cat(owners, np.int32), source_polygon=cat(sources, np.int64),
+        label_text=cat(lt, object), label_layer=cat(ll, np.int32), label_texttype=cat(ltt, np.int32),
+        label_xy=cat(lxy, float, (0, 2)), label_stack=cat(lst, np.int32), label_instance=cat(lin, np.int32),
+    )
+
+
+def placement_chain(flat: FlatLayout, instance: int) -> list[tuple[int, int]]:
+    """(instance, parent cell) pairs from the top cell down to ``instance``."""
+    chain = []
+    inst = flat.instances
+    while instance >= 0 and inst.parent[instance] >= 0:
+        chain.append((instance, int(inst.cell[inst.parent[instance]])))
+        instance = int(inst.parent[instance])
+    return chain[::-1]

@@ -1,0 +1,448 @@
+"""The technology model (DESIGN 5.4): layer roles, connectivity, nets, rule limits
+and electrical parameters, validated from an already-parsed mapping.
+
+Reading TOML files and resolving ``extends`` belong to latchwatch.server.config.techfiles;
+this module only checks and converts a mapping, so every error it raises names
+the file it was told the mapping came from, the full dotted key and what was
+expected.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import re
+from dataclasses import dataclass, fields
+from types import MappingProxyType
+from typing import Any, Mapping
+
+from latchwatch.analyzers.electrical.mobility import MAX_DOPING, MIN_DOPING, UM_PER_CM, sheet_resistance
+
+REQUIRED_LAYERS = ("nwell", "active", "poly", "nplus", "pplus", "contact")
+OPTIONAL_LAYERS = ("metal1", "via1", "metal2", "pwell", "deep_nwell", "tap", "io_marker")
+_METAL = re.compile(r"metal[1-9][0-9]*")
+_VIA = re.compile(r"via[1-9][0-9]*")
+_LAYER_ROLES_TEXT = ", ".join(REQUIRED_LAYERS + OPTIONAL_LAYERS) + ", metalN or viaN"
+_PAIR_TEXT = "a [gds_layer, datatype] pair of two non-negative integers"
+
+TOP_LEVEL_KEYS = (
+    "name", "description", "extends", "layers", "labels", "connectivity", "nets", "rules",
+    "electrical",
+)
+NET_KEYS = ("power", "ground", "pads")
+DOUBLE_KINDS = ("ndiff", "pdiff")  # [rules.io-guard-ring] double for one kind of device (the devices table's names)
+RULE_KEYS = {
+    "tap-distance": ("limit", "limit_n", "limit_p", "by_spacing"),
+    "io-guard-ring": ("min_width", "max_gap", "double"),
+    "io-spacing": ("min",),
+}
+
+
+def is_cut_role(role: str) -> bool:
+    return role == "contact" or _VIA.fullmatch(role) is not None
+
+
+def is_conductor_role(role: str) -> bool:
+    return role in ("active", "tap", "poly") or _METAL.fullmatch(role) is not None
+
+
+def _is_layer_role(role: str) -> bool:
+    return role in REQUIRED_LAYERS or role in OPTIONAL_LAYERS or is_cut_role(role) or (
+        is_conductor_role(role))
+
+
+class TechnologyError(Exception):
+    """A technology file that cannot be used, with where and why.
+
+    ``str(e)`` is ``f"{file}: {key}: expected {expected}, got {got!r}"``; ``key`` is
+    empty for whole-file problems, ``line``/``column`` are set for TOML syntax
+    errors, and unknown keys add a did-you-mean.
+    """
+
+    def __init__(self, file: str, key: str, expected: str, got: Any = None, *,
+                 got_text: str | None = None, suggestion: str | None = None,
+                 line: int | None = None, column: int | None = None):
+        self.file = file
+        self.key = key
+        self.expected = expected
+        self.got = got
+        self.got_text = got_text
+        self.suggestion = suggestion
+        self.line = line
+        self.column = column
+        super().__init__(str(self))
+
+    def __str__(self) -> str:
+        where = self.file if self.line is None else f"{self.file}:{self.line}:{self.column}"
+        head = f"{where}: {self.key}: " if self.key else f"{where}: "
+        got = self.got_text if self.got_text is not None else _show(self.got)
+        text = f"{head}expected {self.expected}, got {got}"
+        if self.suggestion:
+            text += f"; did you mean {self.suggestion!r}?"
+        return text
+
+
+def _show(value: Any) -> str:
+    text = repr(value)
+    return text if len(text) <= 80 else text[:77] + "..."
+
+
+@dataclass(frozen=True)
+class SpacingLimit:
+    """One row of a spacing-dependent tap-distance table, in um."""
+
+    min_spacing: float  # the row applies when the spacing to the opposite well is >= this
+    limit: float
+
+
+@dataclass(frozen=True)
+class Electrical:
+    """Parameters of the physics estimate; unset sheet values mean "not known"."""
+
+    vbe_on: float = 0.7  # V; common practice in latch-up work (DESIGN 2)
+    nwell_sheet: float | None = None  # ohm/sq
+    psub_sheet: float | None = None  # ohm/sq, the substrate treated as a sheet
+    injection_current: float = 0.1  # A a pad-connected device must withstand
+    pwell_sheet: float | None = None  # ohm/sq, e.g. a p-well isolated by a deep n-well
+    deep_nwell_sheet: float | None = None  # ohm/sq
+    psub_resistivity: float | None = None  # ohm cm, bulk substrate
+    # A a core (not pad-connected) device must withstand; no standard sets it, see the
+    # shunt-resistance rule's documentation for how the default was chosen.
+    core_current: float = 1e-4
+    sheet_grid: float | None = None  # um, largest cell of the sheet model's grid; None: adaptive
+    # Doping (cm^-3) and depth (um) of a uniformly doped layer: the sheet resistance then
+    # follows from the Masetti mobility model (analyzers/mobility.py) when *_sheet is unset.
+    nwell_doping: float | None = None
+    nwell_depth: float | None = None
+    pwell_doping: float | None = None
+    pwell_depth: float | None = None
+    psub_doping: float | None = None
+    psub_depth: float | None = None  # also turns psub_resistivity into a sheet
+
+    def sheet(self, body: str) -> float | None:
+        """Sheet resistance (ohm/sq) of "nwell", "pwell" or "psub": the given sheet value,
+        else resistivity from doping (or psub_resistivity) over the depth, else None."""
+        given = getattr(self, f"{body}_sheet")
+        if given is not None:
+            return given
+        doping, depth = getattr(self, f"{body}_doping"), getattr(self, f"{body}_depth")
+        if depth is None:
+            return None
+        if doping is not None:
+            return sheet_resistance(doping, depth, "n" if body == "nwell" else "p")
+        if body == "psub" and self.psub_resistivity is not None:
+            return self.psub_resistivity / (depth / UM_PER_CM)
+        return None
+
+
+ELECTRICAL_KEYS = tuple(f.name for f in fields(Electrical))
+
+
+@dataclass(frozen=True)
+class Technology:
+    name: str
+    description: str
+    source: str  # file path or "built-in NAME"
+    layers: Mapping[str, tuple[int, int]]
+    labels: Mapping[str, tuple[int, int]]
+    connectivity: tuple[tuple[str, str, str], ...]
+    power: tuple[str, ...]
+    ground: tuple[str, ...]
+    pads: tuple[str, ...]
+    rules: Mapping[str, Mapping[str, object]]
+    electrical: Electrical
+
+    def __hash__(self) -> int:  # the mapping fields are unhashable; equal ones share these
+        return hash((self.name, self.source))
+
+    def layer(self, role: str) -> tuple[int, int] | None:
+        return self.layers.get(role)
+
+    def has_spacing_table(self) -> bool:
+        return bool(self.rules.get("tap-distance", {}).get("by_spacing"))
+
+    def tap_distance_limit(self, kind: str, spacing: float | None = None) -> float | None:
+        """Largest allowed distance (um) from a device diffusion to a tap of its body.
+
+        ``kind`` is "n" (N+ device diffusion in the p-body) or "p" (P+ device
+        diffusion in an n-well); ``spacing`` is the distance to the opposite well, or
+        None when none lies within range. A ``by_spacing`` row wins when the spacing
+        is known (rows are kept by descending ``min_spacing``, so the first row the
+        spacing reaches applies); otherwise ``limit_n``/``limit_p``, then ``limit``.
+        A technology with only a table treats "no opposite well in range" as its
+        widest row, and a spacing below every row gets the table's strictest limit.
+        """
+        if kind not in ("n", "p"):
+            raise ValueError(f"kind: expected 'n' or 'p', got {kind!r}")
+        table = self.rules.get("tap-distance", {})
+        rows: tuple[SpacingLimit, ...] = table.get("by_spacing", ())
+        if rows and spacing is not None:
+            for row in rows:
+                if spacing >= row.min_spacing:
+                    return row.limit
+        plain = table.get(f"limit_{kind}", table.get("limit"))
+        if plain is not None:
+            return plain
+        if rows:
+            return rows[0].limit if spacing is None else min(row.limit for row in rows)
+        return None
+
+    def to_mapping(self) -> dict:
+        """The technology as a plain mapping of file keys (what ``extends`` merges onto)."""
+        data: dict[str, Any] = {
+            "name": self.name,
+            "description": self.description,
+            "layers": {role: list(pair) for role, pair in self.layers.items()},
+            "labels": {role: list(pair) for role, pair in self.labels.items()},
+            "connectivity": {"stack": [list(link) for link in self.connectivity]},
+            "nets": {"power": list(self.power), "ground": list(self.ground),
+                     "pads": list(self.pads)},
+            "rules": {},
+            "electrical": {k: getattr(self.electrical, k) for k in ELECTRICAL_KEYS
+                           if getattr(self.electrical, k) is not None},
+        }
+        for rule_id, table in self.rules.items():
+            plain = dict(table)
+            if "by_spacing" in plain:
+                plain["by_spacing"] = [
+                    {"min_spacing": row.min_spacing, "limit": row.limit}
+                    for row in plain["by_spacing"]]
+            data["rules"][rule_id] = plain
+        return data
+
+
+def technology_from_mapping(data: dict, source: str, base: Technology | None = None
+                            ) -> Technology:
+    """Validate a parsed technology file; with ``base`` (the technology named by
+    ``extends``) the file's keys override the base's, tables merging key by key."""
+    check = _Checker(source)
+    data = check.table(data, "")
+    check.known_keys(data, "", TOP_LEVEL_KEYS)
+    if "extends" in data:
+        check.string(data["extends"], "extends", "a built-in technology name or a path")
+        if base is None:
+            raise TechnologyError(source, "extends", "the technology it names to be resolved "
+                                  "by the file loader (base=)", data["extends"])
+    if base is not None:
+        data = _merge(base.to_mapping(), data)
+        data.pop("extends", None)
+
+    name = check.string(data.get("name"), "name", "a non-empty technology name")
+    description = data.get("description", "")
+    if not isinstance(description, str):
+        raise TechnologyError(source, "description", "a string", description)
+
+    layers = check.layers(data.get("layers"))
+    labels = check.labels(data.get("labels", {}), layers)
+    connectivity = check.connectivity(data.get("connectivity", {}), layers)
+    nets = check.table(data.get("nets", {}), "nets")
+    check.known_keys(nets, "nets", NET_KEYS)
+    patterns = {k: check.strings(nets.get(k, []), f"nets.{k}") for k in NET_KEYS}
+    rules = check.rules(data.get("rules", {}))
+    electrical = check.electrical(data.get("electrical", {}))
+    return Technology(
+        name=name, description=description, source=source,
+        layers=MappingProxyType(layers), labels=MappingProxyType(labels),
+        connectivity=connectivity,
+        power=patterns["power"], ground=patterns["ground"], pads=patterns["pads"],
+        rules=MappingProxyType(rules), electrical=electrical,
+    )
+
+
+def _merge(base: dict, override: dict) -> dict:
+    merged = dict(base)
+    for key, value in override.items():
+        if isinstance(value, dict) and isinstance(merged.get(key), dict):
+            merged[key] = _merge(merged[key], value)
+        else:
+            merged[key] = value
+    return merged
+
+
+def _dotted(prefix: str, key: str) -> str:
+    return f"{prefix}.{key}" if prefix else key
+
+
+class _Checker:
+    """Type checks that name ``file`` and the dotted key in every error."""
+
+    def __init__(self, file: str):
+        self.file = file
+
+    def fail(self, key: str, expected: str, got: Any, **extra) -> TechnologyError:
+        return TechnologyError(self.file, key, expected, got, **extra)
+
+    def table(self, value: Any, key: str) -> dict:
+        if not isinstance(value, dict):
+            raise self.fail(key or "(file)", "a table", value)
+        return value
+
+    def known_keys(self, table: dict, prefix: str, allowed, is_allowed=None,
+                   expected: str | None = None) -> None:
+        for key in table:
+            if key in allowed or (is_allowed is not None and is_allowed(key)):
+                continue
+            close = difflib.get_close_matches(str(key), list(allowed), n=1)
+            raise self.fail(_dotted(prefix, str(key)), expected or "one of " + ", ".join(allowed),
+                            key, got_text=f"the unknown key {key!r}",
+                            suggestion=close[0] if close else None)
+
+    def required(self, table: dict, prefix: str, key: str, expected: str) -> Any:
+        if key not in table:
+            raise self.fail(_dotted(prefix, key), expected, None,
+                            got_text="nothing")
+        return table[key]
+
+    def string(self, value: Any, key: str, expected: str) -> str:
+        if value is None:
+            raise self.fail(key, expected, None, got_text="nothing")
+        if not isinstance(value, str) or not value.strip():
+            raise self.fail(key, expected, value)
+        return value
+
+    def strings(self, value: Any, key: str) -> tuple[str, ...]:
+        expected = "a list of non-empty glob patterns"
+        if not isinstance(value, list):
+            raise self.fail(key, expected, value)
+        for i, item in enumerate(value):
+            if not isinstance(item, str) or not item:
+                raise self.fail(f"{key}[{i}]", "a non-empty glob pattern", item)
+        return tuple(value)
+
+    def number(self, value: Any, key: str, *, allow_zero: bool = False) -> float:
+        expected = "a non-negative number" if allow_zero else "a positive number"
+        ok = isinstance(value, (int, float)) and not isinstance(value, bool)
+        if not ok or not math.isfinite(value) or value < 0 or (value == 0 and not allow_zero):
+            raise self.fail(key, expected, value)
+        return float(value)
+
+    def pair(self, value: Any, key: str) -> tuple[int, int]:
+        ok = (isinstance(value, list) and len(value) == 2
+              and all(isinstance(v, int) and not isinstance(v, bool) and v >= 0 for v in value))
+        if not ok:
+            raise self.fail(key, _PAIR_TEXT, value)
+        return (value[0], value[1])
+
+    def declared_role(self, role: Any, key: str, layers: dict, expected: str) -> str:
+        if not isinstance(role, str) or role not in layers:
+            close = difflib.get_close_matches(str(role), list(layers), n=1)
+            raise self.fail(key, f"{expected} declared in [layers] ({', '.join(layers)})",
+                            role, suggestion=close[0] if close else None)
+        return role
+
+    def layers(self, value: Any) -> dict[str, tuple[int, int]]:
+        if value is None:
+            raise self.fail("layers", "a [layers] table with "
+                            + ", ".join(REQUIRED_LAYERS), None, got_text="nothing")
+        table = self.table(value, "layers")
+        self.known_keys(table, "layers", REQUIRED_LAYERS + OPTIONAL_LAYERS
+                        + ("metal3", "via2", "metal4", "via3"), _is_layer_role,
+                        "a layer role: " + _LAYER_ROLES_TEXT)
+        for role in REQUIRED_LAYERS:
+            self.required(table, "layers", role, _PAIR_TEXT + " (a required role)")
+        layers: dict[str, tuple[int, int]] = {}
+        owner: dict[tuple[int, int], str] = {}
+        for role, raw in table.items():
+            pair = self.pair(raw, f"layers.{role}")
+            if pair in owner:
+                raise self.fail(f"layers.{role}", f"a layer pair not already given to "
+                                f"layers.{owner[pair]}", raw)
+            owner[pair] = role
+            layers[role] = pair
+        return layers
+
+    def labels(self, value: Any, layers: dict) -> dict[str, tuple[int, int]]:
+        table = self.table(value, "labels")
+        labels = {}
+        for role, raw in table.items():
+            key = f"labels.{role}"
+            kind = "a conductor role (active, tap, poly or metalN)"
+            self.declared_role(role, key, layers, kind)
+            if not is_conductor_role(role):
+                raise self.fail(key, kind, role)
+            labels[role] = self.pair(raw, key)
+        return labels
+
+    def connectivity(self, value: Any, layers: dict) -> tuple[tuple[str, str, str], ...]:
+        table = self.table(value, "connectivity")
+        self.known_keys(table, "connectivity", ("stack",))
+        stack = table.get("stack", [])
+        shape = "a list of [lower, cut, upper] role triples"
+        if not isinstance(stack, list):
+            raise self.fail("connectivity.stack", shape, stack)
+        links = []
+        for i, link in enumerate(stack):
+            key = f"connectivity.stack[{i}]"
+            if not isinstance(link, list) or len(link) != 3:
+                raise self.fail(key, "a [lower, cut, upper] triple of layer roles", link)
+            for j, role in enumerate(link):
+                cut = j == 1
+                kind = ("a cut role (contact or viaN)" if cut
+                        else "a conductor role (active, tap, poly or metalN)")
+                self.declared_role(role, f"{key}[{j}]", layers, kind)
+                if not (is_cut_role(role) if cut else is_conductor_role(role)):
+                    raise self.fail(f"{key}[{j}]", kind, role)
+            links.append(tuple(link))
+        return tuple(links)
+
+    def rules(self, value: Any) -> dict[str, Mapping[str, object]]:
+        table = self.table(value, "rules")
+        self.known_keys(table, "rules", tuple(RULE_KEYS))
+        rules = {}
+        for rule_id, raw in table.items():
+            prefix = f"rules.{rule_id}"
+            body = self.table(raw, prefix)
+            self.known_keys(body, prefix, RULE_KEYS[rule_id])
+            checked: dict[str, object] = {}
+            for key, item in body.items():
+                if key == "by_spacing":
+                    checked[key] = self.spacing_table(item, f"{prefix}.by_spacing")
+                elif key == "double":
+                    # true/false, or one device kind: double rings for pad-connected N+ only, say
+                    if not isinstance(item, bool) and item not in DOUBLE_KINDS:
+                        raise self.fail(f"{prefix}.double", 'true, false, "ndiff" or "pdiff"', item)
+                    checked[key] = item
+                else:
+                    checked[key] = self.number(item, f"{prefix}.{key}")
+            if rule_id == "io-guard-ring":
+                checked.setdefault("double", False)
+            rules[rule_id] = MappingProxyType(checked)
+        return rules
+
+    def spacing_table(self, value: Any, key: str) -> tuple[SpacingLimit, ...]:
+        if not isinstance(value, list):
+            raise self.fail(key, "a list of {min_spacing, limit} tables", value)
+        rows = []
+        for i, raw in enumerate(value):
+            prefix = f"{key}[{i}]"
+            row = self.table(raw, prefix)
+            self.known_keys(row, prefix, ("min_spacing", "limit"))
+            spacing = self.number(self.required(row, prefix, "min_spacing", "a non-negative "
+                                  "number"), f"{prefix}.min_spacing", allow_zero=True)
+            limit = self.number(self.required(row, prefix, "limit", "a positive number"),
+                                f"{prefix}.limit")
+            if any(r.min_spacing == spacing for r in rows):
+                raise self.fail(f"{prefix}.min_spacing", "a min_spacing no other row uses",
+                                raw["min_spacing"])
+            rows.append(SpacingLimit(spacing, limit))
+        # Files may list rows in any order; first-match lookup needs widest first.
+        return tuple(sorted(rows, key=lambda r: r.min_spacing, reverse=True))
+
+    def electrical(self, value: Any) -> Electrical:
+        table = self.table(value, "electrical")
+        self.known_keys(table, "electrical", ELECTRICAL_KEYS)
+        values = {k: self.number(v, f"electrical.{k}") for k, v in table.items()}
+        for body in ("nwell", "pwell", "psub"):
+            doping, depth = f"{body}_doping", f"{body}_depth"
+            if doping in values and not MIN_DOPING <= values[doping] <= MAX_DOPING:
+                raise self.fail(f"electrical.{doping}", f"a doping in cm^-3 from {MIN_DOPING:.0e} to "
+                                f"{MAX_DOPING:.0e} (the range of the Masetti mobility model)", table[doping])
+            if doping in values and depth not in values:
+                raise self.fail(f"electrical.{depth}", f"the depth in um of the layer that "
+                                f"electrical.{doping} describes", None, got_text="nothing")
+            partner = doping in values or (body == "psub" and "psub_resistivity" in values)
+            if depth in values and not partner:
+                wanted = f"electrical.{doping}" + (" or electrical.psub_resistivity" if body == "psub" else "")
+                raise self.fail(f"electrical.{doping}", f"{wanted} beside electrical.{depth}", None,
+                                got_text="nothing")
+        return Electrical(**values)

@@ -1,0 +1,48 @@
+"""``latchwatch doctor``: which sandbox protections a script run gets on this machine.
+
+It starts a real child, exactly as a run does, and lists what the child reported:
+every protection in force with how, every missing one with the reason.
+"""
+
+from __future__ import annotations
+
+import os
+import platform
+import sys
+
+from latchwatch.server.sandbox.policy import SandboxSettings, unavailable_message
+from latchwatch.server.sandbox.workers import inspect_sandbox
+
+
+def doctor_command(python: str | None, require: bool, out=sys.stdout, err=sys.stderr) -> int:
+    """Print the report; 2 when ``require`` and a required protection is missing."""
+    interpreter = python or sys.executable
+    report, ready, output = inspect_sandbox(interpreter, os.getcwd(), SandboxSettings())
+    who = "root" if hasattr(os, "geteuid") and os.geteuid() == 0 else "an unprivileged user"
+    print("latchwatch doctor: the sandbox of a script run on this machine", file=out)
+    print(f"  machine      {platform.system()} {platform.release()} ({platform.machine()}), "
+          f"latchwatch running as {who}", file=out)
+    print(f"  interpreter  {interpreter}: {_interpreter_state(ready, output)}", file=out)
+    if report.setup_ms is not None:
+        print(f"  set-up       {report.setup_ms:.1f} ms in the child", file=out)
+    for line in report.doctor_lines():
+        print(line, file=out)
+    missing = report.missing_required()
+    if missing:
+        print(f"  {len(missing)} of the required protections are unavailable; runs fall back to the others "
+              f"and each run's `sandbox` entry says so. --require-sandbox turns this into an error.", file=out)
+    else:
+        print("  every required protection is in force.", file=out)
+    if require and missing:
+        print(f"latchwatch: {unavailable_message(missing)}", file=err)
+        return 2
+    return 0
+
+
+def _interpreter_state(ready: str | None, output: str) -> str:
+    if ready is None:
+        tail = output.strip().splitlines()[-1:] or ["no output"]
+        return f"the child did not get ready ({tail[0]})"
+    if "import-error=" in ready:
+        return "cannot import numpy and gdstk: " + ready.split("import-error=", 1)[1].strip('"')[:200]
+    return "imports " + ", ".join(part.replace("=", " ") for part in ready.split()[1:])

@@ -1,0 +1,77 @@
+"""Plain-text report: one finding a line in the GNU form editors parse (DESIGN 5.1).
+
+    path:line:col: severity: message [rule-id]
+    path: severity: message (cell CELL at x, y) [rule-id]      no line (GDSII/OASIS input)
+    latchwatch: severity: message [rule-id]                    no file at all
+
+Every finding line ends with its rule id in brackets, so one pattern picks the rule
+out of all three forms. The report ends with one summary line that matches none of
+them, which compilation buffers and quickfix lists skip.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from latchwatch.analyzers.model.findings import Finding
+
+from latchwatch.server.report.model import Report, for_display
+
+PROGRAM = "latchwatch"
+
+
+def _where(finding: Finding) -> str:
+    """Cell and coordinates, for findings that have no source line to point at."""
+    parts = []
+    if finding.cell is not None:
+        parts.append(f"cell {finding.cell}")
+    if finding.location is not None:
+        x, y = finding.location
+        parts.append(f"at {x:.2f}, {y:.2f}")
+    return f" ({' '.join(parts)})" if parts else ""
+
+
+def _corner(finding: Finding) -> str:
+    if not finding.corner:
+        return ""
+    values = ", ".join(f"{name}={value!r}" for name, value in finding.corner.items())
+    return f" (corner {values})"
+
+
+def format_finding(finding: Finding) -> str:
+    message = " ".join(finding.message.split())  # one finding, one line
+    head = f"{finding.severity.label}: {message}{_corner(finding)}"
+    if finding.file is not None and finding.line is not None:
+        column = finding.column if finding.column is not None else 1
+        return f"{finding.file}:{finding.line}:{column}: {head} [{finding.rule}]"
+    prefix = finding.file if finding.file is not None else PROGRAM
+    return f"{prefix}: {head}{_where(finding)} [{finding.rule}]"
+
+
+def _plural(count: int, word: str) -> str:
+    return f"{count} {word}" if count == 1 else f"{count} {word}s"
+
+
+def summary_line(report: Report) -> str:
+    counts = report.summary()
+    wording = [
+        _plural(counts["error"], "error"),
+        _plural(counts["warning"], "warning"),
+        f"{counts['info']} info",
+    ]
+    shown = [text for text, n in zip(wording, counts.values()) if n] or ["no findings"]
+    files = len({run.script for run in report.runs})
+    if not report.runs:
+        return ", ".join(shown)
+    where = f" in {_plural(files, 'file')}"
+    if len(report.runs) != files:  # parameter corners: several runs of one script
+        where += f" ({_plural(len(report.runs), 'run')})"
+    return ", ".join(shown) + where
+
+
+def render_text(report: Report, *, base: Path | None = None) -> str:
+    """``base``: paths inside it print relative to it (default: the working directory)."""
+    shown = for_display(report, base)
+    lines = [format_finding(finding) for finding in shown.findings]
+    lines.append(summary_line(shown))
+    return "\n".join(lines) + "\n"

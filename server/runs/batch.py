@@ -1,0 +1,475 @@
+"""Parameter corners (DESIGN 5.5): a generator function run over its parameter grid,
+each corner its own sandboxed child run, several at a time, each checked by the one
+pipeline (server/pipeline.py). Shared by ``latchwatch check`` and the language server.
+
+- Sweeps come from ``[[tool.latchwatch.sweep]]`` or from ``--sweep FUNCTION --param
+  NAME=V1,V2``. The script is imported as a module (not run as ``__main__``) and the
+  function is called with each corner's keyword arguments; the Cell, Library or list
+  of cells it returns is checked (those cells are the tops). A script with sweeps is
+  checked as its corners only.
+- ``--param`` values: ``true``/``false`` (any case) are booleans, ``12``/``-3`` ints,
+  ``0.5``/``1e-3`` floats, text in single or double quotes the string inside it, and
+  anything else the string as written. Commas separate values, except inside the
+  quotes of a quoted value: ``label='a,b',c`` is the two strings ``a,b`` and ``c``.
+- ``--top CELL`` applies to corners as to plain runs: the cell is looked for among
+  the cells a corner's call returns and the cells they reference. A preview checks
+  what each function returns (``--top`` would name a cell of one function only).
+- ``--corners N`` samples N corners of the grid: first the lowest corner (every
+  parameter at its minimum) and the highest (every one at its maximum), so that each
+  parameter's minimum and maximum are run; then other combinations of minima and
+  maxima; then the rest. Within each of the last two groups the order is random with
+  the fixed seed CORNER_SEED, so a sample is the same on every run. Minimum and
+  maximum compare numbers (and booleans) by value; a parameter with other values has
+  its first value as the minimum and its last as the maximum.
+- Preview: a script that runs cleanly and creates no cell, and has no sweep, is a file
+  of generator functions. Each public top-level function whose parameters all have
+  defaults (and whose return annotation, if any, names a Cell, a Library or gdstk) is
+  called once with its defaults, each in its own run; a function that returns no
+  gdstk object is dropped, one that raises is a script-error like any other.
+
+Runs finish in any order; reports list them in the order planned, so a report does
+not depend on ``jobs``. Function calls run in children forked from corner hosts
+(server/hosts.py, run_script's ``hosted``), which have gdstk imported already.
+"""
+
+from __future__ import annotations
+
+import ast
+import itertools
+import os
+import random
+import re
+import sys
+import threading
+from concurrent.futures import FIRST_COMPLETED, ThreadPoolExecutor, wait
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Callable, Iterable, TextIO
+
+from latchwatch.analyzers.model.findings import Device, Finding
+from latchwatch.analyzers.rules import RULES
+
+from latchwatch.server.runs.pipeline import CheckSettings, check_run, run_path
+from latchwatch.server.config.project import ProjectConfig
+from latchwatch.server.report.model import Report, RunSummary
+from latchwatch.server.sandbox.runner import run_script
+
+CORNER_SEED = 7
+_INT = re.compile(r"[+-]?\d+\Z")
+_FLOAT = re.compile(r"[+-]?(\d+\.\d*|\.\d+|\d+)([eE][+-]?\d+)?\Z")
+_LAYOUT_ANNOTATION = re.compile(r"\b(Cell|Library|gdstk)\b")
+
+
+class SweepError(ValueError):
+    """A sweep that cannot run: the message names where it was defined and what is wrong."""
+
+
+@dataclass(frozen=True)
+class Sweep:
+    script: Path
+    function: str
+    params: dict[str, list]  # parameter -> values in the order given; empty: one call with the defaults
+    where: str = "--sweep"  # where it was defined, for messages
+
+
+@dataclass(frozen=True)
+class Task:
+    """One child run: the plain script, or one call of a function."""
+
+    path: Path
+    function: str | None = None
+    corner: dict | None = None  # None for a plain run; {} for a call with the defaults
+    preview: bool = False  # trying a function of a file that builds nothing itself
+
+
+@dataclass
+class RunResult:
+    task: Task
+    status: str
+    cells: int
+    summary: RunSummary
+    findings: list[Finding]
+    devices: list[Device]
+    output: str
+
+
+# --- parameters and corners ---------------------------------------------------------
+
+def parse_value(text: str):
+    """One --param value (rules in the module docstring)."""
+    text = text.strip()
+    if len(text) >= 2 and text[0] == text[-1] and text[0] in "'\"":
+        return text[1:-1]
+    if text.lower() in ("true", "false"):
+        return text.lower() == "true"
+    if _INT.match(text):
+        return int(text)
+    if _FLOAT.match(text):
+        return float(text)
+    return text
+
+
+def parse_param(text: str) -> tuple[str, list]:
+    """``NAME=V1,V2,...`` as (name, values)."""
+    name, equals, values = text.partition("=")
+    name = name.strip()
+    if not equals or not name.isidentifier():
+        raise SweepError(f"--param: expected NAME=V1,V2,... with NAME a Python identifier, got {text!r}")
+    items = _split_values(values)
+    if items is None:
+        raise SweepError(f"--param {name}: a quote in {values!r} is not closed")
+    if any(not item.strip() for item in items):
+        raise SweepError(f"--param {name}: empty value in {values!r}; separate values with single commas")
+    return name, [parse_value(item) for item in items]
+
+
+def _split_values(text: str) -> list[str] | None:
+    """``text`` split at commas outside quotes; None for an open quote. A quote opens
+    only at the start of a value, so ``it's`` is text as written."""
+    items, current, quote = [], [], None
+    for char in text:
+        if quote is None and char == ",":
+            items.append("".join(current))
+            current = []
+            continue
+        if quote is None and char in "'\"" and not "".join(current).strip():
+            quote = char
+        elif char == quote:
+            quote = None
+        current.append(char)
+    if quote is not None:
+        return None
+    return items + ["".join(current)]
+
+
+def ad_hoc_sweep(script: Path, function: str, param_texts: Iterable[str]) -> Sweep:
+    if not function.isidentifier():
+        raise SweepError(f"--sweep: expected the name of a function in {script}, got {function!r}")
+    params: dict[str, list] = {}
+    for text in param_texts:
+        name, values = parse_param(text)
+        if name in params:
+            raise SweepError(f"--param {name}: given twice; list every value in one --param {name}=V1,V2")
+        params[name] = values
+    return Sweep(Path(script), function, params)
+
+
+def _json_value(value) -> bool:
+    if isinstance(value, (bool, int, float, str)):
+        return True
+    if isinstance(value, list):
+        return all(_json_value(v) for v in value)
+    if isinstance(value, dict):
+        return all(isinstance(k, str) and _json_value(v) for k, v in value.items())
+    return False
+
+
+def configured_sweeps(config: ProjectConfig, only: Path | None = None) -> tuple[Sweep, ...]:
+    """The project's sweeps (with ``only``, those of that script), checked: values a
+    child can receive (JSON values) and a script that exists."""
+    sweeps = []
+    prefix = "tool.latchwatch." if config.source is not None and config.source.name == "pyproject.toml" else ""
+    target = Path(only).resolve() if only is not None else None
+    for number, spec in enumerate(config.sweeps, start=1):
+        if target is not None and Path(spec.script).resolve() != target:
+            continue
+        where = f"{config.source}: {prefix}sweep[{number}]"
+        for name, values in spec.params.items():
+            if not name.isidentifier():
+                raise SweepError(f"{where}.params: {name!r} is not a Python parameter name")
+            for value in values:
+                if not _json_value(value):
+                    raise SweepError(f"{where}.params.{name}: expected numbers, booleans, strings or lists "
+                                     f"of them, got {value!r}")
+        if not Path(spec.script).is_file():
+            raise SweepError(f"{where}.script: no such file {spec.script}")
+        sweeps.append(Sweep(Path(spec.script), spec.function, spec.params, where))
+    return tuple(sweeps)
+
+
+def sweeps_for(path: Path, sweeps: Iterable[Sweep]) -> list[Sweep]:
+    target = Path(path).resolve()
+    return [s for s in sweeps if s.script.resolve() == target]
+
+
+def corner_grid(params: dict[str, list]) -> list[dict]:
+    """Every combination, the first parameter varying slowest."""
+    names = list(params)
+    return [dict(zip(names, values)) for values in itertools.product(*(params[n] for n in names))]
+
+
+def _extreme_indices(values: list) -> tuple[int, int]:
+    numeric = all(isinstance(v, (int, float)) for v in values)
+    if not numeric:
+        return 0, len(values) - 1
+    low = min(range(len(values)), key=lambda i: values[i])
+    high = max(range(len(values)), key=lambda i: values[i])
+    return low, high
+
+
+def sample_corners(params: dict[str, list], count: int | None, seed: int = CORNER_SEED) -> list[dict]:
+    """``count`` corners of the grid (all of them when ``count`` is None or not
+    smaller), in grid order; always the lowest and the highest corner."""
+    names = list(params)
+    sizes = [len(params[n]) for n in names]
+    total = 1
+    for size in sizes:
+        total *= size
+    if count is None or count >= total:
+        return corner_grid(params)
+    if count < 2:
+        raise SweepError(f"--corners: expected at least 2 (the lowest and the highest corner), got {count}")
+    extremes = [_extreme_indices(params[n]) for n in names]
+    lowest = tuple(low for low, _high in extremes)
+    highest = tuple(high for _low, high in extremes)
+    first = list(dict.fromkeys([lowest, highest]))
+    vertices = [v for v in itertools.product(*(sorted(set(e)) for e in extremes)) if v not in first]
+    vertex_set = set(vertices) | set(first)
+    rest = [i for i in itertools.product(*(range(s) for s in sizes)) if i not in vertex_set]
+    rng = random.Random(seed)
+    rng.shuffle(vertices)
+    rng.shuffle(rest)
+    chosen = sorted((first + vertices + rest)[:count])
+    return [{n: params[n][i] for n, i in zip(names, index)} for index in chosen]
+
+
+def corner_label(corner: dict | None) -> str:
+    return ", ".join(f"{name}={value!r}" for name, value in (corner or {}).items())
+
+
+def sweep_tasks(sweep: Sweep, count: int | None = None) -> list[Task]:
+    corners = sample_corners(sweep.params, count) if sweep.params else [{}]
+    return [Task(sweep.script, sweep.function, corner) for corner in corners]
+
+
+def preview_functions(source: str) -> list[str]:
+    """Public top-level functions callable without arguments whose return annotation,
+    if any, names a Cell, a Library or gdstk."""
+    try:
+        tree = ast.parse(source)
+    except SyntaxError:
+        return []
+    names: dict[str, None] = {}
+    for node in tree.body:
+        if not isinstance(node, ast.FunctionDef) or node.name.startswith("_"):
+            continue
+        args = node.args
+        if len(args.defaults) < len(args.posonlyargs) + len(args.args) or None in args.kw_defaults:
+            continue
+        if node.returns is not None and not _LAYOUT_ANNOTATION.search(ast.unparse(node.returns)):
+            continue
+        names[node.name] = None
+    return list(names)
+
+
+# --- running ------------------------------------------------------------------------
+
+class _Either:
+    """Set when either event is (the runner only asks ``is_set``)."""
+
+    def __init__(self, own: threading.Event, outer):
+        self.own, self.outer = own, outer
+
+    def is_set(self) -> bool:
+        return self.own.is_set() or (self.outer is not None and self.outer.is_set())
+
+
+def default_jobs() -> int:
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)
+
+
+def run_task(task: Task, settings: CheckSettings, source: str | None = None, cancel=None,
+             read_source=None) -> RunResult | None:
+    """Run and check one task; None when cancelled."""
+    if cancel is not None and cancel.is_set():
+        return None
+    if task.function is None:
+        outcome = run_path(task.path, settings, source=source, cancel=cancel)
+    else:
+        if task.preview:
+            settings = replace(settings, top=None)  # each previewed function's cells are its own tops
+        outcome = run_script(task.path, source=source, python=settings.python, timeout=settings.timeout,
+                             project_root=settings.project_root, cancel=cancel,
+                             require_sandbox=settings.require_sandbox, hosted=True,
+                             call=(task.function, task.corner or {}), accept_non_layout=task.preview)
+        outcome = replace(outcome, corner=dict(task.corner or {}))
+    if outcome.status == "cancelled" or (cancel is not None and cancel.is_set()):
+        return None
+    findings, devices, summary = check_run(outcome, settings, read_source=read_source)
+    if task.function is not None:
+        summary = replace(summary, function=task.function)
+    cells = len(outcome.layout.cells) if outcome.layout is not None else 0
+    return RunResult(task, outcome.status, cells, summary, findings, devices, outcome.output)
+
+
+def _wants_preview(result: RunResult, text: str | None) -> list[str]:
+    if result.task.function is not None or result.status != "ok" or result.cells:
+        return []
+    if result.task.path.suffix.lower() != ".py" or text is None:
+        return []
+    return preview_functions(text)
+
+
+def _kept(result: RunResult) -> bool:
+    """A previewed function stays when it failed or returned cells."""
+    return result.status != "ok" or result.cells > 0
+
+
+def _read_text(path: Path) -> str | None:
+    try:
+        return path.read_text(encoding="utf-8", errors="replace")
+    except OSError:
+        return None
+
+
+@dataclass
+class _Plan:
+    """Tasks per checked script, in report order."""
+
+    tasks: list[list[Task]] = field(default_factory=list)
+    sources: list[str | None] = field(default_factory=list)
+
+
+def execute(plan: _Plan, settings: CheckSettings, *, jobs: int | None = None, cancel=None,
+            read_source=None, on_result: Callable[[RunResult | None, int, int], None] = lambda r, d, t: None
+            ) -> list[list[RunResult]] | None:
+    """Run every task of the plan, ``jobs`` at a time; per script its results in plan
+    order (for a previewed file, its kept functions). None when cancelled."""
+    stop = threading.Event()
+    either = _Either(stop, cancel)
+    results: dict[tuple, RunResult | None] = {}
+    previews: dict[int, int] = {}  # script index -> number of preview tasks started
+    total = sum(len(t) for t in plan.tasks)
+    done = 0
+    with ThreadPoolExecutor(max_workers=max(1, jobs or default_jobs()), thread_name_prefix="latchwatch-corner") as pool:
+        def submit(key: tuple, task: Task):
+            source = plan.sources[key[0]]
+            return pool.submit(run_task, task, settings, source, either, read_source)
+
+        pending = {submit((i, j), task): (i, j) for i, tasks in enumerate(plan.tasks) for j, task in enumerate(tasks)}
+        try:
+            while pending:
+                finished, _ = wait(pending, return_when=FIRST_COMPLETED)
+                for future in finished:
+                    key = pending.pop(future)
+                    result = results[key] = future.result()
+                    done += 1
+                    names = _wants_preview(result, plan.sources[key[0]] or _read_text(result.task.path)) \
+                        if result is not None else []
+                    previews[key[0]] = len(names) if names else previews.get(key[0], 0)
+                    total += len(names)
+                    for k, name in enumerate(names):
+                        task = Task(result.task.path, name, {}, preview=True)
+                        pending[submit((key[0], 1, k), task)] = (key[0], 1, k)
+                    on_result(result, done, total)
+        except BaseException:
+            stop.set()
+            for future in pending:
+                future.cancel()
+            raise
+    if either.is_set():
+        return None
+    out = []
+    for i, tasks in enumerate(plan.tasks):
+        mine = [results[(i, j)] for j in range(len(tasks))]
+        tried = [results[(i, 1, k)] for k in range(previews.get(i, 0))]
+        kept = [r for r in tried if r is not None and _kept(r)]
+        out.append(kept or mine)
+    return out
+
+
+def plan_script(path: Path, sweeps: Iterable[Sweep], corners: int | None = None) -> list[Task]:
+    """The tasks of one script: its sweeps' corners, else the plain run."""
+    mine = sweeps_for(path, sweeps)
+    return [task for sweep in mine for task in sweep_tasks(sweep, corners)] or [Task(Path(path))]
+
+
+def check_script(path: Path, settings: CheckSettings, sweeps: Iterable[Sweep] = (), *, source: str | None = None,
+                 cancel=None, jobs: int | None = None, corners: int | None = None, read_source=None,
+                 on_result: Callable[[RunResult | None, int, int], None] = lambda r, d, t: None
+                 ) -> list[RunResult] | None:
+    """Every run of one script (the editor's document): its corners, its previewed
+    functions, or its one plain run. None when cancelled."""
+    tasks = plan_script(path, sweeps, corners)
+    results = execute(_Plan([tasks], [source]), settings, jobs=jobs, cancel=cancel, read_source=read_source,
+                      on_result=on_result)
+    return None if results is None else results[0]
+
+
+def check_all(paths: list[Path], settings: CheckSettings, sweeps: Iterable[Sweep] = (), *, jobs: int | None = None,
+              corners: int | None = None, progress: "ProgressBar | None" = None, unlisted: bool = False) -> Report:
+    """The command line's report: every path (a sweep's script as its corners), and
+    with ``unlisted`` also the sweeps of scripts not among the paths."""
+    sweeps = list(sweeps)
+    progress = progress or ProgressBar(None)
+    listed = {Path(p).resolve() for p in paths}
+    extra = [s.script for s in sweeps if s.script.resolve() not in listed] if unlisted else []
+    plan = _Plan()
+    for path in list(paths) + list(dict.fromkeys(extra)):
+        tasks = plan_script(path, sweeps, corners)
+        plan.tasks.append(tasks)
+        plan.sources.append(None)
+        functions = sorted({t.function for t in tasks if t.function})
+        progress.note(f"checking {path}" + (f": {', '.join(functions)} at {len(tasks)} corners" if functions else ""))
+
+    def on_result(result: RunResult | None, done: int, total: int) -> None:
+        if result is not None and result.output:
+            where = f" [{result.task.function}: {corner_label(result.task.corner)}]" if result.task.function else ""
+            progress.note(f"{result.task.path}{where}: script output:\n{result.output.rstrip()}")
+        progress.update(done, total)
+
+    progress.update(0, sum(len(t) for t in plan.tasks))
+    try:
+        results = execute(plan, settings, jobs=jobs, on_result=on_result)
+    finally:
+        progress.close()
+    runs = [r for per_script in results for r in per_script if r is not None]
+    devices = [d for r in runs for d in r.devices]
+    return Report(technology=settings.tech.name, runs=tuple(r.summary for r in runs),
+                  findings=tuple(f for r in runs for f in r.findings),
+                  devices=tuple(devices) if settings.devices else None, rules=RULES)
+
+
+class ProgressBar:
+    """Notes on a stream, and a bar of finished runs on it when it is a terminal
+    (drawn only once there is more than one run)."""
+
+    WIDTH = 30
+
+    def __init__(self, stream: TextIO | None = sys.stderr):
+        self.stream = stream
+        self.drawn = False
+        self.bar = stream is not None and _is_terminal(stream)
+
+    def note(self, text: str) -> None:
+        if self.stream is None:
+            return
+        self._clear()
+        print(text, file=self.stream, flush=True)
+
+    def update(self, done: int, total: int) -> None:
+        if not self.bar or total < 2:
+            return
+        filled = self.WIDTH * done // total
+        self.stream.write(f"\r[{'#' * filled}{'-' * (self.WIDTH - filled)}] {done}/{total} runs")
+        self.stream.flush()
+        self.drawn = True
+
+    def close(self) -> None:
+        self._clear()
+
+    def _clear(self) -> None:
+        if self.drawn:
+            self.stream.write("\r" + " " * (self.WIDTH + 24) + "\r")
+            self.stream.flush()
+            self.drawn = False
+
+
+def _is_terminal(stream) -> bool:
+    try:
+        return stream.isatty()
+    except (AttributeError, ValueError):
+        return False

@@ -1,0 +1,108 @@
+"""From paths to a report: one function shared by the command line and the language
+server, so both run the same pipeline."""
+
+from __future__ import annotations
+
+import os
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable, Iterable
+
+from latchwatch.analyzers.check import CheckOptions, check_outcome, select_rules
+from latchwatch.analyzers.model.findings import Finding, Severity
+from latchwatch.analyzers.rules import RULES
+from latchwatch.analyzers.model.run_outcome import RunOutcome
+from latchwatch.analyzers.technology.model import Technology
+
+from latchwatch.server.layoutfile import read_layout
+from latchwatch.server.report.model import Report, RunSummary
+from latchwatch.server.sandbox.runner import read_layout_file, run_script
+from latchwatch.server.runs.suppression import apply_suppressions
+
+SCRIPT_SUFFIXES = (".py",)
+LAYOUT_SUFFIXES = (".gds", ".gds2", ".gdsii", ".oas", ".oasis")
+
+
+@dataclass(frozen=True)
+class CheckSettings:
+    tech: Technology
+    python: str | None = None
+    timeout: float = 10.0
+    select: tuple[str, ...] = ()
+    ignore: tuple[str, ...] = ()
+    disable: tuple[str, ...] = ()
+    severity: dict[str, Severity] = field(default_factory=dict)
+    top: str | None = None
+    devices: bool = False
+    project_root: Path | None = None
+    require_sandbox: bool = False  # a missing sandbox protection is an error (SandboxUnavailable), not a fallback
+    hosted: bool = False  # runs are forks of corner hosts (server/hosts.py): many runs, the same settings
+
+
+def is_checkable(path: Path) -> bool:
+    return path.suffix.lower() in SCRIPT_SUFFIXES + LAYOUT_SUFFIXES
+
+
+def expand_paths(paths: Iterable[Path], excluded: Callable[[Path], bool] = lambda p: False) -> list[Path]:
+    """Files as given; folders walked for scripts and layouts (hidden folders skipped)."""
+    out: list[Path] = []
+    for path in paths:
+        if path.is_dir():
+            for root, dirs, files in os.walk(path):
+                dirs[:] = sorted(d for d in dirs if not d.startswith(".") and d != "__pycache__")
+                for name in sorted(files):
+                    candidate = Path(root) / name
+                    if is_checkable(candidate) and not excluded(candidate):
+                        out.append(candidate)
+        else:
+            out.append(path)
+    return out
+
+
+def run_path(path: Path, settings: CheckSettings, source: str | None = None, cancel=None) -> RunOutcome:
+    """Run a script, or read a layout file, into a RunOutcome."""
+    if path.suffix.lower() in LAYOUT_SUFFIXES:  # read in a child too: gdstk can crash on a corrupt file
+        kind = "oas" if path.suffix.lower() in (".oas", ".oasis") else "gds"
+        return read_layout_file(path, kind, python=settings.python, timeout=max(settings.timeout, 60.0),
+                                cancel=cancel, require_sandbox=settings.require_sandbox)
+    return run_script(path, source=source, python=settings.python, timeout=settings.timeout,
+                      project_root=settings.project_root, cancel=cancel, require_sandbox=settings.require_sandbox,
+                      hosted=settings.hosted)
+
+
+def check_run(outcome: RunOutcome, settings: CheckSettings, read_source=None) -> tuple[list[Finding], list, RunSummary]:
+    rules = select_rules(settings.select or None, settings.ignore, settings.disable)
+    options = CheckOptions(
+        project_root=str(settings.project_root) if settings.project_root else None,
+        top=settings.top, exact_devices=settings.devices,
+    )
+    result = check_outcome(outcome, settings.tech, options, rules=rules, severity=settings.severity,
+                           want_devices=settings.devices)
+    findings = apply_suppressions(result.findings, read_source or _read_file)
+    summary = RunSummary(script=outcome.script, corner=outcome.corner, status=outcome.status,
+                         seconds=round(outcome.seconds, 3), cells=result.cells, shapes=result.shapes,
+                         sandbox=outcome.sandbox)
+    return findings, result.devices or [], summary
+
+
+def check_paths(paths: list[Path], settings: CheckSettings, progress: Callable[[str], None] = lambda m: None) -> Report:
+    findings, devices, runs = [], [], []
+    for path in paths:
+        progress(f"checking {path}")
+        outcome = run_path(path, settings)
+        f, d, summary = check_run(outcome, settings)
+        findings.extend(f)
+        devices.extend(d)
+        runs.append(summary)
+        if outcome.output:
+            progress(f"{path}: script output:\n{outcome.output.rstrip()}")
+    return Report(technology=settings.tech.name, runs=tuple(runs), findings=tuple(findings),
+                  devices=tuple(devices) if settings.devices else None, rules=RULES)
+
+
+def _read_file(file: str) -> str | None:
+    try:
+        return Path(file).read_text(encoding="utf-8", errors="replace")
+    except OSError:
+        return None
