@@ -99,3 +99,42 @@ cell.add(gdstk.rectangle((-3, 0), (-1, 4), layer=4))
 cell.add(gdstk.rectangle((-3, 0), (-1, 4), layer=2))   # its n-tap at the left end
 cell.add(gdstk.rectangle((-2.5, 1.5), (-1.5, 2.5), layer=6))
 '''
+
+
+# A generator of finger arrays, for the parameter-corner tests of the runs and the editor.
+GENERATOR = '''\
+import gdstk
+
+NWELL, ACTIVE, POLY, NPLUS, PPLUS, CONTACT = (1, 0), (2, 0), (3, 0), (4, 0), (5, 0), (6, 0)
+
+
+def box(cell, layer, x0, y0, x1, y1):
+    cell.add(gdstk.rectangle((x0, y0), (x1, y1), layer=layer[0], datatype=layer[1]))
+
+
+def finger_array(fingers=4, w=2.0, pitch=1.5):
+    """A PMOS with `fingers` gates and one n-well tap at its left end."""
+    if fingers < 1:
+        raise ValueError(f"fingers must be at least 1, got {fingers}")
+    cell = gdstk.Cell(f"FINGERS_{fingers}")
+    length = fingers * pitch + 0.5
+    box(cell, NPLUS, -3.2, -0.2, -0.8, w + 0.2)
+    box(cell, ACTIVE, -3.0, 0.0, -1.0, w)
+    box(cell, CONTACT, -2.2, w / 2 - 0.2, -1.8, w / 2 + 0.2)
+    box(cell, PPLUS, -0.2, -0.2, length + 0.2, w + 0.2)
+    box(cell, ACTIVE, 0.0, 0.0, length, w)
+    for i in range(fingers):
+        box(cell, POLY, 0.5 + i * pitch, -0.5, 1.0 + i * pitch, w + 0.5)
+    box(cell, NWELL, -4.0, -1.5, length + 1.5, w + 1.5)
+    return cell
+
+
+def pitch_of(l=0.5, gap=1.0):
+    return l + gap
+
+
+def wide_pair(w=3.0) -> "gdstk.Cell":
+    return finger_array(16, w)
+'''
+DIFFUSION_LINE = next(n for n, line in enumerate(GENERATOR.splitlines(), 1) if "box(cell, ACTIVE, 0.0" in line)
+RAISE_LINE = next(n for n, line in enumerate(GENERATOR.splitlines(), 1) if "raise ValueError" in line)

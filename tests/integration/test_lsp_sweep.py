@@ -11,7 +11,7 @@ import textwrap
 from lsprotocol import types
 
 from test_lsp import capabilities, env, session, trusted, wait_until  # noqa: F401  (fixtures)
-from test_sweep import DIFFUSION_LINE, GENERATOR, RAISE_LINE
+from builders import DIFFUSION_LINE, GENERATOR, RAISE_LINE
 
 SWEEP = textwrap.dedent('''\
     [[sweep]]

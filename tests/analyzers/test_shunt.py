@@ -10,6 +10,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from locations import BENCH
 from builders import ACTIVE, CONTACT, NPLUS, NWELL, PPLUS, CellBuilder, layout, outcome
 from latchwatch.analyzers.electrical import shunt
 from latchwatch.analyzers.context import CheckContext, CheckOptions
@@ -22,7 +23,7 @@ from latchwatch.analyzers.technology.model import TechnologyError, technology_fr
 from latchwatch.server.lsp import convert as lsp_convert
 from latchwatch.server.config.techfiles import load_technology
 
-sys.path.insert(0, str(Path(__file__).parent / "bench"))
+sys.path.insert(0, str(BENCH))
 import gen_row  # noqa: E402  (the benchmark's row generator draws the row layouts here too)
 
 IO_MARKER = (12, 0)  # demo technology

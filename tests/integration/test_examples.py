@@ -17,8 +17,8 @@ import sys
 from pathlib import Path
 
 import pytest
+from locations import ROOT
 
-ROOT = Path(__file__).resolve().parents[1]
 EXAMPLES = ROOT / "examples"
 
 

@@ -8,8 +8,8 @@ from pathlib import Path
 
 from latchwatch.analyzers.rules import RULES
 from latchwatch.server.cli.main import CAUTION
+from locations import ROOT
 
-ROOT = Path(__file__).resolve().parents[1]
 README = (ROOT / "README.md").read_text(encoding="utf-8")
 
 

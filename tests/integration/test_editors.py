@@ -17,6 +17,8 @@ from pathlib import Path
 
 import pytest
 
+from locations import EDITOR_CONFIGS
+
 if sys.version_info >= (3, 11):
     import tomllib
 else:  # pragma: no cover
@@ -24,7 +26,7 @@ else:  # pragma: no cover
 
 from latchwatch.server.lsp.settings import KEYS
 
-CONFIGS = Path(__file__).resolve().parent.parent / "editor-configs"
+CONFIGS = EDITOR_CONFIGS
 EDITOR_TIMEOUT = 90
 
 # One contacted n-tap at x -3..-1 in an n-well and a P+ diffusion at x 20..28 drawn on

@@ -12,11 +12,12 @@ from latchwatch.analyzers.model.findings import Finding, Frame, Placement, Relat
 from latchwatch.analyzers.rules.base import Rule, RuleDoc
 from latchwatch.server.report.model import Report, RunSummary
 from latchwatch.server.report.as_sarif import render_sarif
+from locations import DATA
 
 jsonschema = pytest.importorskip("jsonschema")
 
 # The OASIS SARIF 2.1.0 schema, kept beside the project (see standards/README.md).
-SCHEMA_FILE = Path(__file__).resolve().parents[1].parent / "shared" / "standards" / "sarif-schema-2.1.0.json"
+SCHEMA_FILE = DATA / "sarif-schema-2.1.0.json"  # SARIF 2.1.0 (OASIS), kept so a fresh clone validates
 
 
 @pytest.fixture(scope="module")
