@@ -4,7 +4,6 @@ server, so both run the same pipeline."""
 from __future__ import annotations
 
 import os
-import time
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable, Iterable
@@ -15,7 +14,6 @@ from latchwatch.analyzers.rules import RULES
 from latchwatch.analyzers.model.run_outcome import RunOutcome
 from latchwatch.analyzers.technology.model import Technology
 
-from latchwatch.server.layoutfile import read_layout
 from latchwatch.server.report.model import Report, RunSummary
 from latchwatch.server.sandbox.runner import read_layout_file, run_script
 from latchwatch.server.runs.suppression import apply_suppressions

@@ -60,11 +60,11 @@ class SandboxSettings:
             raise ValueError(f"unknown sandbox mechanisms {sorted(unknown)}; known: {', '.join(SKIPPABLE)}")
 
 
-def child_config(settings: SandboxSettings, *, probe: str, work: str, result_fd: int, control_fd: int,
+def child_config(settings: SandboxSettings, *, work: str, result_fd: int, control_fd: int,
                  job_fd: int, cpu_seconds: int, needs_reading: list[str]) -> dict:
-    """The JSON object sandbox_child.py is started with."""
+    """The JSON object server/child/start.py is started with."""
     return {
-        "probe": probe, "work": work, "result_fd": result_fd, "control_fd": control_fd, "job_fd": job_fd,
+        "work": work, "result_fd": result_fd, "control_fd": control_fd, "job_fd": job_fd,
         "memory": settings.memory_limit, "cpu": cpu_seconds, "file_size": settings.file_size_limit,
         "open_files": settings.open_files_limit, "processes": settings.process_limit,
         "needs_reading": needs_reading, "skip": sorted(settings.skip),

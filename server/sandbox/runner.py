@@ -33,7 +33,7 @@ from latchwatch.analyzers.model.run_outcome import RunOutcome, ScriptFailure
 from latchwatch.server.sandbox import wire
 from latchwatch.server.sandbox.hosts import HOSTS
 from latchwatch.server.sandbox.policy import SandboxReport, SandboxSettings, unavailable_message
-from latchwatch.server.sandbox.workers import COLLECT_ALLOWANCE, PROBE, SANDBOX_CHILD, STARTUP_ALLOWANCE, RunnerError, SandboxUnavailable, Worker, WorkerKey, child_environment
+from latchwatch.server.sandbox.workers import COLLECT_ALLOWANCE, HARNESS_FILES, STARTUP_ALLOWANCE, RunnerError, SandboxUnavailable, Worker, WorkerKey, child_environment
 
 __all__ = ["run_script", "RunnerError", "SandboxUnavailable", "child_environment", "OUTPUT_HEAD", "OUTPUT_TAIL",
            "OUTPUT_KILL", "GEOMETRY_KILL", "STARTUP_ALLOWANCE", "COLLECT_ALLOWANCE"]
@@ -46,7 +46,6 @@ KILL_GRACE = 0.2  # s between SIGTERM and SIGKILL
 _POLL = 0.05  # s between checks of the cancel event, and of child exit without a pidfd
 _DRAIN_LIMIT = 1.0  # s to collect the pipes' last bytes after the child is gone
 _FRAME_LINE = re.compile(r'^\s*File "(?P<file>.*)", line (?P<line>\d+) in (?P<function>.*)$')
-_HARNESS_FILES = (str(PROBE), str(SANDBOX_CHILD))
 
 
 def run_script(path: str | Path, *, source: str | None = None, python: str | None = None, timeout: float = 10.0,
@@ -392,9 +391,8 @@ def _dump_frames(dump: str) -> tuple[Frame, ...]:
         match = _FRAME_LINE.match(line)
         if match and blocks:
             blocks[-1].append(Frame(match["file"], int(match["line"]), match["function"].strip()))
-    probe_name = str(PROBE)
-    chosen = next((b for b in blocks if any(f.file == probe_name for f in b)), blocks[0] if blocks else [])
-    return tuple(f for f in chosen if f.file not in _HARNESS_FILES)
+    chosen = next((b for b in blocks if any(f.file in HARNESS_FILES for f in b)), blocks[0] if blocks else [])
+    return tuple(f for f in chosen if f.file not in HARNESS_FILES)
 
 
 def _signal_name(number: int) -> str:

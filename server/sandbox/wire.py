@@ -1,8 +1,9 @@
 """The binary form in which the probe ships a captured layout, parent side.
 
 A payload is MAGIC, a little-endian u64 header length, a JSON header, then raw array
-bytes at the offsets the header's ``arrays`` table names. The encoder lives in
-server/probe.py (the child cannot import latchwatch); this module decodes, checking
+bytes at the offsets the header's ``arrays`` table names. The format, its encoder and
+its field schema live in server/child/wire_format.py (the child cannot import
+latchwatch); this module decodes, checking
 every length and offset so a truncated or foreign payload gives a clear error.
 """
 
@@ -16,24 +17,12 @@ import numpy as np
 from latchwatch.analyzers.model.captured import CapturedCell, CapturedLayout
 from latchwatch.analyzers.model.findings import Frame
 
-from latchwatch.server.child.probe import MAGIC, WIRE_VERSION, encode_payload
+from latchwatch.server.child.wire_format import DTYPES, FIELDS, MAGIC, WIRE_VERSION, encode_payload
 
 __all__ = ["WireError", "encode_payload", "decode_payload", "layout_from_parts", "decode_layout",
            "frame_from_row"]
 
 _PREFIX = len(MAGIC) + 8
-_DTYPES = {"<i4", "<i8", "<f8", "|b1", "|u1"}
-# Per CapturedCell field: dtype and the trailing shape of each row.
-_FIELDS = {
-    "poly_layer": ("<i4", ()), "poly_datatype": ("<i4", ()), "poly_offsets": ("<i8", ()),
-    "points": ("<f8", (2,)), "poly_stack": ("<i4", ()),
-    "label_layer": ("<i4", ()), "label_texttype": ("<i4", ()), "label_origin": ("<f8", (2,)),
-    "label_stack": ("<i4", ()),
-    "ref_cell": ("<i4", ()), "ref_origin": ("<f8", (2,)), "ref_rotation": ("<f8", ()),
-    "ref_magnification": ("<f8", ()), "ref_x_reflection": ("|b1", ()), "ref_columns": ("<i4", ()),
-    "ref_rows": ("<i4", ()), "ref_v1": ("<f8", (2,)), "ref_v2": ("<f8", (2,)),
-    "ref_explicit_offsets": ("<i8", ()), "ref_explicit": ("<f8", (2,)), "ref_stack": ("<i4", ()),
-}
 
 
 class WireError(ValueError):
@@ -63,7 +52,7 @@ def decode_payload(buffer: bytes | bytearray | memoryview) -> tuple[dict, list[n
             shape = tuple(int(n) for n in shape)
         except (TypeError, ValueError):
             raise WireError(f"array {number}: malformed descriptor {descriptor!r}") from None
-        if dtype not in _DTYPES:
+        if dtype not in DTYPES:
             raise WireError(f"array {number}: unexpected dtype {dtype!r}")
         count = int(np.prod(shape, dtype=np.int64))
         if count * np.dtype(dtype).itemsize != nbytes or offset < 0:
@@ -86,12 +75,12 @@ def layout_from_parts(header: dict, arrays: list[np.ndarray]) -> CapturedLayout:
     for number, entry in enumerate(header.get("cells", [])):
         cell = CapturedCell(name=str(entry.get("name", "")))
         for field, index in entry.get("fields", {}).items():
-            if field not in _FIELDS:
+            if field not in FIELDS:
                 raise WireError(f"cell {cell.name!r}: unknown field {field!r}")
             if not 0 <= index < len(arrays):
                 raise WireError(f"cell {cell.name!r}: field {field} names array {index}, "
                                 f"the payload has {len(arrays)}")
-            dtype, row_shape = _FIELDS[field]
+            dtype, row_shape = FIELDS[field]
             array = arrays[index]
             if array.dtype.str != dtype or array.shape[1:] != row_shape:
                 raise WireError(f"cell {cell.name!r}: field {field} has dtype {array.dtype.str} and shape "

@@ -25,9 +25,9 @@ from pathlib import Path
 from latchwatch.server.sandbox import policy as sandbox
 from latchwatch.server.sandbox.policy import SandboxSettings
 
-CHILD = Path(__file__).resolve().parent.parent / "child"
-PROBE = CHILD / "probe.py"
+CHILD = Path(__file__).resolve().parent.parent / "child"  # the package that runs in the sandboxed interpreter
 SANDBOX_CHILD = CHILD / "start.py"
+HARNESS_FILES = frozenset(str(path) for path in CHILD.glob("*.py"))  # frames of these are never the user's
 STARTUP_ALLOWANCE = 5.0  # s for interpreter start and imports before the script's own clock runs
 COLLECT_ALLOWANCE = 30.0  # s for reading the layout once the script has finished
 _ENV_NAMES = ("PATH", "HOME", "LANG", "LANGUAGE", "TZ")
@@ -95,7 +95,7 @@ class Worker:
         job_r, job_w = os.pipe()
         widen_pipe(result_r)
         config = sandbox.child_config(
-            key.settings, probe=str(PROBE), work=str(work), result_fd=result_w, control_fd=control_w,
+            key.settings, work=str(work), result_fd=result_w, control_fd=control_w,
             job_fd=job_r, cpu_seconds=cpu_seconds(key.timeout), needs_reading=needs_reading)
         env = child_environment(work)
         if host_fd is not None:

@@ -7,7 +7,7 @@ import shapely
 
 from builders import ACTIVE, CONTACT, METAL1, NPLUS, NWELL, POLY, PPLUS, CellBuilder, layout, outcome
 from latchwatch.analyzers.check import check_outcome
-from latchwatch.analyzers.extraction.connectivity import NDIFF, PDIFF, PTAP, connect, join_nets, meeting_pairs
+from latchwatch.analyzers.extraction.connectivity import NDIFF, PDIFF, PTAP, join_nets, meeting_pairs
 from latchwatch.analyzers.context import CheckContext, CheckOptions
 from latchwatch.analyzers.extraction.extract import extract
 from latchwatch.analyzers.layout.flatten import flatten

@@ -5,7 +5,6 @@ import copy
 import dataclasses
 import re
 import sys
-from pathlib import Path
 
 import numpy as np
 import pytest

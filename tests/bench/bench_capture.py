@@ -47,12 +47,12 @@ def phase_child(capture: bool) -> None:
     """One measurement in this (fresh) interpreter; prints a JSON dict of seconds."""
     import gdstk  # noqa: F401  (imported first, as the probe does)
 
-    from latchwatch.server.child import probe
+    from latchwatch.server.child import capture_gdstk, collect_gdstk, wire_format
     from latchwatch.server.sandbox import wire
 
-    recorder = probe._Recorder()
+    recorder = capture_gdstk.Recorder()
     if capture:
-        probe.install(recorder)
+        capture_gdstk.install(recorder)
     code = compile(GENERATOR.read_bytes(), str(GENERATOR), "exec")
     figures = {}
     with tempfile.TemporaryDirectory() as folder:
@@ -62,10 +62,10 @@ def phase_child(capture: bool) -> None:
         figures["script"] = time.perf_counter() - started
     if capture:
         started = time.perf_counter()
-        header, arrays = probe.collect(probe.captured_cells(recorder), recorder)
+        header, arrays = collect_gdstk.collect(collect_gdstk.captured_cells(recorder), recorder)
         figures["collect"] = time.perf_counter() - started
         started = time.perf_counter()
-        payload = bytearray(b"".join(bytes(chunk) for chunk in probe.encode_payload(header, arrays)))
+        payload = bytearray(b"".join(bytes(chunk) for chunk in wire_format.encode_payload(header, arrays)))
         figures["encode"] = time.perf_counter() - started
         started = time.perf_counter()
         wire.decode_layout(payload)

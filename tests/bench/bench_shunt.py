@@ -30,11 +30,10 @@ def check_seconds(layout_path: Path, with_shunt: bool, repeat: int = 1) -> tuple
     from latchwatch.analyzers.check import CheckOptions, check_outcome
     from latchwatch.analyzers.rules import RULES
     from latchwatch.analyzers.model.run_outcome import RunOutcome
-    from latchwatch.server.layoutfile import read_layout
     from latchwatch.server.config.techfiles import load_technology
 
     tech = load_technology("demo")
-    captured = read_layout(layout_path)
+    captured = read_layout_file(layout_path, "gds").layout
     rules = tuple(r for r in RULES if with_shunt or r.id != "shunt-resistance")
     times, result = [], None
     for _ in range(repeat):
@@ -53,11 +52,10 @@ def phases(layout_path: Path) -> dict:
     from latchwatch.analyzers.layout.flatten import flatten
     from latchwatch.analyzers.rules import RULES
     from latchwatch.analyzers.model.run_outcome import RunOutcome
-    from latchwatch.server.layoutfile import read_layout
     from latchwatch.server.config.techfiles import load_technology
 
     tech = load_technology("demo")
-    captured = read_layout(layout_path)
+    captured = read_layout_file(layout_path, "gds").layout
     run = RunOutcome(script=str(layout_path), status="ok", seconds=0.0, layout=captured, failure=None,
                      output="", sandbox={})
     solves = []

@@ -4,7 +4,6 @@ command that CI runs, every rule, and the caution."""
 import re
 import subprocess
 import sys
-from pathlib import Path
 
 from latchwatch.analyzers.rules import RULES
 from latchwatch.server.cli.main import CAUTION

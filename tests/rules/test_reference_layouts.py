@@ -5,14 +5,12 @@ own flattening, shapely unions for the wells, and dense sampling for the distanc
 from __future__ import annotations
 
 import numpy as np
-import pytest
 import shapely
 from hypothesis import HealthCheck, given, settings, strategies as st
 
 import gdstk
-from builders import outcome
 from latchwatch.analyzers.check import CheckOptions, check_outcome
-from latchwatch.server.layoutfile import read_layout
+from latchwatch.server.sandbox.runner import read_layout_file
 from latchwatch.server.config.techfiles import load_technology
 
 NWELL, ACTIVE, NPLUS, PPLUS, CONTACT = 1, 2, 4, 5, 6
@@ -94,7 +92,7 @@ def test_pipeline_matches_dense_sampling(layout, tmp_path_factory):
     lib.add(top, unit)
     path = tmp_path_factory.mktemp("ref") / "ref.gds"
     lib.write_gds(str(path))
-    result = check_outcome(outcome(read_layout(path)), load_technology("demo"), CheckOptions(top="TOP"),
+    result = check_outcome(read_layout_file(path, "gds"), load_technology("demo"), CheckOptions(top="TOP"),
                            want_devices=True)
     got = [(np.array(d.bbox), d.tap_distance_um) for d in result.devices if d.kind == "pdiff"]
     # The reference reads the same file back (coordinates on the same 1 nm grid).

@@ -6,13 +6,13 @@ import gdstk
 import numpy as np
 import pytest
 
-from latchwatch.server.child import probe
+from latchwatch.server.child import collect_gdstk, stacks
 from latchwatch.server.sandbox import wire
 from latchwatch.server.sandbox.runner import run_script
 
 
 def _collect(cells):
-    header, arrays = probe.collect(cells)
+    header, arrays = collect_gdstk.collect(cells)
     return wire.layout_from_parts(header, arrays)
 
 
@@ -287,7 +287,7 @@ def test_stacks_are_depth_limited_and_many_frames_stay_correct(tmp_path):
         unit(top, -1)
         """)
     cell = layout.cells[0]
-    assert len(layout.stack_frames(int(cell.poly_stack[0]))) == probe.STACK_DEPTH
+    assert len(layout.stack_frames(int(cell.poly_stack[0]))) == stacks.STACK_DEPTH
     assert _lines(layout, cell.poly_stack[0])[:3] == [("box", 4), ("deep", 8), ("deep", 10)]
     assert {tuple(_lines(layout, s)) for s in cell.poly_stack[1:-1]} == {(("box", 4), ("unit", 13), ("<module>", 18))}
     assert _lines(layout, cell.poly_stack[-1]) == [("box", 4), ("unit", 13), ("<module>", 19)]

@@ -12,7 +12,7 @@ from pathlib import Path
 
 import pytest
 
-from latchwatch.server.child import probe
+from latchwatch.server.child import stacks
 from latchwatch.server.sandbox import runner
 from latchwatch.server.sandbox.runner import RunnerError, run_script
 from procs import processes_with as _processes_with
@@ -304,7 +304,7 @@ def test_runaway_recursion_keeps_both_ends_of_the_traceback(tmp_path):
     path = _script(tmp_path, "def down(n):\n    return down(n + 1)\n\ndown(0)\n")
     failure = run_script(path).failure
     assert failure.exc_type == "RecursionError"
-    assert len(failure.frames) == sum(probe.TRACEBACK_KEEP)
+    assert len(failure.frames) == sum(stacks.TRACEBACK_KEEP)
     assert (failure.frames[0].line, failure.frames[-1].line) == (2, 4)
 
 

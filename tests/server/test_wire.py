@@ -6,7 +6,7 @@ import gdstk
 import numpy as np
 import pytest
 
-from latchwatch.server.child import probe
+from latchwatch.server.child import collect_gdstk, wire_format
 from latchwatch.server.sandbox import wire
 
 
@@ -25,13 +25,13 @@ def _sample_cells():
 
 
 def test_round_trip_keeps_every_array_exactly():
-    header, arrays = probe.collect(_sample_cells(), unit=1e-6, source="sample")
+    header, arrays = collect_gdstk.collect(_sample_cells(), unit=1e-6, source="sample")
     layout = wire.decode_layout(_payload(header, arrays))
     direct = wire.layout_from_parts(header, arrays)
     assert [c.name for c in layout.cells] == ["TOP", "UNIT"]
     assert layout.source == "sample" and layout.unit == 1e-6
     for decoded, expected in zip(layout.cells, direct.cells):
-        for field in wire._FIELDS:
+        for field in wire_format.FIELDS:
             got, want = getattr(decoded, field), getattr(expected, field)
             assert got.dtype == want.dtype and got.shape == want.shape, field
             np.testing.assert_array_equal(got, want, err_msg=field)
@@ -43,21 +43,21 @@ def test_round_trip_keeps_every_array_exactly():
 
 
 def test_decoded_arrays_are_writable_views_of_a_bytearray():
-    header, arrays = probe.collect(_sample_cells())
+    header, arrays = collect_gdstk.collect(_sample_cells())
     layout = wire.decode_layout(_payload(header, arrays))
     layout.cells[1].points[0, 0] = 42.0  # later stages may adjust in place
     assert layout.cells[1].points[0, 0] == 42.0
 
 
 def test_empty_layout_round_trips():
-    header, arrays = probe.collect([gdstk.Cell("EMPTY")])
+    header, arrays = collect_gdstk.collect([gdstk.Cell("EMPTY")])
     layout = wire.decode_layout(_payload(header, arrays))
     assert layout.cells[0].name == "EMPTY"
     assert layout.cells[0].polygon_count == 0 and layout.cells[0].points.shape == (0, 2)
 
 
 def test_failure_header_round_trips():
-    header = probe.failure_header("error", "ValueError", "bad width", [["/x.py", 3, "f", 5, 3, 9]])
+    header = wire_format.failure_header("error", "ValueError", "bad width", [["/x.py", 3, "f", 5, 3, 9]])
     decoded, arrays = wire.decode_payload(_payload(header, []))
     assert decoded["status"] == "error" and decoded["exc_type"] == "ValueError" and arrays == []
     assert wire.frame_from_row(decoded["frames"][0]).line == 3
@@ -71,7 +71,7 @@ def test_wrong_marker_is_reported():
 
 
 def test_truncated_payload_is_reported():
-    header, arrays = probe.collect(_sample_cells())
+    header, arrays = collect_gdstk.collect(_sample_cells())
     data = _payload(header, arrays)
     with pytest.raises(wire.WireError, match="truncated"):
         wire.decode_payload(data[:-9])
@@ -80,25 +80,25 @@ def test_truncated_payload_is_reported():
 
 
 def test_foreign_version_and_bad_descriptor_are_reported():
-    header, arrays = probe.collect(_sample_cells())
+    header, arrays = collect_gdstk.collect(_sample_cells())
     with pytest.raises(wire.WireError, match="version"):
         wire.decode_payload(_payload(dict(header, version=99), arrays))
     data = _payload(header, arrays)
-    (length,) = struct.unpack_from("<Q", data, len(probe.MAGIC))
-    text = bytes(data[len(probe.MAGIC) + 8: len(probe.MAGIC) + 8 + length]).replace(b'"<f8"', b'"<c16"', 1)
+    (length,) = struct.unpack_from("<Q", data, len(wire_format.MAGIC))
+    text = bytes(data[len(wire_format.MAGIC) + 8: len(wire_format.MAGIC) + 8 + length]).replace(b'"<f8"', b'"<c16"', 1)
     with pytest.raises(wire.WireError, match="dtype"):
-        wire.decode_payload(data[: len(probe.MAGIC) + 8] + text + data[len(probe.MAGIC) + 8 + length:])
+        wire.decode_payload(data[: len(wire_format.MAGIC) + 8] + text + data[len(wire_format.MAGIC) + 8 + length:])
 
 
 def test_field_pointing_at_missing_array_is_reported():
-    header, arrays = probe.collect(_sample_cells())
+    header, arrays = collect_gdstk.collect(_sample_cells())
     header["cells"][0]["fields"]["points"] = 999
     with pytest.raises(wire.WireError, match="names array 999"):
         wire.layout_from_parts(header, arrays)
 
 
 def test_inconsistent_offsets_are_reported():
-    header, arrays = probe.collect(_sample_cells())
+    header, arrays = collect_gdstk.collect(_sample_cells())
     index = header["cells"][1]["fields"]["poly_offsets"]
     arrays[index] = arrays[index] + 1
     with pytest.raises(wire.WireError, match="offsets"):

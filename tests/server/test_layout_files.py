@@ -1,10 +1,20 @@
-"""GDSII and OASIS files read into a CapturedLayout, through the probe's collection code."""
+"""GDSII and OASIS files read into a CapturedLayout in a sandboxed child, through the collection code of scripts."""
+
+from pathlib import Path
 
 import gdstk
 import numpy as np
 import pytest
 
-from latchwatch.server.layoutfile import LayoutFileError, is_layout_file, read_layout
+from latchwatch.server.runs.pipeline import is_checkable
+from latchwatch.server.sandbox.runner import read_layout_file
+
+
+def read_layout(path):
+    """The captured layout of a file read in a sandboxed child, as every check reads one."""
+    outcome = read_layout_file(path, "oas" if str(path).endswith(".oas") else "gds")
+    assert outcome.failure is None, outcome.failure
+    return outcome.layout
 
 
 def _library():
@@ -74,16 +84,14 @@ def test_polygon_repetitions_stored_in_the_file_arrive_expanded(tmp_path):
     assert starts == [0, 3, 6, 9]
 
 
-def test_unknown_suffix_and_missing_file_are_clear_errors(tmp_path):
-    with pytest.raises(LayoutFileError, match=r"chip\.txt: not a layout file"):
-        read_layout(tmp_path / "chip.txt")
-    with pytest.raises(LayoutFileError, match=r"absent\.gds: no such file"):
-        read_layout(tmp_path / "absent.gds")
-    assert is_layout_file("a/B.GDS") and is_layout_file("x.oas") and not is_layout_file("x.py")
+def test_missing_file_is_a_failed_read_naming_it(tmp_path):
+    outcome = read_layout_file(tmp_path / "absent.gds", "gds")
+    assert outcome.failure is not None and "absent.gds" in outcome.failure.message
+    assert is_checkable(Path("a/B.GDS")) and is_checkable(Path("x.oas")) and not is_checkable(Path("x.txt"))
 
 
-def test_garbage_file_is_a_clear_error(tmp_path):
+def test_garbage_file_is_a_failed_read_naming_it(tmp_path):
     path = tmp_path / "broken.gds"
     path.write_bytes(b"this is not a GDSII stream at all" * 10)
-    with pytest.raises(LayoutFileError, match=r"broken\.gds"):
-        read_layout(path)
+    outcome = read_layout_file(path, "gds")
+    assert outcome.failure is not None and "broken.gds" in outcome.failure.message

@@ -1,0 +1,107 @@
+"""What the child asks of the kernel through libc, and the record of what it obtained.
+
+Standard library only, Python 3.8 and later (the interpreter may be the user's own).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import time
+# Imported before the identity changes, which may hide the standard library.
+import ctypes
+try:
+    import pwd
+    import resource
+except ImportError:  # Windows
+    pwd = resource = None
+
+
+CLONE_NEWUSER = 0x10000000
+
+
+CLONE_NEWPID = 0x20000000
+
+
+CLONE_NEWNET = 0x40000000
+
+
+PR_SET_PDEATHSIG = 1
+
+
+PR_SET_SECUREBITS = 28
+
+
+PR_SET_NO_NEW_PRIVS = 38
+
+
+PR_SET_CHILD_SUBREAPER = 36
+
+
+class Record:
+    """What is in force, with a detail, and what is not, with the reason."""
+
+    def __init__(self):
+        self.in_force = {}
+        self.missing = {}
+
+    def ok(self, name, detail):
+        self.in_force[name] = detail
+        self.missing.pop(name, None)
+
+    def no(self, name, reason):
+        if name not in self.in_force:
+            self.missing[name] = reason
+
+    def as_dict(self):
+        return {"in_force": self.in_force, "missing": self.missing}
+
+
+_libc_handle = None
+
+
+def libc():
+    global _libc_handle
+    if _libc_handle is None:
+        _libc_handle = ctypes.CDLL(None, use_errno=True)
+    return _libc_handle
+
+
+def call_libc(function, *args):
+    """Call a libc function; raise OSError with errno on a -1 result."""
+    result = function(*args)
+    if result == -1:
+        number = ctypes.get_errno()
+        raise OSError(number, os.strerror(number))
+    return result
+
+
+def prctl(option, value=0):
+    return call_libc(libc().prctl, ctypes.c_int(option), ctypes.c_ulong(value), ctypes.c_ulong(0),
+                 ctypes.c_ulong(0), ctypes.c_ulong(0))
+
+
+def unshare(flags):
+    if hasattr(os, "unshare"):  # Python 3.12+
+        os.unshare(flags)
+    else:
+        call_libc(libc().unshare, ctypes.c_int(flags))
+
+
+def why(error):
+    if isinstance(error, OSError):
+        return os.strerror(error.errno) if error.errno else (error.strerror or str(error))
+    return str(error)
+
+
+def write_text(path, text):
+    with open(path, "w") as handle:
+        handle.write(text)
+
+
+def report_sandbox(config, record, started):
+    line = "sandbox " + json.dumps(dict(record.as_dict(), setup_ms=round((time.perf_counter() - started) * 1e3, 2)))
+    try:
+        os.write(config["control_fd"], line.encode("utf-8") + b"\n")
+    except OSError:
+        pass
