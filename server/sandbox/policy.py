@@ -15,6 +15,12 @@ import sys
 from dataclasses import dataclass, field
 
 # (name, what it protects against), in the order doctor lists them.
+# What the parent enforces on every run's pipes (server/sandbox/runner.py).
+OUTPUT_HEAD = 56 << 10  # bytes of output kept from the start ...
+OUTPUT_TAIL = 8 << 10  # ... and from the end
+OUTPUT_KILL = 64 << 20  # printing more than this stops the run ("limit")
+GEOMETRY_KILL = 2 << 30  # a result payload larger than this stops the run ("limit")
+
 PROTECTIONS = (
     ("network", "network access"),
     ("writes", "writes outside the run's temporary folder"),
@@ -72,8 +78,7 @@ def child_config(settings: SandboxSettings, *, work: str, result_fd: int, contro
 
 
 def parent_protections() -> dict[str, str]:
-    """What the parent itself enforces on every run (server/runner.py)."""
-    from latchwatch.server.sandbox.runner import GEOMETRY_KILL, OUTPUT_HEAD, OUTPUT_KILL, OUTPUT_TAIL
+    """What the parent itself enforces on every run (server/sandbox/runner.py)."""
 
     protections = {
         "environment": "allow-listed: locale, PATH, HOME, TZ and the run's TMPDIR; no tokens, keys or credentials",

@@ -32,16 +32,12 @@ from latchwatch.analyzers.model.run_outcome import RunOutcome, ScriptFailure
 
 from latchwatch.server.sandbox import wire
 from latchwatch.server.sandbox.hosts import HOSTS
-from latchwatch.server.sandbox.policy import SandboxReport, SandboxSettings, unavailable_message
+from latchwatch.server.sandbox.policy import GEOMETRY_KILL, OUTPUT_HEAD, OUTPUT_KILL, OUTPUT_TAIL, SandboxReport, SandboxSettings, unavailable_message
 from latchwatch.server.sandbox.workers import COLLECT_ALLOWANCE, HARNESS_FILES, STARTUP_ALLOWANCE, RunnerError, SandboxUnavailable, Worker, WorkerKey, child_environment
 
 __all__ = ["run_script", "RunnerError", "SandboxUnavailable", "child_environment", "OUTPUT_HEAD", "OUTPUT_TAIL",
            "OUTPUT_KILL", "GEOMETRY_KILL", "STARTUP_ALLOWANCE", "COLLECT_ALLOWANCE"]
 
-OUTPUT_HEAD = 56 << 10  # bytes of output kept from the start ...
-OUTPUT_TAIL = 8 << 10  # ... and from the end
-OUTPUT_KILL = 64 << 20  # printing more than this stops the run ("limit")
-GEOMETRY_KILL = 2 << 30  # a result payload larger than this stops the run ("limit")
 KILL_GRACE = 0.2  # s between SIGTERM and SIGKILL
 _POLL = 0.05  # s between checks of the cancel event, and of child exit without a pidfd
 _DRAIN_LIMIT = 1.0  # s to collect the pipes' last bytes after the child is gone
