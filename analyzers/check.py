@@ -10,7 +10,7 @@ from latchwatch.analyzers.context import CheckContext, CheckOptions
 from latchwatch.analyzers.extraction.devices import device_table
 from latchwatch.analyzers.model.findings import Device, Finding, Severity
 from latchwatch.analyzers.layout.flatten import flatten
-from latchwatch.analyzers.rules import RULES, Rule
+from latchwatch.analyzers.rules import RULES, Rule, Scope
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:
@@ -55,10 +55,13 @@ def top_cells(outcome: RunOutcome, top: str | None) -> list[int]:
 def check_outcome(outcome: RunOutcome, tech: Technology, options: CheckOptions = CheckOptions(), *,
                   rules: tuple[Rule, ...] = RULES, severity: dict[str, Severity] | None = None,
                   want_devices: bool = False) -> CheckResult:
+    """Every chosen rule on one run: run rules once, layout rules on each checked top cell."""
     findings: list[Finding] = []
     devices: list[Device] | None = [] if want_devices else None
+    run_rules = tuple(rule for rule in rules if rule.scope is Scope.RUN)
+    layout_rules = tuple(rule for rule in rules if rule.scope is Scope.LAYOUT)
     ctx = CheckContext(outcome, tech, options)
-    for rule in rules:
+    for rule in run_rules:
         findings.extend(_checked(rule, ctx))
     layout = outcome.layout
     shapes = 0
@@ -67,7 +70,7 @@ def check_outcome(outcome: RunOutcome, tech: Technology, options: CheckOptions =
             flat = flatten(layout, top)
             shapes += len(flat.polygons)
             ctx = CheckContext(outcome, tech, options, flat)
-            for rule in rules:
+            for rule in layout_rules:
                 findings.extend(_checked(rule, ctx, layout.cells[top].name))
             if want_devices:
                 devices.extend(device_table(ctx))

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from latchwatch.analyzers.rules import floating_well, invalid_geometry, io_guard_ring, io_spacing, isolation_tie, no_geometry, script_error, script_limit, script_timeout, shunt_resistance, tap_distance, tap_supply, uncontacted_tap
-from latchwatch.analyzers.rules.base import Rule, RuleDoc
+from latchwatch.analyzers.rules.base import Rule, RuleDoc, Scope
 
 RULES: tuple[Rule, ...] = (
     tap_distance.RULE,
@@ -23,7 +23,4 @@ RULES: tuple[Rule, ...] = (
 
 RULES_BY_ID = {rule.id: rule for rule in RULES}
 
-# Rules whose check needs the flattened layout; the others look at the run itself.
-RUN_RULES = frozenset({"script-error", "script-timeout", "script-limit", "no-geometry"})
-
-__all__ = ["RULES", "RULES_BY_ID", "RUN_RULES", "Rule", "RuleDoc"]
+__all__ = ["RULES", "RULES_BY_ID", "Rule", "RuleDoc", "Scope"]

@@ -3,6 +3,7 @@ documentation and one check function."""
 
 from __future__ import annotations
 
+import enum
 from dataclasses import dataclass
 from typing import Callable, Iterable
 
@@ -17,6 +18,13 @@ class RuleDoc:
     fix: str  # how to fix it
 
 
+class Scope(enum.Enum):
+    """What a rule looks at: the run itself (once per run), or each checked top cell's layout."""
+
+    RUN = "run"
+    LAYOUT = "layout"
+
+
 @dataclass(frozen=True)
 class Rule:
     id: str
@@ -24,6 +32,7 @@ class Rule:
     summary: str  # one line, for `latchwatch rules` and SARIF shortDescription
     doc: RuleDoc
     check: Callable[["object"], Iterable[Finding]]  # takes a CheckContext
+    scope: Scope = Scope.LAYOUT  # RUN rules see ctx.flat None; LAYOUT rules a flattened top cell
 
     def help_text(self) -> str:
         d = self.doc

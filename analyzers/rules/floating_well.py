@@ -36,8 +36,6 @@ def _finding(ctx, template, kind_tap, region, region_shape, first_device, n, n_b
 
 
 def check(ctx):
-    if ctx.flat is None:
-        return
     ex = ctx.extraction
     if len(ex.wells):
         devices, bare, untied = _untied(len(ex.wells), ex.pdiff.body, ex.ntap.body, ex.ntap_contacted)

@@ -60,8 +60,6 @@ def _ring_piece(regions: rings.TapRegions, taps, region: int, location) -> int:
 
 
 def check(ctx):
-    if ctx.flat is None:
-        return
     params = ctx.tech.rules.get("io-guard-ring")
     if params is None:
         return

@@ -28,8 +28,6 @@ def _nearest(geoms: np.ndarray, targets: np.ndarray) -> tuple[np.ndarray, np.nda
 
 
 def check(ctx):
-    if ctx.flat is None:
-        return
     minimum = ctx.tech.rules.get("io-spacing", {}).get("min")
     if minimum is None:
         return

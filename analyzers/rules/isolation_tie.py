@@ -21,8 +21,6 @@ def _where(region):
 
 
 def check(ctx):
-    if ctx.flat is None:
-        return
     ex = ctx.extraction
     if len(ex.deep_nwells) == 0:
         return

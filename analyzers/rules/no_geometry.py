@@ -4,14 +4,14 @@ from __future__ import annotations
 
 
 from latchwatch.analyzers.model.findings import Severity
-from latchwatch.analyzers.rules.base import Rule, RuleDoc
+from latchwatch.analyzers.rules.base import Rule, RuleDoc, Scope
 
 MESSAGE = "script ran but drew no shapes on the layers of technology {tech}"
 
 
 def check(ctx):
     layout = ctx.outcome.layout
-    if ctx.flat is not None or ctx.outcome.status != "ok" or layout is None:
+    if ctx.outcome.status != "ok" or layout is None:
         return
     known = {tuple(v) for v in ctx.tech.layers.values()}
     for cell in layout.cells:
@@ -39,4 +39,5 @@ RULE = Rule(
         fix="Check that the script draws on the technology's layer numbers (latchwatch tech show NAME).",
     ),
     check=check,
+    scope=Scope.RUN,
 )

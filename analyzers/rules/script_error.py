@@ -3,14 +3,14 @@
 from __future__ import annotations
 
 from latchwatch.analyzers.model.findings import Severity
-from latchwatch.analyzers.rules.base import Rule, RuleDoc
+from latchwatch.analyzers.rules.base import Rule, RuleDoc, Scope
 
 MESSAGE = "script raised {exc_type}: {message}"
 
 
 def check(ctx):
     failure = ctx.outcome.failure
-    if ctx.flat is not None or failure is None or failure.kind != "error":
+    if failure is None or failure.kind != "error":
         return
     text = MESSAGE.format(exc_type=failure.exc_type or "an error", message=failure.message or "(no message)")
     yield ctx.run_finding(RULE, text, failure.frames)
@@ -34,4 +34,5 @@ RULE = Rule(
         fix="Fix the exception; the other rules run again as soon as the script completes.",
     ),
     check=check,
+    scope=Scope.RUN,
 )

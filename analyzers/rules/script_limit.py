@@ -3,14 +3,14 @@
 from __future__ import annotations
 
 from latchwatch.analyzers.model.findings import Severity
-from latchwatch.analyzers.rules.base import Rule, RuleDoc
+from latchwatch.analyzers.rules.base import Rule, RuleDoc, Scope
 
 MESSAGE = "script exceeded a resource limit: {message}"
 
 
 def check(ctx):
     failure = ctx.outcome.failure
-    if ctx.flat is not None or failure is None or failure.kind != "limit":
+    if failure is None or failure.kind != "limit":
         return
     yield ctx.run_finding(RULE, MESSAGE.format(message=failure.message or failure.exc_type or "limit reached"),
                           failure.frames)
@@ -34,4 +34,5 @@ RULE = Rule(
         fix="Reduce what the script allocates or prints; for really large layouts check a smaller parameter set.",
     ),
     check=check,
+    scope=Scope.RUN,
 )

@@ -3,14 +3,14 @@
 from __future__ import annotations
 
 from latchwatch.analyzers.model.findings import Severity
-from latchwatch.analyzers.rules.base import Rule, RuleDoc
+from latchwatch.analyzers.rules.base import Rule, RuleDoc, Scope
 
 MESSAGE = "script ran past its time limit and was stopped after {seconds:.1f} s while running this line"
 
 
 def check(ctx):
     failure = ctx.outcome.failure
-    if ctx.flat is not None or failure is None or failure.kind != "timeout":
+    if failure is None or failure.kind != "timeout":
         return
     yield ctx.run_finding(RULE, MESSAGE.format(seconds=ctx.outcome.seconds), failure.frames)
 
@@ -33,4 +33,5 @@ RULE = Rule(
         fix="Fix the loop, or raise the time limit if the generator is legitimately slow.",
     ),
     check=check,
+    scope=Scope.RUN,
 )

@@ -21,8 +21,6 @@ MESSAGE_NO_PATH = ("{what}: no path through the {body} sheet to a contacted {tap
 
 
 def check(ctx):
-    if ctx.flat is None:
-        return
     ex = ctx.extraction
     estimates = shunt_estimates(ctx)
     for kind in ("p", "n"):

@@ -20,8 +20,6 @@ def describe(kind: str, gated: bool) -> str:
 
 
 def check(ctx):
-    if ctx.flat is None:
-        return
     exact = ctx.options.exact_devices
     results = ctx.memo(("tap-distance", exact), lambda: {k: tap_distances(ctx, k, exact) for k in KINDS})
     for kind in KINDS:

@@ -18,8 +18,6 @@ MESSAGE_SHORT = "net labelled {first} here is also labelled {second}: two suppli
 
 
 def check(ctx):
-    if ctx.flat is None:
-        return
     ln = nets(ctx)
     if ln.conn is None:
         return

@@ -12,8 +12,6 @@ MESSAGE = "{kind} encloses no contact; it is not counted as a tap"
 
 
 def check(ctx):
-    if ctx.flat is None:
-        return
     ex = ctx.extraction
     for kind, pieces, contacted in (("n-tap", ex.ntap, ex.ntap_contacted), ("p-tap", ex.ptap, ex.ptap_contacted)):
         bare = np.flatnonzero(~contacted)

@@ -33,3 +33,29 @@ def test_rules_match_the_catalogue_and_are_documented():
         for part in (rule.summary, rule.doc.flags, rule.doc.why, rule.doc.example, rule.doc.fix):
             assert part.strip()
         assert len(rule.doc.why) > 150  # the physics, a paragraph, not a slogan
+
+
+def test_run_rules_judge_the_run_and_layout_rules_the_layout():
+    """A rule's scope decides where check_outcome calls it; the run rules are the four about the run itself."""
+    from latchwatch.analyzers.rules import Scope
+
+    run_rules = {rule.id for rule in RULES if rule.scope is Scope.RUN}
+    assert run_rules == {"script-error", "script-timeout", "script-limit", "no-geometry"}
+
+
+def test_each_rule_runs_once_per_run_or_top_cell(monkeypatch):
+    from builders import NWELL, CellBuilder, layout, outcome
+
+    from latchwatch.analyzers import check as check_module
+    from latchwatch.analyzers.rules import Scope
+    from latchwatch.server.config.techfiles import load_technology
+
+    calls = []
+    real = check_module._checked
+    monkeypatch.setattr(check_module, "_checked", lambda rule, ctx, cell=None: calls.append(
+        (rule.id, ctx.flat is None)) or real(rule, ctx, cell))
+    one_top = CellBuilder("TOP")
+    one_top.rect(NWELL, 0, 0, 10, 10)
+    check_module.check_outcome(outcome(layout(one_top)), load_technology("demo"))
+    # Once each: run rules without a flattened layout, layout rules on the one top cell.
+    assert sorted(calls) == sorted((rule.id, rule.scope is Scope.RUN) for rule in RULES)
