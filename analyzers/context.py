@@ -67,11 +67,11 @@ class CheckContext:
         return self._finding(rule, self.provenance.locate_label(label), message, **fields)
 
     def _finding(self, rule, loc: dict, message: str, *, location=None, bbox=None,
-                 value=None, limit=None, unit=None, related=(), figures=None) -> Finding:
+                 value=None, limit=None, unit=None, related=(), figures=None, device_kind=None) -> Finding:
         return Finding(
             rule=rule.id, severity=rule.severity, message=message,
             location=_point(location), bbox=_box(bbox), value=_round(value), limit=limit, unit=unit,
-            corner=self.outcome.corner, related=tuple(related), figures=figures or {}, **loc,
+            corner=self.outcome.corner, related=tuple(related), figures=figures or {}, device_kind=device_kind, **loc,
         )
 
     def run_finding(self, rule, message: str, frames=(), **fields) -> Finding:

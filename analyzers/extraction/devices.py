@@ -14,6 +14,7 @@ from latchwatch.analyzers.electrical.shunt import shunt_estimates
 from latchwatch.analyzers.extraction.tapdistance import FarthestPoints, TapIndex, farthest_from_taps
 
 KINDS = ("p", "n")  # P+ in an n-well, N+ in the p-body
+DEVICE_KIND = {"p": "pdiff", "n": "ndiff"}  # the name of each kind in findings and device rows
 
 
 @dataclass
@@ -63,7 +64,7 @@ def device_table(ctx) -> list[Device]:
             loc = ctx.provenance.locate_shape(int(r.pieces.shape[i]))
             value = r.result.value[i]
             rows.append(Device(
-                kind="pdiff" if kind == "p" else "ndiff", cell=loc["cell"],
+                kind=DEVICE_KIND[kind], cell=loc["cell"],
                 bbox=tuple(round(float(v), 6) for v in bounds[i]), file=loc["file"], line=loc["line"],
                 body=body_name(kind, int(r.pieces.body[i])),
                 tap_distance_um=None if not np.isfinite(value) else round(float(value), 6),

@@ -79,6 +79,7 @@ class Finding:
     stack: tuple[Frame, ...] = ()
     placements: tuple[Placement, ...] = ()
     related: tuple[Related, ...] = ()
+    device_kind: str | None = None  # "pdiff" or "ndiff" when the finding is about device diffusions
     # Extra figures for front ends (hover, SARIF properties); never part of identity.
     figures: dict = field(default_factory=dict, compare=False, hash=False)
 

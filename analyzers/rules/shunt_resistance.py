@@ -7,6 +7,7 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
+from latchwatch.analyzers.extraction.devices import DEVICE_KIND, KINDS
 from latchwatch.analyzers.extraction.extract import SUBSTRATE
 from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.electrical.shunt import nearest_taps, shunt_estimates, si
@@ -23,7 +24,7 @@ MESSAGE_NO_PATH = ("{what}: no path through the {body} sheet to a contacted {tap
 def check(ctx):
     ex = ctx.extraction
     estimates = shunt_estimates(ctx)
-    for kind in ("p", "n"):
+    for kind in KINDS:
         est = estimates[kind]
         pieces = ex.pdiff if kind == "p" else ex.ndiff
         gated = ex.pdiff_gated if kind == "p" else ex.ndiff_gated
@@ -61,6 +62,7 @@ def check(ctx):
                          "trigger_current_a": est.vbe_on / ohm if finite else 0.0,
                          "required_current_a": float(est.required[i]), "pad_connected": bool(est.pad[i]),
                          "sheet_ohm_per_square": float(est.sheet[i]), "basis": "estimate from a sheet model"},
+                device_kind=DEVICE_KIND[kind],
             )
 
 

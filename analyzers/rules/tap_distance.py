@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
-from latchwatch.analyzers.extraction.devices import KINDS, tap_distances
+from latchwatch.analyzers.extraction.devices import DEVICE_KIND, KINDS, tap_distances
 from latchwatch.analyzers.extraction.extract import SUBSTRATE, is_pwell_body
 from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.rules.base import Rule, RuleDoc
@@ -42,7 +42,7 @@ def check(ctx):
             shape = int(r.pieces.shape[i])
             if not np.isfinite(res.value[i]):
                 yield ctx.shape_finding(RULE, shape, MESSAGE_NO_TAP.format(what=what, tap=tap_name, limit=limit),
-                                        bbox=bounds[i], limit=limit, unit="um")
+                                        bbox=bounds[i], limit=limit, unit="um", device_kind=DEVICE_KIND[kind])
                 continue
             where = ""
             if np.isfinite(r.spacing[i]):
@@ -57,6 +57,7 @@ def check(ctx):
                 location=res.point[i], bbox=bounds[i], value=res.value[i], limit=limit, unit="um",
                 related=(ctx.related_shape(tap_shape, f"nearest {tap_name}", tap_xy),),
                 figures={"spacing_um": None if not np.isfinite(r.spacing[i]) else round(float(r.spacing[i]), 6)},
+                device_kind=DEVICE_KIND[kind],
             )
 
 

@@ -136,16 +136,6 @@ def group_findings(findings: Iterable[Finding], document: str) -> list[Group]:
     return sorted(groups.values(), key=lambda g: (g.target.file, g.target.line, g.target.rule, g.via))
 
 
-def device_kind(finding: Finding, devices: Iterable[Device]) -> str | None:
-    """pdiff/ndiff for a finding about a device diffusion: the device row drawn on the
-    same line with the same bounding box, else the message's first word."""
-    for device in devices:
-        if device.file == finding.file and device.line == finding.line and device.bbox == finding.bbox:
-            return device.kind
-    head = finding.message.split(" ", 1)[0]
-    return {"P+": "pdiff", "N+": "ndiff"}.get(head)
-
-
 class DeviceIndex:
     """Device rows by the line that drew them."""
 
@@ -171,7 +161,7 @@ def _count_phrase(group: Group, devices: DeviceIndex) -> str | None:
         return None
     anchors = {(f.file, f.line) for f in findings}
     rows = [d for file, line in anchors for d in devices.at(file, line)]
-    kinds = {device_kind(f, rows) for f in findings}
+    kinds = {f.device_kind for f in findings}
     if len(kinds) != 1 or None in kinds:
         return None
     kind = kinds.pop()

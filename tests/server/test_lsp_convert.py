@@ -37,7 +37,7 @@ def tap_finding(value, location, *, line=3, file=MAIN, stack=None, limit=20.0, b
         value=value, limit=limit, unit="um",
         stack=stack or (Frame(MAIN, 3, "pmos", 5, 3, 38), Frame(MAIN, 5, "<module>", 5, 5, 22)),
         placements=(Placement(MAIN, 7, "TOP", "ROW[2,0]"),),
-        related=(Related("nearest n-well tap", MAIN, 7, (1.0, 2.0)),),
+        related=(Related("nearest n-well tap", MAIN, 7, (1.0, 2.0)),), device_kind="pdiff",
     )
 
 
