@@ -9,7 +9,7 @@ from functools import cached_property
 from latchwatch.analyzers.extraction.extract import Extraction, extract
 from latchwatch.analyzers.model.findings import Finding, Related, Severity
 from latchwatch.analyzers.layout.flatten import FlatLayout
-from latchwatch.analyzers.layout.provenance import Provenance, display_path, is_user_file, relative_frame
+from latchwatch.analyzers.layout.provenance import Provenance, is_user_file
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:
@@ -20,7 +20,6 @@ from latchwatch.analyzers.technology.model import Technology
 @dataclass(frozen=True)
 class CheckOptions:
     project_root: str | None = None  # frames under it are user frames
-    display_base: str | None = None  # paths inside it are shown relative to it
     top: str | None = None  # check this cell as the top
     exact_devices: bool = False  # compute every device's tap distance to 1 nm
 
@@ -33,7 +32,7 @@ class CheckContext:
 
     @cached_property
     def provenance(self) -> Provenance:
-        return Provenance(self.flat, self.options.project_root, self.options.display_base)
+        return Provenance(self.flat, self.options.project_root)
 
     @cached_property
     def extraction(self) -> Extraction:
@@ -47,7 +46,7 @@ class CheckContext:
 
     @property
     def script_path(self) -> str:
-        return display_path(self.outcome.script, self.options.display_base)
+        return self.outcome.script
 
     def related_shape(self, shape: int, message: str, location=None) -> Related:
         loc = self.provenance.locate_shape(shape)
@@ -77,7 +76,7 @@ class CheckContext:
     def run_finding(self, rule, message: str, frames=(), **fields) -> Finding:
         """A finding about the run itself, on its innermost user frame (or the script's first line)."""
         user = [f for f in frames if is_user_file(f.file, self.options.project_root)]
-        stack = tuple(relative_frame(f, self.options.display_base) for f in user)
+        stack = tuple(user)
         top = stack[0] if stack else None
         return Finding(
             rule=rule.id, severity=rule.severity, message=message,

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import os
 import sysconfig
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -37,23 +37,6 @@ def is_user_file(path: str, project_root: str | None) -> bool:
     return not norm.startswith(_LIBRARY_DIRS)
 
 
-def display_path(path: str | None, base: str | None) -> str | None:
-    """``path`` relative to ``base`` when inside it (DESIGN 5.2), else as given."""
-    if path is None or base is None:
-        return path
-    try:
-        rel = os.path.relpath(path, base)
-    except ValueError:
-        return path
-    return path if rel.startswith("..") else rel
-
-
-def relative_frame(frame: Frame, base: str | None) -> Frame:
-    """The frame with its file shown relative to ``base`` when inside it."""
-    rel = display_path(frame.file, base)
-    return frame if rel == frame.file else replace(frame, file=rel)
-
-
 @dataclass(frozen=True)
 class Anchor:
     frame: Frame | None  # the line a finding is published on
@@ -76,9 +59,9 @@ def _unique_rows(*columns: np.ndarray) -> np.ndarray:
 class Provenance:
     """Anchors and placements of the shapes of one flattened layout."""
 
-    def __init__(self, flat: FlatLayout, project_root: str | None, display_base: str | None):
+    def __init__(self, flat: FlatLayout, project_root: str | None):
         self.flat, self.captured = flat, flat.captured
-        self.root, self.base = project_root, display_base
+        self.root = project_root
         self._user = {}
         self._stack_cache: dict[tuple[int, bool], Anchor] = {}
         self._line_layers = self._layers_per_line(flat)
@@ -109,7 +92,7 @@ class Provenance:
                     if len(self._line_layers.get((f.file, f.line), ())) == 1:
                         pick = i
                         break
-            frames = tuple(relative_frame(f, self.base) for f in user[pick:])
+            frames = tuple(user[pick:])
             self._stack_cache[key] = Anchor(frames[0] if frames else None, frames)
         return self._stack_cache[key]
 
@@ -152,7 +135,7 @@ class Provenance:
                     file, line = p.file, p.line
                     break
         if file is None:
-            file = display_path(self.captured.source, self.base) or None
+            file = self.captured.source or None
         return {
             "file": file, "line": line,
             "end_line": (frame.end_line or frame.line) if frame else line,

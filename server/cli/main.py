@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import functools
 import difflib
 import os
 import sys
@@ -19,7 +20,7 @@ from latchwatch.analyzers.technology.model import TechnologyError
 from latchwatch.server.runs import batch as sweep
 from latchwatch.server.config import techfiles
 from latchwatch.server.runs.pipeline import CheckSettings, expand_paths
-from latchwatch.server.config.project import ConfigError, expand_includes, find_project_config
+from latchwatch.server.config.project import ConfigError, expand_includes, find_project_config, is_excluded
 from latchwatch.server.sandbox.runner import RunnerError
 from latchwatch.server.report.as_json import render_json
 from latchwatch.server.report.as_sarif import render_sarif
@@ -136,7 +137,7 @@ def _check(args) -> int:
     if missing:
         raise UsageError(f"{missing[0]}: no such file or folder")
     if args.paths:
-        excluded = _excluder(config)
+        excluded = functools.partial(is_excluded, config)
         paths = expand_paths(args.paths, excluded)
     elif config.include or config.sweeps:
         paths = expand_includes(config)
@@ -172,22 +173,6 @@ def _sweeps(args, config, paths) -> list:
         raise UsageError("--sweep: give exactly one script (.py) to call the function of")
     chosen = sweep.ad_hoc_sweep(paths[0], args.sweep, args.param)
     return [s for s in sweeps if s not in sweep.sweeps_for(paths[0], sweeps)] + [chosen]
-
-
-def _excluder(config):
-    if not config.exclude or config.root is None:
-        return lambda p: False
-    import fnmatch
-
-    def excluded(path: Path) -> bool:
-        try:
-            rel = path.resolve().relative_to(config.root.resolve()).as_posix()
-        except ValueError:
-            return False
-        return any(fnmatch.fnmatch(rel, pat) or rel.startswith(pat.rstrip("*").rstrip("/") + "/")
-                   for pat in config.exclude)
-
-    return excluded
 
 
 def _rules(args) -> int:

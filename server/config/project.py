@@ -229,17 +229,34 @@ def _parse(table: dict, path: Path, prefix: str, known_rules: set[str] | None) -
     return ProjectConfig(root=path.parent, source=path, **values)
 
 
-def _severities(read: _Reader, table) -> dict[str, Severity]:
+def severity_problem(table, known_rules) -> tuple[str, str, object] | None:
+    """The first wrong entry of a ``severity`` table as (key, expected, value), or None.
+
+    The one definition of a severity override table, for the project file and the
+    editor settings alike: rule id = "error" | "warning" | "info"."""
     if not isinstance(table, dict):
-        read.expect("severity", "a table of rule = severity", table)
-    levels = {}
+        return "severity", "a table of rule = severity", table
     for rule, level in table.items():
-        key = f"severity.{rule}"
-        read.rule_id(key, rule)
+        if known_rules is not None and rule not in known_rules:
+            return f"severity.{rule}", "a rule id (`latchwatch rules` lists them)", rule
         if not isinstance(level, str) or level.lower() not in ("error", "warning", "info"):
-            read.expect(key, "one of error, warning, info", level)
-        levels[rule] = Severity.parse(level)
-    return levels
+            return f"severity.{rule}", "one of error, warning, info", level
+    return None
+
+
+def severity_overrides(table) -> dict[str, Severity]:
+    """Rule id -> Severity of a table that ``severity_problem`` accepted."""
+    return {rule: Severity.parse(level) for rule, level in table.items()}
+
+
+def _severities(read: _Reader, table) -> dict[str, Severity]:
+    if isinstance(table, dict):
+        for rule in table:
+            read.rule_id(f"severity.{rule}", rule)  # with a did-you-mean hint
+    problem = severity_problem(table, read.known_rules)
+    if problem is not None:
+        read.expect(*problem)
+    return severity_overrides(table)
 
 
 def _sweeps(read: _Reader, entries) -> tuple[SweepSpec, ...]:
@@ -306,6 +323,19 @@ def _excluded(relative: str, excludes: list[re.Pattern]) -> bool:
     names = relative.split("/")
     prefixes = ["/".join(names[: n + 1]) for n in range(len(names))]
     return any(rx.match(prefix) for rx in excludes for prefix in prefixes)
+
+
+def is_excluded(config: ProjectConfig, path: Path) -> bool:
+    """The one include/exclude matcher: ``path`` (inside the project) matches an exclude
+    pattern, itself or through a folder above it. Used by the include walk and by paths
+    given on the command line alike."""
+    if not config.exclude or config.root is None:
+        return False
+    try:
+        relative = path.resolve().relative_to(config.root.resolve()).as_posix()
+    except ValueError:
+        return False
+    return _excluded(relative, [_pattern_regex(p.replace("\\", "/").strip("/")) for p in config.exclude])
 
 
 def expand_includes(config: ProjectConfig) -> list[Path]:

@@ -25,6 +25,7 @@ from pygls.uris import from_fs_path
 
 from latchwatch.analyzers.model.findings import Device, Finding, Severity
 from latchwatch.analyzers.electrical.shunt import si
+from latchwatch.server.report.model import corner_label
 
 SOURCE = "latchwatch"
 MAX_RELATED = 30  # per diagnostic; a loop over hundreds of shapes must not flood the editor
@@ -280,13 +281,6 @@ class RunFindings:
 def _varying(corners: list[dict]) -> list[str]:
     names = list(dict.fromkeys(name for corner in corners for name in corner))
     return [n for n in names if len({repr(c.get(n)) for c in corners}) > 1]
-
-
-def corner_label(corner: dict | None, names: list[str] | None = None) -> str:
-    """``fingers=16, w=0.5``, with only ``names`` when given (the parameters that vary)."""
-    corner = corner or {}
-    shown = [n for n in (names or corner) if n in corner] or list(corner)
-    return ", ".join(f"{n}={corner[n]!r}" for n in shown) or "its defaults"
 
 
 class _Families:

@@ -37,6 +37,7 @@ from latchwatch.server.lsp.documents import RunScheduler
 from latchwatch.server.lsp.settings import SECTION, DocumentSettings, EditorSettings, SettingsError, TechnologyCache, document_settings, merge, section_of, trust_root
 from latchwatch.server.config.project import ConfigError
 from latchwatch.server.sandbox.runner import RunnerError
+from latchwatch.server.runs.pipeline import read_text_or_none
 from latchwatch.server.runs.suppression import add_suppression
 from latchwatch.server.config.trust import TrustStoreError, is_trusted
 
@@ -278,7 +279,7 @@ def check_document(path: Path, text: str, settings: DocumentSettings, cancel: th
     if cancel.is_set():
         return None
     results = sweep.check_script(path, settings.check, sweeps, source=text, cancel=cancel,
-                                 read_source=lambda f: buffers.get(f) or _disk(f),
+                                 read_source=lambda f: buffers.get(f) or read_text_or_none(f),
                                  on_result=lambda result, done, total: on_run(done, total))
     if results is None or cancel.is_set():
         return None
@@ -293,13 +294,6 @@ def _labelled_output(result) -> str:
     return f"[{result.task.function}: {convert.corner_label(result.task.corner)}]\n{result.output.rstrip()}"
 
 
-def _disk(file: str) -> str | None:
-    try:
-        return Path(file).read_text(encoding="utf-8", errors="replace")
-    except OSError:
-        return None
-
-
 class LineReader:
     """Source lines for ranges: open buffers first, then the files on disk."""
 
@@ -309,7 +303,7 @@ class LineReader:
     def __call__(self, file: str, line: int) -> str | None:
         if file not in self.lines:
             text = self.buffers.get(file)
-            self.lines[file] = (text if text is not None else _disk(file) or "").splitlines()
+            self.lines[file] = (text if text is not None else read_text_or_none(file) or "").splitlines()
         lines = self.lines[file]
         return lines[line - 1] if 0 < line <= len(lines) else None
 

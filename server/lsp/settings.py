@@ -26,7 +26,7 @@ from latchwatch.analyzers.technology.model import Technology
 
 from latchwatch.server.config import techfiles
 from latchwatch.server.runs.pipeline import CheckSettings
-from latchwatch.server.config.project import ConfigError, ProjectConfig, find_project_config
+from latchwatch.server.config.project import ConfigError, ProjectConfig, find_project_config, severity_overrides, severity_problem
 
 SECTION = "latchwatch"
 RUN_MODES = ("change", "save")
@@ -94,11 +94,10 @@ def merge(base: EditorSettings, raw: dict, allow_trust: bool) -> tuple[EditorSet
             else:
                 bad(key, "a list of rule ids (`latchwatch rules` lists them)", value)
         elif key == "severity":
-            levels = _severities(value)
-            if levels is None:
-                bad(key, "a table of rule id = error|warning|info", value)
+            if severity_problem(value, RULES_BY_ID) is None:
+                values["severity"] = severity_overrides(value)
             else:
-                values["severity"] = levels
+                bad(key, "a table of rule id = error|warning|info", value)
         elif key == "requireSandbox":
             if isinstance(value, bool):
                 values["require_sandbox"] = value
@@ -112,17 +111,6 @@ def merge(base: EditorSettings, raw: dict, allow_trust: bool) -> tuple[EditorSet
             else:
                 bad(key, "a list of absolute folder paths", value)
     return replace(base, **values), problems
-
-
-def _severities(value) -> dict[str, Severity] | None:
-    if not isinstance(value, dict):
-        return None
-    levels = {}
-    for rule, level in value.items():
-        if rule not in RULES_BY_ID or not isinstance(level, str) or level.lower() not in ("error", "warning", "info"):
-            return None
-        levels[rule] = Severity.parse(level)
-    return levels
 
 
 @dataclass(frozen=True)

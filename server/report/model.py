@@ -75,3 +75,10 @@ def for_display(report: Report, base: Path | None = None) -> Report:
     if report.devices is not None:
         devices = tuple(replace(d, file=display_path(d.file, base)) for d in report.devices)
     return replace(report, runs=runs, findings=tuple(findings), devices=devices)
+
+
+def corner_label(corner: dict | None, names: list[str] | None = None) -> str:
+    """``fingers=16, w=0.5``, with only ``names`` when given (the parameters that vary)."""
+    corner = corner or {}
+    shown = [n for n in (names or corner) if n in corner] or list(corner)
+    return ", ".join(f"{n}={corner[n]!r}" for n in shown) or "its defaults"

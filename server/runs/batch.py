@@ -36,7 +36,6 @@ from __future__ import annotations
 
 import ast
 import itertools
-import os
 import random
 import re
 import sys
@@ -49,9 +48,10 @@ from typing import Callable, Iterable, TextIO
 from latchwatch.analyzers.model.findings import Device, Finding
 from latchwatch.analyzers.rules import RULES
 
-from latchwatch.server.runs.pipeline import CheckSettings, check_run, run_path
+from latchwatch.server.sandbox.hosts import available_cpus
+from latchwatch.server.runs.pipeline import CheckSettings, check_run, read_text_or_none, run_path
 from latchwatch.server.config.project import ProjectConfig
-from latchwatch.server.report.model import Report, RunSummary
+from latchwatch.server.report.model import Report, RunSummary, corner_label
 from latchwatch.server.sandbox.runner import run_script
 
 CORNER_SEED = 7
@@ -233,10 +233,6 @@ def sample_corners(params: dict[str, list], count: int | None, seed: int = CORNE
     return [{n: params[n][i] for n, i in zip(names, index)} for index in chosen]
 
 
-def corner_label(corner: dict | None) -> str:
-    return ", ".join(f"{name}={value!r}" for name, value in (corner or {}).items())
-
-
 def sweep_tasks(sweep: Sweep, count: int | None = None) -> list[Task]:
     corners = sample_corners(sweep.params, count) if sweep.params else [{}]
     return [Task(sweep.script, sweep.function, corner) for corner in corners]
@@ -272,13 +268,6 @@ class _Either:
 
     def is_set(self) -> bool:
         return self.own.is_set() or (self.outer is not None and self.outer.is_set())
-
-
-def default_jobs() -> int:
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except (AttributeError, OSError):
-        return max(1, os.cpu_count() or 1)
 
 
 def run_task(task: Task, settings: CheckSettings, source: str | None = None, cancel=None,
@@ -318,13 +307,6 @@ def _kept(result: RunResult) -> bool:
     return result.status != "ok" or result.cells > 0
 
 
-def _read_text(path: Path) -> str | None:
-    try:
-        return path.read_text(encoding="utf-8", errors="replace")
-    except OSError:
-        return None
-
-
 @dataclass
 class _Plan:
     """Tasks per checked script, in report order."""
@@ -344,7 +326,7 @@ def execute(plan: _Plan, settings: CheckSettings, *, jobs: int | None = None, ca
     previews: dict[int, int] = {}  # script index -> number of preview tasks started
     total = sum(len(t) for t in plan.tasks)
     done = 0
-    with ThreadPoolExecutor(max_workers=max(1, jobs or default_jobs()), thread_name_prefix="latchwatch-corner") as pool:
+    with ThreadPoolExecutor(max_workers=max(1, jobs or available_cpus()), thread_name_prefix="latchwatch-corner") as pool:
         def submit(key: tuple, task: Task):
             source = plan.sources[key[0]]
             return pool.submit(run_task, task, settings, source, either, read_source)
@@ -357,7 +339,7 @@ def execute(plan: _Plan, settings: CheckSettings, *, jobs: int | None = None, ca
                     key = pending.pop(future)
                     result = results[key] = future.result()
                     done += 1
-                    names = _wants_preview(result, plan.sources[key[0]] or _read_text(result.task.path)) \
+                    names = _wants_preview(result, plan.sources[key[0]] or read_text_or_none(result.task.path)) \
                         if result is not None else []
                     previews[key[0]] = len(names) if names else previews.get(key[0], 0)
                     total += len(names)

@@ -77,7 +77,7 @@ def check_run(outcome: RunOutcome, settings: CheckSettings, read_source=None) ->
     )
     result = check_outcome(outcome, settings.tech, options, rules=rules, severity=settings.severity,
                            want_devices=settings.devices)
-    findings = apply_suppressions(result.findings, read_source or _read_file)
+    findings = apply_suppressions(result.findings, read_source or read_text_or_none)
     summary = RunSummary(script=outcome.script, corner=outcome.corner, status=outcome.status,
                          seconds=round(outcome.seconds, 3), cells=result.cells, shapes=result.shapes,
                          sandbox=outcome.sandbox)
@@ -99,7 +99,8 @@ def check_paths(paths: list[Path], settings: CheckSettings, progress: Callable[[
                   devices=tuple(devices) if settings.devices else None, rules=RULES)
 
 
-def _read_file(file: str) -> str | None:
+def read_text_or_none(file: str | Path) -> str | None:
+    """The file's text (undecodable bytes replaced), or None when it cannot be read."""
     try:
         return Path(file).read_text(encoding="utf-8", errors="replace")
     except OSError:

@@ -168,12 +168,19 @@ class HostedJob:
         return self._ended and self.returncode is None
 
 
+def available_cpus() -> int:
+    """The CPUs this process may run on (its affinity), at least 1."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)
+
+
 class HostPool:
     """Idle hosts per (key, folders to read); ``take`` starts one when none is idle."""
 
     def __init__(self, per_key: int | None = None, keys: int = 2):
-        self.per_key = per_key or max(1, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity")
-                                      else os.cpu_count() or 1)
+        self.per_key = per_key or available_cpus()
         self.keys = keys
         self._idle: OrderedDict[tuple, list[Host]] = OrderedDict()
         self._lock = threading.Lock()

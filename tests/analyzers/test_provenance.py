@@ -3,7 +3,7 @@
 from builders import ACTIVE, NWELL, PPLUS, CellBuilder, layout
 from latchwatch.analyzers.model.findings import Frame
 from latchwatch.analyzers.layout.flatten import flatten
-from latchwatch.analyzers.layout.provenance import Provenance, display_path, is_user_file
+from latchwatch.analyzers.layout.provenance import Provenance, is_user_file
 
 F = "/proj/cell.py"
 frames = [
@@ -20,7 +20,7 @@ stacks = [(0, 1, 4), (0, 2, 4), (0, 3, 4), (5, 0, 1, 4)]
 def _prov():
     c = CellBuilder("TOP").rect(ACTIVE, 0, 0, 1, 1, stack=0).rect(PPLUS, 0, 0, 1, 1, stack=1)
     c.rect(NWELL, 0, 0, 1, 1, stack=2).rect(ACTIVE, 2, 0, 3, 1, stack=3)
-    return Provenance(flatten(layout(c, frames=frames, stacks=stacks), 0), "/proj", None)
+    return Provenance(flatten(layout(c, frames=frames, stacks=stacks), 0), "/proj")
 
 
 def test_generic_helper_line_is_skipped_for_its_caller():
@@ -37,17 +37,12 @@ def test_library_frames_are_not_user_frames():
     assert is_user_file("/proj/a/b.py", "/proj") and not is_user_file("/other/b.py", "/proj")
 
 
-def test_display_path():
-    assert display_path("/proj/a/b.py", "/proj") == "a/b.py"
-    assert display_path("/elsewhere/b.py", "/proj") == "/elsewhere/b.py"
-
-
 def test_placements_name_instances_with_row_and_column():
     pframes = [Frame(F, 40, "<module>")]
     unit = CellBuilder("UNIT").rect(ACTIVE, 0, 0, 1, 1)
     top = CellBuilder("ROW").ref(0, columns=4, rows=2, v1=(5, 0), v2=(0, 5), stack=0)
     flat = flatten(layout(unit, top, frames=pframes, stacks=[(0,)]), 1)
-    p = Provenance(flat, "/proj", None)
+    p = Provenance(flat, "/proj")
     last = len(flat.polygons) - 1
     (placement,) = p.placements(int(flat.instance[last]))
     assert (placement.line, placement.cell, placement.instance) == (40, "ROW", "UNIT[3,1]")

@@ -31,6 +31,7 @@ def check_seconds(layout_path: Path, with_shunt: bool, repeat: int = 1) -> tuple
     from latchwatch.analyzers.rules import RULES
     from latchwatch.analyzers.model.run_outcome import RunOutcome
     from latchwatch.server.config.techfiles import load_technology
+    from latchwatch.server.sandbox.runner import read_layout_file
 
     tech = load_technology("demo")
     captured = read_layout_file(layout_path, "gds").layout
@@ -53,6 +54,7 @@ def phases(layout_path: Path) -> dict:
     from latchwatch.analyzers.rules import RULES
     from latchwatch.analyzers.model.run_outcome import RunOutcome
     from latchwatch.server.config.techfiles import load_technology
+    from latchwatch.server.sandbox.runner import read_layout_file
 
     tech = load_technology("demo")
     captured = read_layout_file(layout_path, "gds").layout

@@ -30,6 +30,7 @@ from test_sweep import GENERATOR  # noqa: E402  (the cell of the sweep tests)
 
 from latchwatch.server.sandbox import hosts
 from latchwatch.server.runs import batch as sweep
+from latchwatch.server.sandbox.hosts import available_cpus
 from latchwatch.server.config import techfiles
 from latchwatch.server.runs.pipeline import CheckSettings
 
@@ -60,7 +61,7 @@ def main() -> None:
     parser.add_argument("--jobs", type=int, action="append")
     parser.add_argument("--repeat", type=int, default=3)
     args = parser.parse_args()
-    jobs_list = args.jobs or sorted({1, sweep.default_jobs()})
+    jobs_list = args.jobs or sorted({1, available_cpus()})
     print(f"{args.corners} corners of finger_array, {os.cpu_count()} cores, best and median of {args.repeat}; "
           f"load average {os.getloadavg()[0]:.2f}")
     print(f"{'jobs':>4}  {'hosts':>5}  {'best s':>7}  {'median s':>8}  {'corners/s':>9}  {'in children s':>13}  "

@@ -30,7 +30,7 @@ def tap(value, corner, line=4):
                    message=f"P+ diffusion is {value:.2f} um from the nearest n-well tap (limit 20.00 um)",
                    file=GEN, line=line, column=5, end_column=46, cell="F", location=(value, 0.0),
                    bbox=(0.0, 0.0, value, 2.0), value=value, limit=20.0, unit="um", corner=corner,
-                   stack=(Frame(GEN, line, "finger_array", 5, line, 46),))
+                   stack=(Frame(GEN, line, "finger_array", 5, line, 46),), device_kind="pdiff")
 
 
 def device(distance, line=4):

@@ -10,7 +10,7 @@ import textwrap
 
 from lsprotocol import types
 
-from test_lsp import capabilities, env, session, trusted, wait_until  # noqa: F401  (fixtures)
+from lsp_client import capabilities, trusted, wait_until
 from builders import DIFFUSION_LINE, GENERATOR, RAISE_LINE
 
 SWEEP = textwrap.dedent('''\

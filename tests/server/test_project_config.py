@@ -233,3 +233,19 @@ def test_include_ending_in_double_star_means_every_file_below(tmp_path):
         write(tmp_path / name, "")
     config = ProjectConfig(root=tmp_path, include=("lib/**",))
     assert expand_includes(config) == [tmp_path / "lib" / "a.py", tmp_path / "lib" / "x" / "b.gds"]
+
+
+def test_the_command_line_and_the_include_walk_exclude_the_same_files(tmp_path):
+    """One matcher: ``*`` stays within a folder name in both (glob semantics), ``**`` spans folders."""
+    from latchwatch.server.config.project import expand_includes, is_excluded
+
+    for name in ("gen/a.py", "gen/sub/x.py", "keep/b.py", "deep/one/two/c.py"):
+        (tmp_path / name).parent.mkdir(parents=True, exist_ok=True)
+        (tmp_path / name).write_text("")
+    (tmp_path / "latchwatch.toml").write_text(
+        'tech = "demo"\ninclude = ["**/*.py"]\nexclude = ["gen/*.py", "deep/**"]\n')
+    config = load_project_config(tmp_path / "latchwatch.toml")
+    walked = {p.relative_to(tmp_path).as_posix() for p in expand_includes(config)}
+    assert walked == {"gen/sub/x.py", "keep/b.py"}
+    for name in ("gen/a.py", "gen/sub/x.py", "keep/b.py", "deep/one/two/c.py"):
+        assert is_excluded(config, tmp_path / name) == (name not in walked), name
