@@ -32,7 +32,6 @@ from latchwatch.analyzers.technology.model import Technology, is_conductor_role
 
 # Diffusion kinds of a conductor (NOT_DIFFUSION for poly and metals).
 NDIFF, PDIFF, NTAP, PTAP, NOT_DIFFUSION = 0, 1, 2, 3, -1
-DIFFUSION_KINDS = ("ndiff", "pdiff", "ntap", "ptap")
 _IMPLANT = np.array([0, 1, 0, 1])  # N+ or P+ per diffusion kind
 
 

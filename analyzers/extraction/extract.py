@@ -87,11 +87,6 @@ class Extraction:
     pwells: np.ndarray = field(default_factory=lambda: np.empty(0, dtype=object))  # isolated p-wells
     pwell_shapes: list[np.ndarray] = field(default_factory=list)  # drawn shapes of each
 
-    @property
-    def device_count(self) -> int:
-        return len(self.pdiff) + len(self.ndiff)
-
-
 def _shapes(flat: FlatLayout, tech: Technology, role: str) -> tuple[np.ndarray, np.ndarray]:
     idx = flat.on_layer(tech.layer(role))
     return flat.polygons[idx], idx

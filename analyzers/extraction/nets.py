@@ -22,12 +22,9 @@ import numpy as np
 import shapely
 
 from latchwatch.analyzers.layout import geometry as g
-from latchwatch.analyzers.extraction.connectivity import NDIFF, NTAP, PDIFF, PTAP, Connectivity, connect
+from latchwatch.analyzers.extraction.connectivity import NDIFF, PDIFF, Connectivity, connect
 
 DEVICE_CODES = {"n": NDIFF, "p": PDIFF}
-TAP_CODES = {"n": NTAP, "p": PTAP}
-
-
 def matches(text: str, patterns) -> bool:
     return any(fnmatchcase(text, p) for p in patterns)
 

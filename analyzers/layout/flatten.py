@@ -70,10 +70,6 @@ class FlatLayout:
             return np.zeros(0, dtype=np.int64)
         return np.flatnonzero((self.layer == spec[0]) & (self.datatype == spec[1]))
 
-    def cell_of(self, shape: int) -> str:
-        return self.captured.cells[self.instances.cell[self.instance[shape]]].name
-
-
 def _reference_matrices(rotation, magnification, x_reflection):
     cos, sin = np.cos(rotation) * magnification, np.sin(rotation) * magnification
     flip = np.where(x_reflection, -1.0, 1.0)

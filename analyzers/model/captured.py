@@ -14,9 +14,6 @@ import numpy as np
 
 from latchwatch.analyzers.model.findings import Frame
 
-NO_STACK = -1
-
-
 def _i32(n=0):
     return np.zeros(n, dtype=np.int32)
 

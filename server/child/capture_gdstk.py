@@ -177,8 +177,3 @@ def install(recorder):
     gdstk.Cell = Cell
     gdstk.Library = Library
 
-
-def uninstall():
-    if gdstk is not None and BaseCell is not None:
-        gdstk.Cell = BaseCell
-        gdstk.Library = BaseLibrary

@@ -10,11 +10,10 @@ from typing import Callable, Iterable
 
 from latchwatch.analyzers.check import CheckOptions, check_outcome, select_rules
 from latchwatch.analyzers.model.findings import Finding, Severity
-from latchwatch.analyzers.rules import RULES
 from latchwatch.analyzers.model.run_outcome import RunOutcome
 from latchwatch.analyzers.technology.model import Technology
 
-from latchwatch.server.report.model import Report, RunSummary
+from latchwatch.server.report.model import RunSummary
 from latchwatch.server.sandbox.runner import read_layout_file, run_script
 from latchwatch.server.runs.suppression import apply_suppressions
 
@@ -82,21 +81,6 @@ def check_run(outcome: RunOutcome, settings: CheckSettings, read_source=None) ->
                          seconds=round(outcome.seconds, 3), cells=result.cells, shapes=result.shapes,
                          sandbox=outcome.sandbox)
     return findings, result.devices or [], summary
-
-
-def check_paths(paths: list[Path], settings: CheckSettings, progress: Callable[[str], None] = lambda m: None) -> Report:
-    findings, devices, runs = [], [], []
-    for path in paths:
-        progress(f"checking {path}")
-        outcome = run_path(path, settings)
-        f, d, summary = check_run(outcome, settings)
-        findings.extend(f)
-        devices.extend(d)
-        runs.append(summary)
-        if outcome.output:
-            progress(f"{path}: script output:\n{outcome.output.rstrip()}")
-    return Report(technology=settings.tech.name, runs=tuple(runs), findings=tuple(findings),
-                  devices=tuple(devices) if settings.devices else None, rules=RULES)
 
 
 def read_text_or_none(file: str | Path) -> str | None:
