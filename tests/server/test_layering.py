@@ -75,12 +75,12 @@ def test_sandbox_and_child_know_no_editor_or_command_line(room):
 
 def test_the_child_imports_no_latchwatch():
     """Its own modules only by relative import: under ``-I`` in a foreign interpreter it is latchwatch_child."""
-    absolute = sorted(f"{path.name} imports {node.module or alias.name}"
+    absolute = sorted(f"{path.name} imports {getattr(node, 'module', None) or alias.name}"
                       for module, path in SOURCES.items() if module.startswith("latchwatch.server.child")
                       for node in ast.walk(ast.parse(path.read_text(encoding="utf-8")))
                       if isinstance(node, (ast.Import, ast.ImportFrom)) and not getattr(node, "level", 0)
                       for alias in node.names
-                      if (node.module or alias.name).split(".")[0] == "latchwatch")
+                      if (getattr(node, "module", None) or alias.name).split(".")[0] == "latchwatch")
     assert absolute == []
 
 
