@@ -18,6 +18,8 @@ from latchwatch.analyzers.rules import RULES, RULES_BY_ID
 from latchwatch.analyzers.technology.model import TechnologyError
 
 from latchwatch.server.runs import batch as sweep
+
+from latchwatch.server.runs import plan
 from latchwatch.server.config import techfiles
 from latchwatch.server.runs.pipeline import CheckSettings, expand_paths
 from latchwatch.server.config.project import ConfigError, expand_includes, find_project_config, is_excluded
@@ -164,15 +166,15 @@ def _sweeps(args, config, paths) -> list:
         raise UsageError(f"--jobs: expected at least 1, got {args.jobs}")
     if args.corners is not None and args.corners < 2:
         raise UsageError(f"--corners: expected at least 2 (the lowest and the highest corner), got {args.corners}")
-    sweeps = list(sweep.configured_sweeps(config))
+    sweeps = list(plan.configured_sweeps(config))
     if args.sweep is None:
         if args.param:
             raise UsageError("--param needs --sweep FUNCTION")
         return sweeps
     if len(paths) != 1 or paths[0].suffix.lower() != ".py":
         raise UsageError("--sweep: give exactly one script (.py) to call the function of")
-    chosen = sweep.ad_hoc_sweep(paths[0], args.sweep, args.param)
-    return [s for s in sweeps if s not in sweep.sweeps_for(paths[0], sweeps)] + [chosen]
+    chosen = plan.ad_hoc_sweep(paths[0], args.sweep, args.param)
+    return [s for s in sweeps if s not in plan.sweeps_for(paths[0], sweeps)] + [chosen]
 
 
 def _rules(args) -> int:
@@ -227,7 +229,7 @@ def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     try:
         return COMMANDS[args.command](args)
-    except (UsageError, ConfigError, TechnologyError, TopCellError, HierarchyError, RunnerError, sweep.SweepError) as exc:
+    except (UsageError, ConfigError, TechnologyError, TopCellError, HierarchyError, RunnerError, plan.SweepError) as exc:
         print(f"latchwatch: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:

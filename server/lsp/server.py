@@ -33,6 +33,7 @@ from latchwatch.analyzers.technology.model import TechnologyError
 
 from latchwatch.server.lsp import convert as convert
 from latchwatch.server.runs import batch as sweep
+from latchwatch.server.runs import plan
 from latchwatch.server.lsp.documents import RunScheduler
 from latchwatch.server.lsp.settings import SECTION, DocumentSettings, EditorSettings, SettingsError, TechnologyCache, document_settings, merge, section_of, trust_root
 from latchwatch.server.config.project import ConfigError
@@ -198,12 +199,12 @@ class LatchwatchServer(LanguageServer):
             if not is_trusted(path, editor.trusted_folders):
                 return self.publish_notice(uri, version, untrusted_message(trust_root(path, folder)), code="trust")
             settings = document_settings(path, editor, folder, self.techs)
-            sweeps = sweep.configured_sweeps(settings.project, only=path)
-        except (ConfigError, TechnologyError, SettingsError, TrustStoreError, sweep.SweepError) as error:
+            sweeps = plan.configured_sweeps(settings.project, only=path)
+        except (ConfigError, TechnologyError, SettingsError, TrustStoreError, plan.SweepError) as error:
             return self.publish_notice(uri, version, str(error), types.DiagnosticSeverity.Error, "configuration")
         buffers = {to_fs_path(d.uri): d.source for d in self.workspace.text_documents.values()}
         async with Progress(self, f"running {path.name}") as progress:
-            planned = len(sweep.plan_script(path, sweeps))
+            planned = len(plan.plan_script(path, sweeps))
             progress.counts = (0, planned) if planned > 1 else None
             done = await asyncio.get_running_loop().run_in_executor(
                 self.runs, check_document, path, text, settings, cancel, buffers, sweeps, progress.runs_done)

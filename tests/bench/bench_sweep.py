@@ -30,6 +30,7 @@ from test_sweep import GENERATOR  # noqa: E402  (the cell of the sweep tests)
 
 from latchwatch.server.sandbox import hosts
 from latchwatch.server.runs import batch as sweep
+from latchwatch.server.runs import plan
 from latchwatch.server.sandbox.hosts import available_cpus
 from latchwatch.server.config import techfiles
 from latchwatch.server.runs.pipeline import CheckSettings
@@ -45,7 +46,7 @@ def one_sweep(folder: Path, count: int, jobs: int, cold: bool = True) -> tuple[f
     if cold:
         hosts.HOSTS.close()
     settings = CheckSettings(tech=techfiles.load_technology("demo", folder), timeout=30, project_root=folder)
-    chosen = sweep.ad_hoc_sweep(folder / "fingers.py", "finger_array", corner_params(count))
+    chosen = plan.ad_hoc_sweep(folder / "fingers.py", "finger_array", corner_params(count))
     started = time.perf_counter()
     report = sweep.check_all([folder / "fingers.py"], settings, [chosen], jobs=jobs)
     wall = time.perf_counter() - started

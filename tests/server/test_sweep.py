@@ -25,6 +25,8 @@ import pytest
 from builders import DIFFUSION_LINE, GENERATOR, RAISE_LINE
 
 from latchwatch.server.runs import batch as sweep
+
+from latchwatch.server.runs import plan
 from latchwatch.server.config import techfiles
 from latchwatch.server.runs.pipeline import CheckSettings
 from latchwatch.server.config.project import ProjectConfig, SweepSpec, load_project_config
@@ -66,59 +68,59 @@ def _comparable(report, base):
     ("nan", "nan"), (" 4 ", 4), ("0x10", "0x10"),
 ])
 def test_param_values_take_the_documented_types(text, value):
-    parsed = sweep.parse_value(text)
+    parsed = plan.parse_value(text)
     assert parsed == value and type(parsed) is type(value)
 
 
 def test_param_text_and_its_errors():
-    assert sweep.parse_param("fingers=1,4,16") == ("fingers", [1, 4, 16])
-    assert sweep.parse_param("w=0.5,5") == ("w", [0.5, 5])
+    assert plan.parse_param("fingers=1,4,16") == ("fingers", [1, 4, 16])
+    assert plan.parse_param("w=0.5,5") == ("w", [0.5, 5])
     for bad, words in (("fingers", "NAME=V1,V2"), ("2x=1", "identifier"), ("w=1,,2", "empty value"), ("w=", "empty")):
-        with pytest.raises(sweep.SweepError, match=words):
-            sweep.parse_param(bad)
-    with pytest.raises(sweep.SweepError, match="given twice"):
-        sweep.ad_hoc_sweep(Path("g.py"), "f", ["w=1", "w=2"])
+        with pytest.raises(plan.SweepError, match=words):
+            plan.parse_param(bad)
+    with pytest.raises(plan.SweepError, match="given twice"):
+        plan.ad_hoc_sweep(Path("g.py"), "f", ["w=1", "w=2"])
 
 
 def test_param_commas_inside_quotes_belong_to_the_value():
-    assert sweep.parse_param("label='a,b',c") == ("label", ["a,b", "c"])
-    assert sweep.parse_param('label="x, y", \'1,2\'') == ("label", ["x, y", "1,2"])
-    assert sweep.parse_param("note=it's,fine") == ("note", ["it's", "fine"])  # a quote opens only a value
-    with pytest.raises(sweep.SweepError, match="not closed"):
-        sweep.parse_param("label='a,b")
+    assert plan.parse_param("label='a,b',c") == ("label", ["a,b", "c"])
+    assert plan.parse_param('label="x, y", \'1,2\'') == ("label", ["x, y", "1,2"])
+    assert plan.parse_param("note=it's,fine") == ("note", ["it's", "fine"])  # a quote opens only a value
+    with pytest.raises(plan.SweepError, match="not closed"):
+        plan.parse_param("label='a,b")
 
 
 def test_the_grid_varies_the_last_parameter_fastest():
-    assert sweep.corner_grid({"fingers": [1, 4], "w": [0.5, 5.0]}) == [
+    assert plan.corner_grid({"fingers": [1, 4], "w": [0.5, 5.0]}) == [
         {"fingers": 1, "w": 0.5}, {"fingers": 1, "w": 5.0}, {"fingers": 4, "w": 0.5}, {"fingers": 4, "w": 5.0}]
 
 
 def test_sampling_keeps_every_minimum_and_maximum_and_is_repeatable():
     params = {"fingers": [4, 1, 16, 8, 2], "w": [0.5, 5.0, 2.0], "mode": ["slow", "mid", "fast"]}
     for count in range(2, 12):
-        sample = sweep.sample_corners(params, count)
+        sample = plan.sample_corners(params, count)
         assert len(sample) == count and len({json.dumps(c) for c in sample}) == count
         assert {"fingers": 1, "w": 0.5, "mode": "slow"} in sample  # the lowest corner
         assert {"fingers": 16, "w": 5.0, "mode": "fast"} in sample  # the highest: strings by their order
-        assert sample == sweep.sample_corners(params, count)
-        grid = sweep.corner_grid(params)
+        assert sample == plan.sample_corners(params, count)
+        grid = plan.corner_grid(params)
         assert [grid.index(c) for c in sample] == sorted(grid.index(c) for c in sample)
     # After the two ends come the other combinations of extremes (2 x 2 x 2 - 2 = 6 of them).
     extremes = {"fingers": (1, 16), "w": (0.5, 5.0), "mode": ("slow", "fast")}
-    eight = sweep.sample_corners(params, 8)
+    eight = plan.sample_corners(params, 8)
     assert all(c[name] in values for c in eight for name, values in extremes.items())
-    assert sweep.sample_corners(params, 100) == sweep.corner_grid(params)
-    with pytest.raises(sweep.SweepError, match="at least 2"):
-        sweep.sample_corners(params, 1)
+    assert plan.sample_corners(params, 100) == plan.corner_grid(params)
+    with pytest.raises(plan.SweepError, match="at least 2"):
+        plan.sample_corners(params, 1)
 
 
 def test_tasks_of_a_sweep_without_params_call_the_defaults():
-    tasks = sweep.sweep_tasks(sweep.Sweep(Path("g.py"), "f", {}))
+    tasks = plan.sweep_tasks(plan.Sweep(Path("g.py"), "f", {}))
     assert [(t.function, t.corner) for t in tasks] == [("f", {})]
 
 
 def test_preview_candidates_are_public_functions_callable_without_arguments():
-    names = sweep.preview_functions(GENERATOR + textwrap.dedent('''
+    names = plan.preview_functions(GENERATOR + textwrap.dedent('''
         def _private(n=1):
             return None
 
@@ -132,24 +134,24 @@ def test_preview_candidates_are_public_functions_callable_without_arguments():
             return None
         '''))
     assert names == ["finger_array", "pitch_of", "wide_pair", "library"]
-    assert sweep.preview_functions("def broken(:\n") == []
+    assert plan.preview_functions("def broken(:\n") == []
 
 
 def test_configured_sweeps_check_their_values_and_script(project):
     config = ProjectConfig(root=project, source=project / "latchwatch.toml",
                            sweeps=(SweepSpec(str(project / "fingers.py"), "finger_array", {"fingers": [1, 4]}),))
-    (found,) = sweep.configured_sweeps(config)
+    (found,) = plan.configured_sweeps(config)
     assert found.params == {"fingers": [1, 4]} and found.where.endswith("latchwatch.toml: sweep[1]")
     import datetime
 
     dated = replace(config, sweeps=(SweepSpec(str(project / "fingers.py"), "f", {"when": [datetime.date(2024, 1, 1)]}),))
-    with pytest.raises(sweep.SweepError, match=r"sweep\[1\]\.params\.when: expected numbers"):
-        sweep.configured_sweeps(dated)
+    with pytest.raises(plan.SweepError, match=r"sweep\[1\]\.params\.when: expected numbers"):
+        plan.configured_sweeps(dated)
     missing = replace(config, sweeps=config.sweeps + (SweepSpec(str(project / "nope.py"), "f", {"n": [1]}),))
-    with pytest.raises(sweep.SweepError, match=r"sweep\[2\]\.script: no such file"):
-        sweep.configured_sweeps(missing)
+    with pytest.raises(plan.SweepError, match=r"sweep\[2\]\.script: no such file"):
+        plan.configured_sweeps(missing)
     # The editor asks only for the open script's sweeps; another sweep's fault does not stop it.
-    assert [s.function for s in sweep.configured_sweeps(missing, only=project / "fingers.py")] == ["finger_array"]
+    assert [s.function for s in plan.configured_sweeps(missing, only=project / "fingers.py")] == ["finger_array"]
 
 
 def test_progress_bar_only_on_a_terminal():
@@ -173,7 +175,7 @@ def test_progress_bar_only_on_a_terminal():
 # --- end to end, through real children -----------------------------------------------
 
 def test_only_the_high_finger_count_breaks(project, settings):
-    chosen = sweep.ad_hoc_sweep(project / "fingers.py", "finger_array", ["fingers=1,4,16", "w=0.5,5"])
+    chosen = plan.ad_hoc_sweep(project / "fingers.py", "finger_array", ["fingers=1,4,16", "w=0.5,5"])
     report = sweep.check_all([project / "fingers.py"], settings, [chosen], jobs=2)
     document = report_to_dict(report, base=project)
     assert [(r["corner"], r["status"], r["cells"]) for r in document["runs"]] == [
@@ -185,7 +187,7 @@ def test_only_the_high_finger_count_breaks(project, settings):
 
 
 def test_a_corner_that_raises_is_its_own_script_error(project, settings):
-    chosen = sweep.ad_hoc_sweep(project / "fingers.py", "finger_array", ["fingers=0,4,16"])
+    chosen = plan.ad_hoc_sweep(project / "fingers.py", "finger_array", ["fingers=0,4,16"])
     report = report_to_dict(sweep.check_all([project / "fingers.py"], settings, [chosen], jobs=2), base=project)
     assert [(r["corner"], r["status"]) for r in report["runs"]] == [
         ({"fingers": 0}, "error"), ({"fingers": 4}, "ok"), ({"fingers": 16}, "ok")]
@@ -195,7 +197,7 @@ def test_a_corner_that_raises_is_its_own_script_error(project, settings):
 
 
 def test_parallel_runs_give_the_serial_report(project, settings):
-    chosen = sweep.ad_hoc_sweep(project / "fingers.py", "finger_array", ["fingers=0,1,8,14,16", "w=0.5,5"])
+    chosen = plan.ad_hoc_sweep(project / "fingers.py", "finger_array", ["fingers=0,1,8,14,16", "w=0.5,5"])
     paths = [project / "fingers.py"]
     serial = sweep.check_all(paths, settings, [chosen], jobs=1)
     parallel = sweep.check_all(paths, settings, [chosen], jobs=4)
@@ -221,7 +223,7 @@ def test_cancelled_sweep_returns_nothing(project, settings):
 
     cancel = threading.Event()
     cancel.set()
-    chosen = sweep.ad_hoc_sweep(project / "fingers.py", "finger_array", ["fingers=1,4"])
+    chosen = plan.ad_hoc_sweep(project / "fingers.py", "finger_array", ["fingers=1,4"])
     assert sweep.check_script(project / "fingers.py", settings, [chosen], cancel=cancel) is None
 
 
