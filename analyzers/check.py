@@ -3,19 +3,21 @@
 from __future__ import annotations
 
 import os
+from collections.abc import Iterable
 from dataclasses import dataclass, replace
-from typing import Iterable
+from typing import TYPE_CHECKING
 
 from latchwatch.analyzers.context import CheckContext, CheckOptions
 from latchwatch.analyzers.extraction.devices import device_table
-from latchwatch.analyzers.model.findings import Device, Finding, Severity
 from latchwatch.analyzers.layout.flatten import flatten
+from latchwatch.analyzers.model.findings import Device, Finding, Severity
 from latchwatch.analyzers.rules import RULES, Rule, Scope
-from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:
     from latchwatch.analyzers.model.run_outcome import RunOutcome
 from latchwatch.analyzers.technology.model import Technology
+
+DEFAULT_OPTIONS = CheckOptions()
 
 
 class TopCellError(ValueError):
@@ -52,7 +54,7 @@ def top_cells(outcome: RunOutcome, top: str | None) -> list[int]:
     return [index]
 
 
-def check_outcome(outcome: RunOutcome, tech: Technology, options: CheckOptions = CheckOptions(), *,
+def check_outcome(outcome: RunOutcome, tech: Technology, options: CheckOptions = DEFAULT_OPTIONS, *,
                   rules: tuple[Rule, ...] = RULES, severity: dict[str, Severity] | None = None,
                   want_devices: bool = False) -> CheckResult:
     """Every chosen rule on one run: run rules once, layout rules on each checked top cell."""

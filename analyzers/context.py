@@ -5,12 +5,12 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from functools import cached_property
+from typing import TYPE_CHECKING
 
 from latchwatch.analyzers.extraction.extract import Extraction, extract
-from latchwatch.analyzers.model.findings import Finding, Related, Severity
 from latchwatch.analyzers.layout.flatten import FlatLayout
 from latchwatch.analyzers.layout.provenance import Provenance, is_user_file
-from typing import TYPE_CHECKING
+from latchwatch.analyzers.model.findings import Finding, Related, Severity
 
 if TYPE_CHECKING:
     from latchwatch.analyzers.model.run_outcome import RunOutcome

@@ -24,10 +24,10 @@ import numpy as np
 import shapely
 from scipy.spatial import cKDTree
 
-from latchwatch.analyzers.layout import geometry as g
+from latchwatch.analyzers.electrical.sheet import SheetProblem, make_mesh, solve
 from latchwatch.analyzers.extraction.extract import SUBSTRATE, Pieces, is_pwell_body, pwell_index
 from latchwatch.analyzers.extraction.nets import pad_connected
-from latchwatch.analyzers.electrical.sheet import SheetProblem, make_mesh, solve
+from latchwatch.analyzers.layout import geometry as g
 
 SUBSTRATE_MARGIN = 5.0  # layout units (um) of substrate sheet beyond the layout's extent
 WHOLE_BODY_CELLS = 6000  # grid cells up to which a body is solved whole

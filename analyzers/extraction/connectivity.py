@@ -26,8 +26,8 @@ import shapely
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
-from latchwatch.analyzers.layout import geometry as g
 from latchwatch.analyzers.extraction.extract import Extraction, Pieces
+from latchwatch.analyzers.layout import geometry as g
 from latchwatch.analyzers.technology.model import Technology, is_conductor_role
 
 # Diffusion kinds of a conductor (NOT_DIFFUSION for poly and metals).
@@ -226,7 +226,7 @@ def connect(ex: Extraction, tech: Technology) -> Connectivity:
             return np.ones(len(i), dtype=bool)
         return _IMPLANT[kind[i]] == _IMPLANT[kind[j]]
 
-    layers = [poly if role == "poly" else Shapes(c.geoms) for role, c in zip(roles, per_role)]
+    layers = [poly if role == "poly" else Shapes(c.geoms) for role, c in zip(roles, per_role, strict=False)]
     labels = join_nets(layers + [Shapes(c) for c in cuts], links, same_implant)
     n_cond = sum(len(c) for c in per_role)
     conductors = Conductors(

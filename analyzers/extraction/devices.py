@@ -7,11 +7,17 @@ from dataclasses import dataclass
 import numpy as np
 import shapely
 
-from latchwatch.analyzers.extraction.extract import SUBSTRATE, Pieces, is_pwell_body, pwell_index, spacing_to_opposite_well
-from latchwatch.analyzers.model.findings import Device
-from latchwatch.analyzers.extraction.nets import device_net_names
 from latchwatch.analyzers.electrical.shunt import shunt_estimates
+from latchwatch.analyzers.extraction.extract import (
+    SUBSTRATE,
+    Pieces,
+    is_pwell_body,
+    pwell_index,
+    spacing_to_opposite_well,
+)
+from latchwatch.analyzers.extraction.nets import device_net_names
 from latchwatch.analyzers.extraction.tapdistance import FarthestPoints, TapIndex, farthest_from_taps
+from latchwatch.analyzers.model.findings import Device
 
 KINDS = ("p", "n")  # P+ in an n-well, N+ in the p-body
 DEVICE_KIND = {"p": "pdiff", "n": "ndiff"}  # the name of each kind in findings and device rows

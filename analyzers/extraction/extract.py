@@ -56,11 +56,11 @@ class Pieces:
     def __len__(self) -> int:
         return len(self.geoms)
 
-    def select(self, mask: np.ndarray) -> "Pieces":
+    def select(self, mask: np.ndarray) -> Pieces:
         return Pieces(self.geoms[mask], self.shape[mask], self.body[mask])
 
     @staticmethod
-    def concat(parts: list["Pieces"]) -> "Pieces":
+    def concat(parts: list[Pieces]) -> Pieces:
         return Pieces(
             np.concatenate([p.geoms for p in parts]) if parts else np.empty(0, dtype=object),
             np.concatenate([p.shape for p in parts]) if parts else np.zeros(0, np.int64),

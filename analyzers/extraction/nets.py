@@ -21,8 +21,8 @@ from fnmatch import fnmatchcase
 import numpy as np
 import shapely
 
-from latchwatch.analyzers.layout import geometry as g
 from latchwatch.analyzers.extraction.connectivity import NDIFF, PDIFF, Connectivity, connect
+from latchwatch.analyzers.layout import geometry as g
 
 DEVICE_CODES = {"n": NDIFF, "p": PDIFF}
 def matches(text: str, patterns) -> bool:
@@ -100,7 +100,7 @@ def layout_nets(ex, tech) -> LayoutNets:
     power, ground, pad = (np.zeros(conn.n_nets, bool) for _ in range(3))
     names: dict[int, set[str]] = {}
     first_label: dict[tuple[int, str], int] = {}
-    for li, net, t in zip(label_index.tolist(), label_net.tolist(), text.tolist()):
+    for li, net, t in zip(label_index.tolist(), label_net.tolist(), text.tolist(), strict=False):
         names.setdefault(net, set()).add(t)
         first_label.setdefault((net, t), li)
         p, gr, pd = cls[t]
@@ -154,7 +154,7 @@ def device_net_names(ctx, kind: str) -> list[str | None]:
     named[list(ln.names)] = True
     keep = named[net]
     per_piece: dict[int, set[str]] = {}
-    for p, n in zip(piece[keep].tolist(), net[keep].tolist()):
+    for p, n in zip(piece[keep].tolist(), net[keep].tolist(), strict=False):
         per_piece.setdefault(p, set()).add(ln.display_name(n))
     for p, found in per_piece.items():
         out[p] = ",".join(sorted(found))

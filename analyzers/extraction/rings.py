@@ -28,17 +28,17 @@ interval [a, b] cannot exceed (f(a) + f(b) + |b - a|) / 2); exact to ``tol``.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Callable
 
 import numpy as np
 import shapely
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
-from latchwatch.analyzers.layout import geometry as g
 from latchwatch.analyzers.extraction.connectivity import meeting_pairs
 from latchwatch.analyzers.extraction.extract import Pieces
+from latchwatch.analyzers.layout import geometry as g
 
 DEFAULT_TOL = 1e-3  # one nanometre in micrometre units
 QUAD_SEGS = 32

@@ -14,8 +14,8 @@ from dataclasses import dataclass
 import numpy as np
 import shapely
 
-from latchwatch.analyzers.model.captured import CapturedLayout
 from latchwatch.analyzers.layout.geometry import axis_aligned_rectangles
+from latchwatch.analyzers.model.captured import CapturedLayout
 
 MAX_DEPTH = 64
 

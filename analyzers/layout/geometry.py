@@ -77,7 +77,7 @@ def union_groups(geoms: np.ndarray, group: np.ndarray, n_groups: int) -> np.ndar
     single = ends - starts == 1
     out[g[starts[single]]] = geoms[order[starts[single]]]
     # Only groups with several members need GEOS unions; those are few in practice.
-    for s, e in zip(starts[~single], ends[~single]):
+    for s, e in zip(starts[~single], ends[~single], strict=False):
         out[g[s]] = shapely.union_all(band_merged(geoms[order[s:e]]))
     return out
 

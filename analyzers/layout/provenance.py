@@ -14,8 +14,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from latchwatch.analyzers.model.findings import Frame, Placement
 from latchwatch.analyzers.layout.flatten import FlatLayout, placement_chain
+from latchwatch.analyzers.model.findings import Frame, Placement
 
 _LIBRARY_DIRS = tuple(
     os.path.normcase(os.path.realpath(p)) + os.sep

@@ -14,6 +14,7 @@ import numpy as np
 
 from latchwatch.analyzers.model.findings import Frame
 
+
 def _i32(n=0):
     return np.zeros(n, dtype=np.int32)
 

@@ -20,7 +20,7 @@ class Severity(enum.IntEnum):
         return self.name.lower()
 
     @classmethod
-    def parse(cls, text: str) -> "Severity":
+    def parse(cls, text: str) -> Severity:
         try:
             return cls[text.upper()]
         except KeyError:
@@ -83,7 +83,7 @@ class Finding:
     # Extra figures for front ends (hover, SARIF properties); never part of identity.
     figures: dict = field(default_factory=dict, compare=False, hash=False)
 
-    def with_severity(self, severity: Severity) -> "Finding":
+    def with_severity(self, severity: Severity) -> Finding:
         return replace(self, severity=severity)
 
     def sort_key(self):

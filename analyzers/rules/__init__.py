@@ -2,7 +2,21 @@
 
 from __future__ import annotations
 
-from latchwatch.analyzers.rules import floating_well, invalid_geometry, io_guard_ring, io_spacing, isolation_tie, no_geometry, script_error, script_limit, script_timeout, shunt_resistance, tap_distance, tap_supply, uncontacted_tap
+from latchwatch.analyzers.rules import (
+    floating_well,
+    invalid_geometry,
+    io_guard_ring,
+    io_spacing,
+    isolation_tie,
+    no_geometry,
+    script_error,
+    script_limit,
+    script_timeout,
+    shunt_resistance,
+    tap_distance,
+    tap_supply,
+    uncontacted_tap,
+)
 from latchwatch.analyzers.rules.base import Rule, RuleDoc, Scope
 
 RULES: tuple[Rule, ...] = (

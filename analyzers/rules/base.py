@@ -4,8 +4,8 @@ documentation and one check function."""
 from __future__ import annotations
 
 import enum
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass
-from typing import Callable, Iterable
 
 from latchwatch.analyzers.model.findings import Finding, Severity
 
@@ -31,7 +31,7 @@ class Rule:
     severity: Severity
     summary: str  # one line, for `latchwatch rules` and SARIF shortDescription
     doc: RuleDoc
-    check: Callable[["object"], Iterable[Finding]]  # takes a CheckContext
+    check: Callable[[object], Iterable[Finding]]  # takes a CheckContext
     scope: Scope = Scope.LAYOUT  # RUN rules see ctx.flat None; LAYOUT rules a flattened top cell
 
     def help_text(self) -> str:

@@ -7,9 +7,9 @@ import numpy as np
 import shapely
 
 from latchwatch.analyzers.extraction import rings
-from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.extraction.nets import pad_connected
 from latchwatch.analyzers.extraction.tapdistance import SLACK
+from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.rules.base import Rule, RuleDoc
 from latchwatch.analyzers.rules.tap_distance import describe
 
@@ -82,7 +82,7 @@ def _check_kind(ctx, k: _Kind, devices: np.ndarray, params):
         shape = int(k.pieces.shape[i])
         words = dict(k.words, what=describe(k.kind, bool(k.gated[i])))
 
-        def finding(code, message, location, related_shape, related_text, **fields):
+        def finding(code, message, location, related_shape, related_text, shape=shape, n=n, **fields):
             if (shape, code) in seen:
                 return None
             seen.add((shape, code))
@@ -196,8 +196,9 @@ RULE = Rule(
             "closed band at least that wide all round: the ring eroded by half the width must still surround "
             "the diffusion (the narrowest width of the best band and its place are reported, found by bisection "
             "to 1 nm; the erosion draws arcs with 32 chords per quarter circle, which can let a ring pass at "
-            "most r(1 - cos(pi/128)), 0.03 nm at 2 um, narrower than asked); max_gap, no point of the diffusion's edge may lie farther than that from the ring "
-            "(its inner edge; exact to 1 nm), so a ring spaced max_gap away on every side passes; double = true, a closed ring of the "
+            "most r(1 - cos(pi/128)), 0.03 nm at 2 um, narrower than asked); max_gap, no point of the diffusion's "
+            "edge may lie farther than that from the ring (its inner edge; exact to 1 nm), so a ring spaced max_gap "
+            "away on every side passes; double = true, a closed ring of the "
             "opposite type must surround the first, held to the same width, to the same max_gap from the diffusion "
             "and to a contact (double = \"ndiff\" or \"pdiff\" asks it for pad-connected N+ or P+ only). The "
             "ring must also enclose a contact. Only the innermost "

@@ -6,9 +6,9 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
-from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.extraction.nets import pad_connected
 from latchwatch.analyzers.extraction.tapdistance import SLACK
+from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.rules.base import Rule, RuleDoc
 from latchwatch.analyzers.rules.tap_distance import describe
 

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-
 from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.rules.base import Rule, RuleDoc, Scope
 
@@ -15,7 +14,7 @@ def check(ctx):
         return
     known = {tuple(v) for v in ctx.tech.layers.values()}
     for cell in layout.cells:
-        pairs = set(zip(cell.poly_layer.tolist(), cell.poly_datatype.tolist())) if cell.polygon_count else set()
+        pairs = set(zip(cell.poly_layer.tolist(), cell.poly_datatype.tolist(), strict=False)) if cell.polygon_count else set()
         if pairs & known:
             return
     yield ctx.run_finding(RULE, MESSAGE.format(tech=ctx.tech.name))

@@ -7,10 +7,10 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
+from latchwatch.analyzers.electrical.shunt import nearest_taps, shunt_estimates, si
 from latchwatch.analyzers.extraction.devices import DEVICE_KIND, KINDS
 from latchwatch.analyzers.extraction.extract import SUBSTRATE
 from latchwatch.analyzers.model.findings import Severity
-from latchwatch.analyzers.electrical.shunt import nearest_taps, shunt_estimates, si
 from latchwatch.analyzers.rules.base import Rule, RuleDoc
 from latchwatch.analyzers.rules.tap_distance import describe
 
@@ -40,7 +40,7 @@ def check(ctx):
         bounds = shapely.bounds(pieces.geoms)
         chosen = order[first]
         _, nearest = nearest_taps(pieces.select(chosen), est.taps)
-        for i, tap in zip(chosen.tolist(), nearest.tolist()):
+        for i, tap in zip(chosen.tolist(), nearest.tolist(), strict=False):
             body_kind = kind if kind == "p" or pieces.body[i] == SUBSTRATE else "pwell"
             body, tap_name = BODY[body_kind]
             role = "pad-connected" if est.pad[i] else "core"

@@ -7,8 +7,8 @@ import numpy as np
 import shapely
 
 from latchwatch.analyzers.extraction.connectivity import NTAP, PTAP
-from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.extraction.nets import nets
+from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.rules.base import Rule, RuleDoc
 
 SUPPLY = {"n": ("n-tap", "power", NTAP), "p": ("p-tap", "ground", PTAP)}
@@ -50,7 +50,7 @@ def check(ctx):
         bounds = shapely.bounds(pieces.geoms)
         done = set()
         for i, n, is_wrong in zip(piece[wrong | unnamed].tolist(), net[wrong | unnamed].tolist(),
-                                  wrong[wrong | unnamed].tolist()):
+                                  wrong[wrong | unnamed].tolist(), strict=False):
             shape = int(pieces.shape[i])
             if shape in done:
                 continue

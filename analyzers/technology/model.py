@@ -12,9 +12,10 @@ from __future__ import annotations
 import difflib
 import math
 import re
+from collections.abc import Mapping
 from dataclasses import dataclass, fields
 from types import MappingProxyType
-from typing import Any, Mapping
+from typing import Any
 
 from latchwatch.analyzers.electrical.mobility import MAX_DOPING, MIN_DOPING, UM_PER_CM, sheet_resistance
 

@@ -14,7 +14,7 @@ import sys
 
 import gdstk
 
-from .stacks import HARNESS_FILES, STACK_DEPTH, _GENERATOR_FLAGS
+from .stacks import _GENERATOR_FLAGS, HARNESS_FILES, STACK_DEPTH
 
 BaseCell = gdstk.Cell if gdstk else None
 

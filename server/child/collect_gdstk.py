@@ -98,7 +98,7 @@ class _CellLog:
         above_code, outer = self.recorder.chains[cid]
         if above_code is not None:
             ids.append(tables.frame_id(above_code, above_lasti))
-            ids.extend(tables.frame_id(c, l) for c, l in outer)
+            ids.extend(tables.frame_id(code, lasti) for code, lasti in outer)
         return tables.stack_id(ids)
 
     def stacks_for(self, objects, kind):

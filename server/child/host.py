@@ -6,6 +6,7 @@ import os
 import signal
 import sys
 import time
+
 # Imported before the identity changes, which may hide the standard library.
 try:
     import pwd
@@ -14,8 +15,9 @@ except ImportError:  # Windows
     pwd = resource = None
 
 from .keeper import kill_quietly, sweep_leftovers
-from .kernel import report_sandbox, PR_SET_CHILD_SUBREAPER, PR_SET_PDEATHSIG, Record, prctl
+from .kernel import PR_SET_CHILD_SUBREAPER, PR_SET_PDEATHSIG, Record, prctl, report_sandbox
 from .landlock import confine_with_landlock
+
 
 def serve_jobs(config, record, job_module):
     """Run jobs sent on the host socket, one at a time, each in a child of its own. Never returns.

@@ -6,6 +6,7 @@ import os
 import signal
 import sys
 import time
+
 # Imported before the identity changes, which may hide the standard library.
 try:
     import pwd
@@ -14,7 +15,19 @@ except ImportError:  # Windows
     pwd = resource = None
 
 from .identity import MapRequest, plan_identity
-from .kernel import report_sandbox, CLONE_NEWNET, CLONE_NEWPID, CLONE_NEWUSER, PR_SET_CHILD_SUBREAPER, PR_SET_PDEATHSIG, prctl, unshare, why, write_text
+from .kernel import (
+    CLONE_NEWNET,
+    CLONE_NEWPID,
+    CLONE_NEWUSER,
+    PR_SET_CHILD_SUBREAPER,
+    PR_SET_PDEATHSIG,
+    prctl,
+    report_sandbox,
+    unshare,
+    why,
+    write_text,
+)
+
 
 def enter_namespaces(config, record):
     """Network and PID namespaces for the run; returns (pid_namespace, user_namespace_in_keeper)."""

@@ -5,11 +5,12 @@ Standard library only, Python 3.8 and later (the interpreter may be the user's o
 
 from __future__ import annotations
 
+# Imported before the identity changes, which may hide the standard library.
+import ctypes
 import json
 import os
 import time
-# Imported before the identity changes, which may hide the standard library.
-import ctypes
+
 try:
     import pwd
     import resource

@@ -2,10 +2,11 @@
 
 from __future__ import annotations
 
-import os
-import sys
 # Imported before the identity changes, which may hide the standard library.
 import ctypes
+import os
+import sys
+
 try:
     import pwd
     import resource

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import os
 import sys
+
 # Imported before the identity changes, which may hide the standard library.
 try:
     import pwd

@@ -9,7 +9,6 @@ from __future__ import annotations
 import os
 import sys
 
-
 # Frames of this file are the harness, never the user's: compare the compiled name.
 _HERE = os.path.dirname(sys._getframe().f_code.co_filename)
 HARNESS_FILES = frozenset(os.path.join(_HERE, name) for name in os.listdir(_HERE) if name.endswith(".py"))

@@ -3,8 +3,8 @@
 from __future__ import annotations
 
 import argparse
-import functools
 import difflib
+import functools
 import os
 import sys
 from dataclasses import replace
@@ -12,21 +12,19 @@ from pathlib import Path
 
 from latchwatch import __version__
 from latchwatch.analyzers.check import TopCellError
-from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.layout.flatten import HierarchyError
+from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.rules import RULES, RULES_BY_ID
 from latchwatch.analyzers.technology.model import TechnologyError
-
-from latchwatch.server.runs import batch as sweep
-
-from latchwatch.server.runs import plan
 from latchwatch.server.config import techfiles
-from latchwatch.server.runs.pipeline import CheckSettings, expand_paths
 from latchwatch.server.config.project import ConfigError, expand_includes, find_project_config, is_excluded
-from latchwatch.server.sandbox.runner import RunnerError
 from latchwatch.server.report.as_json import render_json
 from latchwatch.server.report.as_sarif import render_sarif
 from latchwatch.server.report.as_text import render_text
+from latchwatch.server.runs import batch as sweep
+from latchwatch.server.runs import plan
+from latchwatch.server.runs.pipeline import CheckSettings, expand_paths
+from latchwatch.server.sandbox.runner import RunnerError
 
 CAUTION = (
     "latchwatch is an early-warning aid for generator authors, not sign-off. Its resistance figures are "

@@ -14,8 +14,9 @@ import json
 import os
 import sys
 import tempfile
+from collections.abc import Iterable, Mapping
 from pathlib import Path
-from typing import Iterable, Mapping, TextIO
+from typing import TextIO
 
 SCHEMA = "latchwatch-trust/1"
 STORE_NAME = "trusted.json"

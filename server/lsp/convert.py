@@ -17,14 +17,14 @@ source lines come in through ``read_line``.
 
 from __future__ import annotations
 
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass
-from typing import Callable, Iterable
 
 from lsprotocol import types
 from pygls.uris import from_fs_path
 
-from latchwatch.analyzers.model.findings import Device, Finding, Severity
 from latchwatch.analyzers.electrical.shunt import si
+from latchwatch.analyzers.model.findings import Device, Finding, Severity
 from latchwatch.server.report.model import corner_label
 
 SOURCE = "latchwatch"

@@ -10,8 +10,8 @@ from __future__ import annotations
 
 import asyncio
 import threading
+from collections.abc import Awaitable, Callable
 from dataclasses import dataclass, field
-from typing import Awaitable, Callable
 
 Start = Callable[[str, int, threading.Event], Awaitable[None]]
 

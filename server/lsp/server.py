@@ -30,17 +30,26 @@ from pygls.uris import from_fs_path, to_fs_path
 from latchwatch import __version__
 from latchwatch.analyzers.rules import RULES_BY_ID
 from latchwatch.analyzers.technology.model import TechnologyError
-
+from latchwatch.server.config.project import ConfigError
+from latchwatch.server.config.trust import TrustStoreError, is_trusted
 from latchwatch.server.lsp import convert as convert
+from latchwatch.server.lsp.documents import RunScheduler
+from latchwatch.server.lsp.settings import (
+    SECTION,
+    DocumentSettings,
+    EditorSettings,
+    SettingsError,
+    TechnologyCache,
+    document_settings,
+    merge,
+    section_of,
+    trust_root,
+)
 from latchwatch.server.runs import batch as sweep
 from latchwatch.server.runs import plan
-from latchwatch.server.lsp.documents import RunScheduler
-from latchwatch.server.lsp.settings import SECTION, DocumentSettings, EditorSettings, SettingsError, TechnologyCache, document_settings, merge, section_of, trust_root
-from latchwatch.server.config.project import ConfigError
-from latchwatch.server.sandbox.runner import RunnerError
 from latchwatch.server.runs.pipeline import read_text_or_none
 from latchwatch.server.runs.suppression import add_suppression
-from latchwatch.server.config.trust import TrustStoreError, is_trusted
+from latchwatch.server.sandbox.runner import RunnerError
 
 logger = logging.getLogger("latchwatch.lsp")
 PROGRESS_AFTER_S = 1.0  # runs shorter than this show no progress

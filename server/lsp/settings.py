@@ -23,10 +23,15 @@ from pathlib import Path
 from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.rules import RULES_BY_ID
 from latchwatch.analyzers.technology.model import Technology
-
 from latchwatch.server.config import techfiles
+from latchwatch.server.config.project import (
+    ConfigError,
+    ProjectConfig,
+    find_project_config,
+    severity_overrides,
+    severity_problem,
+)
 from latchwatch.server.runs.pipeline import CheckSettings
-from latchwatch.server.config.project import ConfigError, ProjectConfig, find_project_config, severity_overrides, severity_problem
 
 SECTION = "latchwatch"
 RUN_MODES = ("change", "save")

@@ -9,7 +9,6 @@ from pathlib import Path
 
 import latchwatch
 from latchwatch.analyzers.model.findings import Device, Finding, Frame, Placement, Related
-
 from latchwatch.server.report.model import Report, RunSummary, for_display
 
 SCHEMA = "latchwatch-report/1"

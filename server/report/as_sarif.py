@@ -18,9 +18,8 @@ from urllib.parse import quote
 import latchwatch
 from latchwatch.analyzers.model.findings import Finding, Severity
 from latchwatch.analyzers.rules.base import Rule
-
-from latchwatch.server.report.model import Report, for_display
 from latchwatch.server.report.as_json import number, placement_to_dict, plain, point, run_to_dict
+from latchwatch.server.report.model import Report, for_display
 
 SARIF_VERSION = "2.1.0"
 SARIF_SCHEMA_URI = (

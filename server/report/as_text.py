@@ -14,7 +14,6 @@ from __future__ import annotations
 from pathlib import Path
 
 from latchwatch.analyzers.model.findings import Finding
-
 from latchwatch.server.report.model import Report, for_display
 
 PROGRAM = "latchwatch"
@@ -59,7 +58,7 @@ def summary_line(report: Report) -> str:
         _plural(counts["warning"], "warning"),
         f"{counts['info']} info",
     ]
-    shown = [text for text, n in zip(wording, counts.values()) if n] or ["no findings"]
+    shown = [text for text, n in zip(wording, counts.values(), strict=False) if n] or ["no findings"]
     files = len({run.script for run in report.runs})
     if not report.runs:
         return ", ".join(shown)

@@ -11,18 +11,20 @@ from __future__ import annotations
 
 import sys
 import threading
+from collections.abc import Callable, Iterable
 from concurrent.futures import FIRST_COMPLETED, ThreadPoolExecutor, wait
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import Callable, Iterable, TextIO
+from typing import TextIO
+
 from latchwatch.analyzers.model.findings import Device, Finding
 from latchwatch.analyzers.rules import RULES
-from latchwatch.server.sandbox.hosts import available_cpus
-from latchwatch.server.runs.pipeline import CheckSettings, check_run, read_text_or_none, run_path
 from latchwatch.server.report.model import Report, RunSummary, corner_label
+from latchwatch.server.runs.pipeline import CheckSettings, check_run, read_text_or_none, run_path
+from latchwatch.server.runs.plan import Sweep, Task, plan_script, preview_functions
+from latchwatch.server.sandbox.hosts import available_cpus
 from latchwatch.server.sandbox.runner import run_script
 
-from latchwatch.server.runs.plan import Sweep, Task, plan_script, preview_functions
 
 @dataclass
 class RunResult:
@@ -151,7 +153,7 @@ def check_script(path: Path, settings: CheckSettings, sweeps: Iterable[Sweep] = 
 
 
 def check_all(paths: list[Path], settings: CheckSettings, sweeps: Iterable[Sweep] = (), *, jobs: int | None = None,
-              corners: int | None = None, progress: "ProgressBar | None" = None, unlisted: bool = False) -> Report:
+              corners: int | None = None, progress: ProgressBar | None = None, unlisted: bool = False) -> Report:
     """The command line's report: every path (a sweep's script as its corners), and
     with ``unlisted`` also the sweeps of scripts not among the paths."""
     sweeps = list(sweeps)

@@ -4,18 +4,17 @@ server, so both run the same pipeline."""
 from __future__ import annotations
 
 import os
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable, Iterable
 
 from latchwatch.analyzers.check import CheckOptions, check_outcome, select_rules
 from latchwatch.analyzers.model.findings import Finding, Severity
 from latchwatch.analyzers.model.run_outcome import RunOutcome
 from latchwatch.analyzers.technology.model import Technology
-
 from latchwatch.server.report.model import RunSummary
-from latchwatch.server.sandbox.runner import read_layout_file, run_script
 from latchwatch.server.runs.suppression import apply_suppressions
+from latchwatch.server.sandbox.runner import read_layout_file, run_script
 
 SCRIPT_SUFFIXES = (".py",)
 LAYOUT_SUFFIXES = (".gds", ".gds2", ".gdsii", ".oas", ".oasis")

@@ -36,11 +36,11 @@ import ast
 import itertools
 import random
 import re
+from collections.abc import Iterable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Iterable
-from latchwatch.server.config.project import ProjectConfig
 
+from latchwatch.server.config.project import ProjectConfig
 
 CORNER_SEED = 7
 
@@ -176,7 +176,7 @@ def sweeps_for(path: Path, sweeps: Iterable[Sweep]) -> list[Sweep]:
 def corner_grid(params: dict[str, list]) -> list[dict]:
     """Every combination, the first parameter varying slowest."""
     names = list(params)
-    return [dict(zip(names, values)) for values in itertools.product(*(params[n] for n in names))]
+    return [dict(zip(names, values, strict=False)) for values in itertools.product(*(params[n] for n in names))]
 
 
 def _extreme_indices(values: list) -> tuple[int, int]:
@@ -211,7 +211,7 @@ def sample_corners(params: dict[str, list], count: int | None, seed: int = CORNE
     rng.shuffle(vertices)
     rng.shuffle(rest)
     chosen = sorted((first + vertices + rest)[:count])
-    return [{n: params[n][i] for n, i in zip(names, index)} for index in chosen]
+    return [{n: params[n][i] for n, i in zip(names, index, strict=False)} for index in chosen]
 
 
 def sweep_tasks(sweep: Sweep, count: int | None = None) -> list[Task]:

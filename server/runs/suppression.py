@@ -12,7 +12,7 @@ from __future__ import annotations
 import io
 import re
 import tokenize
-from typing import Callable, Iterable
+from collections.abc import Callable, Iterable
 
 from latchwatch.analyzers.model.findings import Finding
 

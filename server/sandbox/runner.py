@@ -29,11 +29,27 @@ from pathlib import Path
 
 from latchwatch.analyzers.model.findings import Frame
 from latchwatch.analyzers.model.run_outcome import RunOutcome, ScriptFailure
-
 from latchwatch.server.sandbox import wire
 from latchwatch.server.sandbox.hosts import HOSTS
-from latchwatch.server.sandbox.policy import GEOMETRY_KILL, OUTPUT_HEAD, OUTPUT_KILL, OUTPUT_TAIL, SandboxReport, SandboxSettings, unavailable_message
-from latchwatch.server.sandbox.workers import COLLECT_ALLOWANCE, HARNESS_FILES, STARTUP_ALLOWANCE, RunnerError, SandboxUnavailable, Worker, WorkerKey, child_environment
+from latchwatch.server.sandbox.policy import (
+    GEOMETRY_KILL,
+    OUTPUT_HEAD,
+    OUTPUT_KILL,
+    OUTPUT_TAIL,
+    SandboxReport,
+    SandboxSettings,
+    unavailable_message,
+)
+from latchwatch.server.sandbox.workers import (
+    COLLECT_ALLOWANCE,
+    HARNESS_FILES,
+    STARTUP_ALLOWANCE,
+    RunnerError,
+    SandboxUnavailable,
+    Worker,
+    WorkerKey,
+    child_environment,
+)
 
 __all__ = ["run_script", "RunnerError", "SandboxUnavailable", "child_environment", "OUTPUT_HEAD", "OUTPUT_TAIL",
            "OUTPUT_KILL", "GEOMETRY_KILL", "STARTUP_ALLOWANCE", "COLLECT_ALLOWANCE"]

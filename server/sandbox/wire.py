@@ -16,7 +16,6 @@ import numpy as np
 
 from latchwatch.analyzers.model.captured import CapturedCell, CapturedLayout
 from latchwatch.analyzers.model.findings import Frame
-
 from latchwatch.server.child.wire_format import DTYPES, FIELDS, MAGIC, WIRE_VERSION, encode_payload
 
 __all__ = ["WireError", "encode_payload", "decode_payload", "layout_from_parts", "decode_layout",

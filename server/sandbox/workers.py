@@ -194,7 +194,7 @@ def widen_pipe(fd: int) -> None:
 
 
 def inspect_sandbox(python: str | None = None, project_root: str | None = None,
-                    settings: SandboxSettings = SandboxSettings(), wait: float = 30.0):
+                    settings: SandboxSettings | None = None, wait: float = 30.0):
     """Start a worker, read its sandbox report and its ``ready`` line, end it unused.
 
     Returns (SandboxReport, ready line or None, output). What `latchwatch doctor` shows,
@@ -205,6 +205,7 @@ def inspect_sandbox(python: str | None = None, project_root: str | None = None,
     from latchwatch.server.sandbox.policy import SandboxReport
 
     root = os.path.abspath(project_root or os.getcwd())
+    settings = settings if settings is not None else SandboxSettings()
     worker = Worker.start(WorkerKey(python or sys.executable, root, settings, 10.0), needs_reading=[root])
     control, output = bytearray(), bytearray()
     try:

@@ -6,11 +6,12 @@ from __future__ import annotations
 
 from dataclasses import replace
 
-from builders import ACTIVE, NWELL, PPLUS, CellBuilder, layout, outcome
 from latchwatch.analyzers.check import check_outcome
 from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.rules import RULES
 from latchwatch.server.config.techfiles import load_technology
+
+from builders import ACTIVE, NWELL, PPLUS, CellBuilder, layout, outcome
 
 
 def _rule(rule_id):

@@ -5,15 +5,16 @@ import numpy as np
 import pytest
 import shapely
 
-from builders import ACTIVE, CONTACT, METAL1, NPLUS, NWELL, POLY, PPLUS, CellBuilder, layout, outcome
 from latchwatch.analyzers.check import check_outcome
-from latchwatch.analyzers.extraction.connectivity import NDIFF, PDIFF, PTAP, join_nets, meeting_pairs
 from latchwatch.analyzers.context import CheckContext, CheckOptions
+from latchwatch.analyzers.extraction.connectivity import NDIFF, PDIFF, PTAP, join_nets, meeting_pairs
 from latchwatch.analyzers.extraction.extract import extract
-from latchwatch.analyzers.layout.flatten import flatten
 from latchwatch.analyzers.extraction.nets import layout_nets, matches, pad_connected
+from latchwatch.analyzers.layout.flatten import flatten
 from latchwatch.analyzers.technology.model import technology_from_mapping
 from latchwatch.server.config.techfiles import load_technology
+
+from builders import ACTIVE, CONTACT, METAL1, NPLUS, NWELL, POLY, PPLUS, CellBuilder, layout, outcome
 
 M1_LABEL, VIA1, METAL2, M2_LABEL, IO_MARKER = (7, 5), (8, 0), (9, 0), (9, 5), (12, 0)
 VIA2, METAL3, M3_LABEL = (20, 0), (21, 0), (21, 5)
@@ -178,7 +179,7 @@ def test_meeting_pairs_match_shapely_intersects():
     a = shapely.box(lo[:, 0], lo[:, 1], lo[:, 0] + 2, lo[:, 1] + 2)
     b = np.concatenate([a[:20], [shapely.Polygon([(0, 0), (5, 0), (0, 5)])]])
     i, j = meeting_pairs(a, b)
-    got = set(zip(i.tolist(), j.tolist()))
+    got = set(zip(i.tolist(), j.tolist(), strict=False))
     want = {(x, y) for x in range(len(a)) for y in range(len(b)) if a[x].intersects(b[y])}
     assert got == want
 

@@ -3,12 +3,12 @@
 import numpy as np
 import pytest
 
-from builders import ACTIVE, CONTACT, NPLUS, NWELL, POLY, PPLUS, CellBuilder
 from latchwatch.analyzers.extraction.extract import SUBSTRATE, extract
 from latchwatch.analyzers.layout.flatten import flatten
 from latchwatch.analyzers.technology.model import technology_from_mapping
 from latchwatch.server.config.techfiles import load_technology
-from builders import layout
+
+from builders import ACTIVE, CONTACT, NPLUS, NWELL, POLY, PPLUS, CellBuilder, layout
 
 
 @pytest.fixture

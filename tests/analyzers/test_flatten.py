@@ -5,8 +5,9 @@ import numpy as np
 import pytest
 import shapely
 
-from builders import ACTIVE, CellBuilder, layout
 from latchwatch.analyzers.layout.flatten import HierarchyError, flatten
+
+from builders import ACTIVE, CellBuilder, layout
 
 CASES = [
     dict(origin=(10, 5)),

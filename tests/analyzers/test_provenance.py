@@ -1,9 +1,10 @@
 """Anchors: the innermost user frame whose line is layer-specific (DESIGN 6)."""
 
-from builders import ACTIVE, NWELL, PPLUS, CellBuilder, layout
-from latchwatch.analyzers.model.findings import Frame
 from latchwatch.analyzers.layout.flatten import flatten
 from latchwatch.analyzers.layout.provenance import Provenance, is_user_file
+from latchwatch.analyzers.model.findings import Frame
+
+from builders import ACTIVE, NWELL, PPLUS, CellBuilder, layout
 
 F = "/proj/cell.py"
 frames = [

@@ -6,7 +6,8 @@ from collections import deque
 import numpy as np
 import pytest
 import shapely
-from hypothesis import given, settings, strategies as st
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from latchwatch.analyzers.extraction import rings
 from latchwatch.analyzers.extraction.extract import Pieces

@@ -66,20 +66,21 @@ def test_annulus_on_the_adaptive_grid(r1, r2):
 def test_annulus_converges_as_the_grid_is_refined():
     exact = annulus_exact(1.0, 5.0)
     errors = [abs(solve(annulus(1.0, 5.0, grid)).resistance[0] - exact) / exact for grid in (0.4, 0.2, 0.1, 0.05)]
-    assert all(a > b for a, b in zip(errors, errors[1:])), errors
+    assert all(a > b for a, b in zip(errors, errors[1:], strict=False)), errors
     assert errors[-1] < 0.01
 
 
 def test_strip_converges_from_above_as_the_grid_is_refined():
     # A strip between electrodes that do not span it (a tap and a device in a wide sheet)
     # has no closed form: each refinement must move the estimate down by less each time.
-    problem = lambda grid: SheetProblem(
-        (0, 0, 20, 6), shapes(shapely.box(0, 0, 20, 6)), NONE, shapes(shapely.box(1, 2, 2, 4)),
-        shapes(shapely.box(15, 1, 17, 3)), RS, grid)
+    def problem(grid):
+        return SheetProblem(
+            (0, 0, 20, 6), shapes(shapely.box(0, 0, 20, 6)), NONE, shapes(shapely.box(1, 2, 2, 4)),
+            shapes(shapely.box(15, 1, 17, 3)), RS, grid)
     values = [solve(problem(grid)).resistance[0] for grid in (0.5, 0.25, 0.125, 0.0625)]
     steps = np.diff(values)
     assert (steps < 0).all(), values
-    assert all(abs(a) > abs(b) for a, b in zip(steps, steps[1:])), values
+    assert all(abs(a) > abs(b) for a, b in zip(steps, steps[1:], strict=False)), values
 
 
 def test_l_shaped_well_against_a_much_finer_reference():
@@ -141,8 +142,9 @@ def test_unreachable_shorted_and_touching_devices():
 
 def test_cut_out_regions_are_not_sheet():
     # A hole across the strip's whole width: no path. Half the width: the strip narrows.
-    hole = lambda top: SheetProblem((0, 0, 12, 2), shapes(shapely.box(0, 0, 12, 2)), shapes(shapely.box(5, 0, 6, top)),
-                                    shapes(shapely.box(11, 0, 12, 2)), shapes(shapely.box(0, 0, 1, 2)), RS)
+    def hole(top):
+        return SheetProblem((0, 0, 12, 2), shapes(shapely.box(0, 0, 12, 2)), shapes(shapely.box(5, 0, 6, top)),
+                                        shapes(shapely.box(11, 0, 12, 2)), shapes(shapely.box(0, 0, 1, 2)), RS)
     assert solve(hole(2.0)).resistance[0] == math.inf
     assert solve(hole(1.0)).resistance[0] > RS * 10 / 2 * 1.05
 

@@ -9,18 +9,19 @@ import sys
 import numpy as np
 import pytest
 
-from locations import BENCH
-from builders import ACTIVE, CONTACT, NPLUS, NWELL, PPLUS, CellBuilder, layout, outcome
-from latchwatch.analyzers.electrical import shunt
 from latchwatch.analyzers.context import CheckContext, CheckOptions
+from latchwatch.analyzers.electrical import shunt
+from latchwatch.analyzers.electrical.mobility import sheet_resistance
+from latchwatch.analyzers.electrical.shunt import shunt_estimates, si
 from latchwatch.analyzers.extraction.devices import device_table
 from latchwatch.analyzers.layout.flatten import flatten
-from latchwatch.analyzers.electrical.mobility import sheet_resistance
 from latchwatch.analyzers.rules.shunt_resistance import RULE
-from latchwatch.analyzers.electrical.shunt import shunt_estimates, si
 from latchwatch.analyzers.technology.model import TechnologyError, technology_from_mapping
-from latchwatch.server.lsp import convert as lsp_convert
 from latchwatch.server.config.techfiles import load_technology
+from latchwatch.server.lsp import convert as lsp_convert
+
+from builders import ACTIVE, CONTACT, NPLUS, NWELL, PPLUS, CellBuilder, layout, outcome
+from locations import BENCH
 
 sys.path.insert(0, str(BENCH))
 import gen_row  # noqa: E402  (the benchmark's row generator draws the row layouts here too)
@@ -259,7 +260,7 @@ def test_channel_bound_is_above_the_estimate(demo, seed):
     ctx = scattered_context(demo, seed)
     est = shunt_estimates(ctx, exact=True)
     regions = shunt._regions(ctx.extraction, "p"), shunt._regions(ctx.extraction, "n")
-    for (kind, pieces), region in zip((("p", ctx.extraction.pdiff), ("n", ctx.extraction.ndiff)), regions):
+    for (kind, pieces), region in zip((("p", ctx.extraction.pdiff), ("n", ctx.extraction.ndiff)), regions, strict=False):
         bound = shunt.channel_bound(pieces, est[kind].taps, est[kind].sheet, region)
         finite = np.isfinite(bound)
         assert finite.any()

@@ -3,11 +3,12 @@ breakpoints (gf180mcu-pdk design manual, section 14.3, tables_clear/55_Latch-up_
 
 import pytest
 
-from builders import CellBuilder, layout, outcome
 from latchwatch.analyzers.check import check_outcome
 from latchwatch.analyzers.context import CheckOptions
 from latchwatch.analyzers.rules import RULES_BY_ID
 from latchwatch.server.config.techfiles import load_technology
+
+from builders import CellBuilder, layout, outcome
 
 # GF180MCU drawn layers (design manual, tables_clear/06_Drawn_layer10.csv).
 COMP, NWELL, PPLUS, NPLUS, CONTACT = (22, 0), (21, 0), (31, 0), (32, 0), (33, 0)

@@ -3,7 +3,8 @@
 import numpy as np
 import pytest
 import shapely
-from hypothesis import example, given, settings, strategies as st
+from hypothesis import example, given, settings
+from hypothesis import strategies as st
 
 from latchwatch.analyzers.extraction.tapdistance import DEFAULT_TOL, TapIndex, farthest_from_taps
 

@@ -27,15 +27,16 @@ import gdstk
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 
-from gen_row import GROUP_W, ROW_H, ROW_PITCH, TAP_W, main as draw_rows  # noqa: E402
-
-from latchwatch.analyzers.context import CheckContext, CheckOptions  # noqa: E402
-from latchwatch.analyzers.layout.flatten import flatten
-from latchwatch.analyzers.extraction.nets import nets
+from latchwatch.analyzers.context import CheckContext, CheckOptions  # noqa: E402  (after the path insert)
+from latchwatch.analyzers.extraction.nets import nets  # noqa: E402
+from latchwatch.analyzers.layout.flatten import flatten  # noqa: E402
+from latchwatch.analyzers.model.run_outcome import RunOutcome  # noqa: E402
 from latchwatch.analyzers.rules import RULES_BY_ID  # noqa: E402
-from latchwatch.analyzers.model.run_outcome import RunOutcome
-from latchwatch.server.layoutfile import read_layout  # noqa: E402
-from latchwatch.server.config.techfiles import load_technology
+from latchwatch.server.config.techfiles import load_technology  # noqa: E402
+from latchwatch.server.sandbox.runner import read_layout_file  # noqa: E402
+
+from gen_row import GROUP_W, ROW_H, ROW_PITCH, TAP_W  # noqa: E402
+from gen_row import main as draw_rows  # noqa: E402
 
 DEFAULT_SIZES = (100_000, 1_000_000)
 CORE = ("tap-distance", "floating-well", "uncontacted-tap")
@@ -71,7 +72,7 @@ def timed(fn):
 
 
 def bench(path: Path, tech) -> dict:
-    layout = read_layout(path)
+    layout = read_layout_file(path, "gds").layout
     outcome = RunOutcome(script=str(path), status="ok", seconds=0.0, layout=layout, failure=None, output="",
                          sandbox={})
     t_flat, flat = timed(lambda: flatten(layout, layout.top_cells()[0]))

@@ -28,8 +28,8 @@ DEFAULT_SIZES = (100_000, 1_000_000)
 
 def check_seconds(layout_path: Path, with_shunt: bool, repeat: int = 1) -> tuple[float, object]:
     from latchwatch.analyzers.check import CheckOptions, check_outcome
-    from latchwatch.analyzers.rules import RULES
     from latchwatch.analyzers.model.run_outcome import RunOutcome
+    from latchwatch.analyzers.rules import RULES
     from latchwatch.server.config.techfiles import load_technology
     from latchwatch.server.sandbox.runner import read_layout_file
 
@@ -48,11 +48,11 @@ def check_seconds(layout_path: Path, with_shunt: bool, repeat: int = 1) -> tuple
 
 def phases(layout_path: Path) -> dict:
     """Seconds of the core check and of the estimate, and the estimate's counts."""
-    from latchwatch.analyzers.electrical import shunt
     from latchwatch.analyzers.context import CheckContext, CheckOptions
+    from latchwatch.analyzers.electrical import shunt
     from latchwatch.analyzers.layout.flatten import flatten
-    from latchwatch.analyzers.rules import RULES
     from latchwatch.analyzers.model.run_outcome import RunOutcome
+    from latchwatch.analyzers.rules import RULES
     from latchwatch.server.config.techfiles import load_technology
     from latchwatch.server.sandbox.runner import read_layout_file
 

@@ -28,12 +28,12 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from test_sweep import GENERATOR  # noqa: E402  (the cell of the sweep tests)
 
-from latchwatch.server.sandbox import hosts
+from latchwatch.server.config import techfiles
 from latchwatch.server.runs import batch as sweep
 from latchwatch.server.runs import plan
-from latchwatch.server.sandbox.hosts import available_cpus
-from latchwatch.server.config import techfiles
 from latchwatch.server.runs.pipeline import CheckSettings
+from latchwatch.server.sandbox import hosts
+from latchwatch.server.sandbox.hosts import available_cpus
 
 
 def corner_params(count: int) -> list[str]:

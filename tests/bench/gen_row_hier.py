@@ -12,8 +12,20 @@ import sys
 
 import gdstk
 
-from gen_row import (BARE_TAPS, GAPS, GROUP_W, GROUPS_PER_ROW, INV_W, PER_GROUP, ROW_PITCH, TAP_W,
-                     frame, group_kind, inverter, well_tap)
+from gen_row import (
+    BARE_TAPS,
+    GAPS,
+    GROUP_W,
+    GROUPS_PER_ROW,
+    INV_W,
+    PER_GROUP,
+    ROW_PITCH,
+    TAP_W,
+    frame,
+    group_kind,
+    inverter,
+    well_tap,
+)
 
 
 def leaf_cells():

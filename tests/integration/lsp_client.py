@@ -13,7 +13,6 @@ from pygls.uris import from_fs_path
 from pytest_lsp import LanguageClient
 from pytest_lsp.client import DEFAULT_CLIENT_FEATURES, register_lsp_features
 
-
 SERVER = [sys.executable, "-m", "latchwatch", "serve"]
 
 # An n-well with one contacted n-tap at its left end (x -3..-1) and a loop drawing three

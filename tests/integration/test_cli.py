@@ -11,6 +11,7 @@ from pathlib import Path
 
 import gdstk
 import pytest
+
 from builders import FAR_SCRIPT
 
 FLOATING = '''import gdstk

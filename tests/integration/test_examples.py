@@ -17,6 +17,7 @@ import sys
 from pathlib import Path
 
 import pytest
+
 from locations import ROOT
 
 EXAMPLES = ROOT / "examples"
@@ -38,7 +39,7 @@ def run_check(script: Path, cwd: Path) -> tuple[int, dict, str]:
     return proc.returncode, json.loads(proc.stdout), proc.stderr
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def check_example(name: str) -> tuple[int, dict]:
     status, report, _ = run_check(Path("examples") / name, ROOT)
     return status, report

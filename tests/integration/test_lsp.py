@@ -18,9 +18,19 @@ from pathlib import Path
 from lsprotocol import types
 from pygls.uris import from_fs_path
 
+from lsp_client import (
+    CELL,
+    CLEAN,
+    FAILING,
+    LOOP_LINE,
+    SERVER,
+    TAP_LINE,
+    capabilities,
+    make_project,
+    trusted,
+    wait_until,
+)
 from procs import processes_with as running_processes_with
-
-from lsp_client import CELL, CLEAN, FAILING, LOOP_LINE, SERVER, TAP_LINE, capabilities, make_project, trusted, wait_until
 
 
 async def test_open_publishes_merged_diagnostic_with_related_information(tmp_path, session):
@@ -304,7 +314,8 @@ def test_malformed_messages_get_error_responses(tmp_path, env):
     server = subprocess.Popen(SERVER, stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL,
                               env=env, bufsize=0)
     try:
-        send = lambda payload: server.stdin.write(frame(payload if isinstance(payload, bytes) else json.dumps(payload).encode()))
+        def send(payload):
+            return server.stdin.write(frame(payload if isinstance(payload, bytes) else json.dumps(payload).encode()))
         send({"jsonrpc": "2.0", "id": 1, "method": "initialize",
               "params": {"processId": None, "rootUri": None, "capabilities": {}}})
         assert "capabilities" in read_response(server.stdout, 1)["result"]

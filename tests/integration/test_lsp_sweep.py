@@ -10,8 +10,8 @@ import textwrap
 
 from lsprotocol import types
 
-from lsp_client import capabilities, trusted, wait_until
 from builders import DIFFUSION_LINE, GENERATOR, RAISE_LINE
+from lsp_client import capabilities, trusted, wait_until
 
 SWEEP = textwrap.dedent('''\
     [[sweep]]

@@ -8,8 +8,8 @@ import sys
 from pathlib import Path
 
 import pytest
-from locations import ROOT
 
+from locations import ROOT
 
 BAD = '''import gdstk
 lib = gdstk.Library()

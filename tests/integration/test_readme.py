@@ -7,6 +7,7 @@ import sys
 
 from latchwatch.analyzers.rules import RULES
 from latchwatch.server.cli.main import CAUTION
+
 from locations import ROOT
 
 README = (ROOT / "README.md").read_text(encoding="utf-8")

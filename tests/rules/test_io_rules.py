@@ -3,13 +3,14 @@ published GF180MCU I/O values (gf180mcu-pdk design manual, section 14.3)."""
 
 import pytest
 
-from builders import ACTIVE, CONTACT, METAL1, NPLUS, NWELL, POLY, PPLUS, CellBuilder, layout, outcome
 from latchwatch.analyzers.check import check_outcome
 from latchwatch.analyzers.context import CheckOptions
 from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.rules import RULES_BY_ID
 from latchwatch.analyzers.technology.model import technology_from_mapping
 from latchwatch.server.config.techfiles import load_technology
+
+from builders import ACTIVE, CONTACT, METAL1, NPLUS, NWELL, POLY, PPLUS, CellBuilder, layout, outcome
 
 M1_LABEL, IO_MARKER = (7, 5), (12, 0)
 # GF180MCU drawn layers (design manual, tables_clear/06_Drawn_layer10.csv) and the

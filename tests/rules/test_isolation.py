@@ -3,13 +3,14 @@
 
 import pytest
 
-from builders import ACTIVE, CONTACT, NPLUS, NWELL, PPLUS, CellBuilder, layout, outcome
 from latchwatch.analyzers.check import check_outcome
 from latchwatch.analyzers.context import CheckOptions
 from latchwatch.analyzers.extraction.extract import SUBSTRATE, extract, pwell_body
 from latchwatch.analyzers.layout.flatten import flatten
 from latchwatch.analyzers.rules import RULES_BY_ID
 from latchwatch.server.config.techfiles import load_technology
+
+from builders import ACTIVE, CONTACT, NPLUS, NWELL, PPLUS, CellBuilder, layout, outcome
 
 DEEP_NWELL, PWELL = (10, 0), (11, 0)  # demo.toml
 

@@ -3,9 +3,10 @@ farthest point is exactly at the limit passes, 0.01 um beyond fails."""
 
 import pytest
 
-from builders import CellBuilder, layout, outcome
 from latchwatch.analyzers.check import CheckOptions, check_outcome
 from latchwatch.server.config.techfiles import load_technology
+
+from builders import CellBuilder, layout, outcome
 
 # (preset, kind, published limit, where it is published)
 PUBLISHED = [

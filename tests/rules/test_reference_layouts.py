@@ -4,14 +4,15 @@ own flattening, shapely unions for the wells, and dense sampling for the distanc
 
 from __future__ import annotations
 
+import gdstk
 import numpy as np
 import shapely
-from hypothesis import HealthCheck, given, settings, strategies as st
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
-import gdstk
 from latchwatch.analyzers.check import CheckOptions, check_outcome
-from latchwatch.server.sandbox.runner import read_layout_file
 from latchwatch.server.config.techfiles import load_technology
+from latchwatch.server.sandbox.runner import read_layout_file
 
 NWELL, ACTIVE, NPLUS, PPLUS, CONTACT = 1, 2, 4, 5, 6
 STEP = 0.1  # um, the reference's sampling grid

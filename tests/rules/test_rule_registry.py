@@ -44,11 +44,11 @@ def test_run_rules_judge_the_run_and_layout_rules_the_layout():
 
 
 def test_each_rule_runs_once_per_run_or_top_cell(monkeypatch):
-    from builders import NWELL, CellBuilder, layout, outcome
-
     from latchwatch.analyzers import check as check_module
     from latchwatch.analyzers.rules import Scope
     from latchwatch.server.config.techfiles import load_technology
+
+    from builders import NWELL, CellBuilder, layout, outcome
 
     calls = []
     real = check_module._checked

@@ -14,6 +14,7 @@ from pathlib import Path
 
 import gdstk
 import pytest
+
 from builders import FAR_SCRIPT
 
 FAR = FAR_SCRIPT

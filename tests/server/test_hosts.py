@@ -16,8 +16,8 @@ from pathlib import Path
 import pytest
 
 from latchwatch.server.sandbox import hosts
-from latchwatch.server.sandbox.runner import run_script
 from latchwatch.server.sandbox.policy import SandboxSettings
+from latchwatch.server.sandbox.runner import run_script
 from latchwatch.server.sandbox.workers import WorkerKey, inspect_sandbox
 
 

@@ -7,7 +7,15 @@ from pathlib import Path
 import pytest
 
 from latchwatch.analyzers.model.findings import Severity
-from latchwatch.server.lsp.settings import EditorSettings, SettingsError, TechnologyCache, document_settings, merge, section_of, trust_root
+from latchwatch.server.lsp.settings import (
+    EditorSettings,
+    SettingsError,
+    TechnologyCache,
+    document_settings,
+    merge,
+    section_of,
+    trust_root,
+)
 
 
 def test_section_wrapped_or_bare():

@@ -6,7 +6,14 @@ from pathlib import Path
 import pytest
 
 from latchwatch.analyzers.model.findings import Severity
-from latchwatch.server.config.project import ConfigError, ProjectConfig, SweepSpec, expand_includes, find_project_config, load_project_config
+from latchwatch.server.config.project import (
+    ConfigError,
+    ProjectConfig,
+    SweepSpec,
+    expand_includes,
+    find_project_config,
+    load_project_config,
+)
 
 KNOWN = {"tap-distance", "tap-supply", "shunt-resistance", "floating-well"}
 

@@ -7,8 +7,8 @@ import numpy as np
 
 import latchwatch
 from latchwatch.analyzers.model.findings import Device, Finding, Frame, Placement, Related, Severity
-from latchwatch.server.report.model import Report, RunSummary
 from latchwatch.server.report.as_json import render_json, report_to_dict
+from latchwatch.server.report.model import Report, RunSummary
 
 MESSAGE = "P+ diffusion is 21.02 um from the nearest n-well tap (limit 20.00 um)"
 
@@ -153,8 +153,8 @@ def test_render_json_is_the_dict_as_json(tmp_path):
 
 
 def test_run_names_the_function_a_corner_called():
-    from latchwatch.server.report.model import RunSummary
     from latchwatch.server.report.as_json import run_to_dict
+    from latchwatch.server.report.model import RunSummary
 
     plain_run = RunSummary("a.py", None, "ok", 0.1, 1, 4, {})
     called = RunSummary("a.py", {"fingers": 16}, "ok", 0.1, 1, 4, {}, function="finger_array")

@@ -9,8 +9,9 @@ import pytest
 import latchwatch
 from latchwatch.analyzers.model.findings import Finding, Frame, Placement, Related, Severity
 from latchwatch.analyzers.rules.base import Rule, RuleDoc
-from latchwatch.server.report.model import Report, RunSummary
 from latchwatch.server.report.as_sarif import render_sarif
+from latchwatch.server.report.model import Report, RunSummary
+
 from locations import DATA
 
 jsonschema = pytest.importorskip("jsonschema")

@@ -3,8 +3,8 @@
 import re
 
 from latchwatch.analyzers.model.findings import Finding, Severity
-from latchwatch.server.report.model import Report, RunSummary
 from latchwatch.server.report.as_text import render_text
+from latchwatch.server.report.model import Report, RunSummary
 
 # The GNU "file:line:column: severity: message" form compilers print and editors
 # (compilation buffers, quickfix lists) parse; common practice.

@@ -15,6 +15,7 @@ import pytest
 from latchwatch.server.child import stacks
 from latchwatch.server.sandbox import runner
 from latchwatch.server.sandbox.runner import RunnerError, run_script
+
 from procs import processes_with as _processes_with
 
 linux_only = pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")

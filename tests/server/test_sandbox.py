@@ -18,9 +18,10 @@ from pathlib import Path
 import pytest
 
 from latchwatch.server.sandbox import runner
-from latchwatch.server.sandbox.runner import run_script
 from latchwatch.server.sandbox.policy import REQUIRED, SandboxReport, SandboxSettings
+from latchwatch.server.sandbox.runner import run_script
 from latchwatch.server.sandbox.workers import inspect_sandbox
+
 from procs import processes_with as _processes_with
 
 linux_only = pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")
@@ -76,7 +77,7 @@ def listener():
 def _accepted(server) -> bool:
     try:
         connection, _ = server.accept()
-    except (socket.timeout, OSError):
+    except (TimeoutError, OSError):
         return False
     connection.close()
     return True

@@ -22,16 +22,14 @@ from pathlib import Path
 
 import pytest
 
-from builders import DIFFUSION_LINE, GENERATOR, RAISE_LINE
-
-from latchwatch.server.runs import batch as sweep
-
-from latchwatch.server.runs import plan
 from latchwatch.server.config import techfiles
-from latchwatch.server.runs.pipeline import CheckSettings
 from latchwatch.server.config.project import ProjectConfig, SweepSpec, load_project_config
 from latchwatch.server.report.as_json import report_to_dict
+from latchwatch.server.runs import batch as sweep
+from latchwatch.server.runs import plan
+from latchwatch.server.runs.pipeline import CheckSettings
 
+from builders import DIFFUSION_LINE, GENERATOR, RAISE_LINE
 
 
 @pytest.fixture

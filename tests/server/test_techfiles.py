@@ -9,7 +9,14 @@ from pathlib import Path
 import pytest
 
 from latchwatch.analyzers.technology.model import TechnologyError
-from latchwatch.server.config.techfiles import builtin_names, describe_technology, load_technology, tech_check_command, tech_list_command, tech_show_command
+from latchwatch.server.config.techfiles import (
+    builtin_names,
+    describe_technology,
+    load_technology,
+    tech_check_command,
+    tech_list_command,
+    tech_show_command,
+)
 
 PRESETS = ("demo", "gf180mcu", "sg13g2", "sky130")
 

@@ -30,7 +30,7 @@ def test_round_trip_keeps_every_array_exactly():
     direct = wire.layout_from_parts(header, arrays)
     assert [c.name for c in layout.cells] == ["TOP", "UNIT"]
     assert layout.source == "sample" and layout.unit == 1e-6
-    for decoded, expected in zip(layout.cells, direct.cells):
+    for decoded, expected in zip(layout.cells, direct.cells, strict=False):
         for field in wire_format.FIELDS:
             got, want = getattr(decoded, field), getattr(expected, field)
             assert got.dtype == want.dtype and got.shape == want.shape, field
