@@ -15,7 +15,6 @@ import os
 import sys
 import threading
 import traceback
-import uuid
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -34,6 +33,7 @@ from latchwatch.server.config.project import ConfigError
 from latchwatch.server.config.trust import TrustStoreError, is_trusted
 from latchwatch.server.lsp import convert as convert
 from latchwatch.server.lsp.documents import RunScheduler
+from latchwatch.server.lsp.progress import Progress
 from latchwatch.server.lsp.settings import (
     SECTION,
     DocumentSettings,
@@ -52,7 +52,6 @@ from latchwatch.server.runs.suppression import add_suppression
 from latchwatch.server.sandbox.runner import RunnerError
 
 logger = logging.getLogger("latchwatch.lsp")
-PROGRESS_AFTER_S = 1.0  # runs shorter than this show no progress
 CONFIGURATION_TIMEOUT_S = 2.0
 IGNORED = object()  # a message answered with an error while it was being decoded
 
@@ -340,57 +339,6 @@ def rule_doc_file(rule: str) -> str | None:
     except OSError:
         return None
     return from_fs_path(str(target))
-
-
-class Progress:
-    """Work-done progress for a run that takes longer than PROGRESS_AFTER_S, when the
-    client advertises support for it; runs of several corners report how many are done."""
-
-    def __init__(self, server: LatchwatchServer, title: str):
-        self.server, self.title, self.token, self.timer = server, title, None, None
-        self.loop = None
-        self.counts: tuple[int, int] | None = None  # runs done, runs in all
-
-    async def __aenter__(self):
-        self.loop = asyncio.get_running_loop()
-        if self.server._client_can("window.work_done_progress"):
-            self.timer = asyncio.ensure_future(self._begin_later())
-        return self
-
-    async def _begin_later(self):
-        await asyncio.sleep(PROGRESS_AFTER_S)
-        token = f"latchwatch-{uuid.uuid4()}"
-        await self.server.work_done_progress.create_async(token)
-        self.token = token
-        self.server.work_done_progress.begin(token, types.WorkDoneProgressBegin(
-            title="latchwatch", message=self.message(), percentage=self.percentage(),
-            cancellable=False))
-
-    def message(self) -> str:
-        if self.counts is None or self.counts[1] < 2:
-            return self.title
-        return f"{self.title}: {self.counts[0]} of {self.counts[1]} corners"
-
-    def percentage(self) -> int | None:
-        return None if self.counts is None or self.counts[1] < 2 else 100 * self.counts[0] // self.counts[1]
-
-    def runs_done(self, done: int, total: int) -> None:
-        """Called from the worker thread as each run finishes."""
-        if self.loop is not None:
-            self.loop.call_soon_threadsafe(self._report, done, total)
-
-    def _report(self, done: int, total: int) -> None:
-        self.counts = (done, total)
-        if self.token is not None and total > 1:
-            self.server.work_done_progress.report(self.token, types.WorkDoneProgressReport(
-                message=self.message(), percentage=self.percentage()))
-
-    async def __aexit__(self, *exc):
-        if self.timer is not None:
-            self.timer.cancel()
-        if self.token is not None:
-            self.server.work_done_progress.end(self.token, types.WorkDoneProgressEnd(message="done"))
-        return False
 
 
 def create_server() -> LatchwatchServer:
