@@ -9,7 +9,7 @@ import numpy as np
 from latchwatch.analyzers.model.captured import CapturedCell, CapturedLayout
 from latchwatch.analyzers.model.findings import Frame
 
-# The demo technology's layers (server/technologies/demo.toml).
+# The demo technology's layers (server/config/technologies/demo.toml).
 NWELL, ACTIVE, POLY, NPLUS, PPLUS, CONTACT, METAL1 = (1, 0), (2, 0), (3, 0), (4, 0), (5, 0), (6, 0), (7, 0)
 
 

@@ -5,7 +5,7 @@ Bodies and their sheets: each n-well (``nwell_sheet``), each isolated p-well
 and depth (technology.Electrical.sheet). The substrate is a sheet over the layout's
 extent plus SUBSTRATE_MARGIN with every n-well, deep n-well and isolated p-well cut
 out. Contacted taps of the body are the grounded electrodes; the device diffusion is
-the other one (analyzers/sheet.py solves the sheet).
+the other one (analyzers/electrical/sheet.py solves the sheet).
 
 A body whose grid stays small is solved whole: one factorization for all its devices.
 Larger bodies are solved in a window around each device, reaching WINDOW_REACH times

@@ -1,4 +1,4 @@
-"""Nets: conductors joined through the cuts of ``[connectivity] stack`` (DESIGN 5.4).
+"""Nets: conductors joined through the cuts of ``[connectivity] stack`` (docs/technology.md).
 
 Conductors are the diffusion pieces of the extraction, poly and every metal role the
 stack names. A device diffusion is cut by the poly that crosses it, so a transistor's

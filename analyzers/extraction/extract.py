@@ -1,4 +1,4 @@
-"""From layer shapes to wells, device diffusions and taps (DESIGN 5.4).
+"""From layer shapes to wells, device diffusions and taps (docs/technology.md).
 
 Without a ``tap`` layer: active & nplus inside an n-well is an n-tap, active & pplus
 outside every n-well is a p-tap, active & pplus inside an n-well is a P+ device

@@ -1,4 +1,4 @@
-"""Net names, supply classes and pad-connected devices (DESIGN 5.4 [labels], [nets]).
+"""Net names, supply classes and pad-connected devices (docs/technology.md [labels], [nets]).
 
 A label on a ``[labels]`` text layer names the net of the conductor of that role under
 its origin (a point on the conductor's edge counts). Label text is matched against the

@@ -1,4 +1,4 @@
-"""Which source line a finding points at (DESIGN 6).
+"""Which source line a finding points at (docs/provenance.md).
 
 User frames are frames in files under the project root, outside site-packages and
 the standard library. The anchor of a shape is its innermost user frame whose line is

@@ -2,8 +2,8 @@
 
 The layout is kept hierarchical and array-shaped: one ``CapturedCell`` per cell with
 numpy arrays of its polygons, labels and references, and a table of interned stacks.
-The child process builds it from gdstk objects (server/probe.py), the wire format
-ships it, and analyzers/flatten.py expands it.
+The child process builds it from gdstk objects (server/child/job.py), the wire format
+ships it, and analyzers/layout/flatten.py expands it.
 """
 
 from __future__ import annotations

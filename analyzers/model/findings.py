@@ -87,7 +87,7 @@ class Finding:
         return replace(self, severity=severity)
 
     def sort_key(self):
-        """DESIGN 5.2 order: file, line, rule, then location."""
+        """docs/report-json.md order: file, line, rule, then location."""
         return (
             self.file or "",
             self.line if self.line is not None else 0,
@@ -98,7 +98,7 @@ class Finding:
 
 @dataclass(frozen=True)
 class Device:
-    """One row of the per-device table (DESIGN 5.2, ``--devices``)."""
+    """One row of the per-device table (docs/report-json.md, ``--devices``)."""
 
     kind: str  # "pdiff" (P+ device diffusion in an n-well) or "ndiff" (N+ in the p-body)
     cell: str | None

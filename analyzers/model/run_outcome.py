@@ -35,7 +35,7 @@ class RunOutcome:
     layout: CapturedLayout | None  # None unless status == "ok"
     failure: ScriptFailure | None  # None when status == "ok"
     output: str  # the script's stdout and stderr, capped, with a note of what was dropped
-    sandbox: dict  # DESIGN 5.2 run "sandbox" entry: only protections really applied
+    sandbox: dict  # docs/report-json.md run "sandbox" entry: only protections really applied
     corner: dict | None = None
 
     def __post_init__(self):

@@ -1,4 +1,4 @@
-"""The rule registry: an explicit tuple, in catalogue order (DESIGN 5.7)."""
+"""The rule registry: an explicit tuple, in catalogue order (docs/rules.md)."""
 
 from __future__ import annotations
 

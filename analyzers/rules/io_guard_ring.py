@@ -1,5 +1,5 @@
 """io-guard-ring: a pad-connected diffusion without a closed guard ring of the right
-type, width and distance (DESIGN 5.7; geometry in analyzers/rings.py)."""
+type, width and distance (docs/rules.md; geometry in analyzers/extraction/rings.py)."""
 
 from __future__ import annotations
 

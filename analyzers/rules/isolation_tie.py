@@ -1,5 +1,5 @@
 """isolation-tie: a deep n-well not tied through a contacted n-tap in an n-well touching
-it, or an isolated p-well with no contacted p-tap (isolation in analyzers/extract.py)."""
+it, or an isolated p-well with no contacted p-tap (isolation in analyzers/extraction/extract.py)."""
 
 from __future__ import annotations
 

@@ -1,6 +1,6 @@
 """shunt-resistance: the estimated well or substrate resistance from a device to its taps
 is so high that less than the current the device must withstand forward-biases its
-junction (the estimate is analyzers/shunt.py on the sheet model of analyzers/sheet.py)."""
+junction (the estimate is analyzers/electrical/shunt.py on the sheet model of analyzers/electrical/sheet.py)."""
 
 from __future__ import annotations
 

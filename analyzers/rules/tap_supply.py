@@ -1,5 +1,5 @@
 """tap-supply: an n-tap not on a power net or a p-tap not on a ground net, and a net
-labelled with two different supply names (nets in analyzers/nets.py)."""
+labelled with two different supply names (nets in analyzers/extraction/nets.py)."""
 
 from __future__ import annotations
 

@@ -1,4 +1,4 @@
-"""The technology model (DESIGN 5.4): layer roles, connectivity, nets, rule limits
+"""The technology model (docs/technology.md): layer roles, connectivity, nets, rule limits
 and electrical parameters, validated from an already-parsed mapping.
 
 Reading TOML files and resolving ``extends`` belong to latchwatch.server.config.techfiles;
@@ -100,7 +100,7 @@ class SpacingLimit:
 class Electrical:
     """Parameters of the physics estimate; unset sheet values mean "not known"."""
 
-    vbe_on: float = 0.7  # V; common practice in latch-up work (DESIGN 2)
+    vbe_on: float = 0.7  # V; common practice in latch-up work (docs/physics.md)
     nwell_sheet: float | None = None  # ohm/sq
     psub_sheet: float | None = None  # ohm/sq, the substrate treated as a sheet
     injection_current: float = 0.1  # A a pad-connected device must withstand
@@ -112,7 +112,7 @@ class Electrical:
     core_current: float = 1e-4
     sheet_grid: float | None = None  # um, largest cell of the sheet model's grid; None: adaptive
     # Doping (cm^-3) and depth (um) of a uniformly doped layer: the sheet resistance then
-    # follows from the Masetti mobility model (analyzers/mobility.py) when *_sheet is unset.
+    # follows from the Masetti mobility model (analyzers/electrical/mobility.py) when *_sheet is unset.
     nwell_doping: float | None = None
     nwell_depth: float | None = None
     pwell_doping: float | None = None

@@ -1,4 +1,4 @@
-"""The ``latchwatch`` command line (DESIGN 5.1)."""
+"""The ``latchwatch`` command line (docs/command-line.md)."""
 
 from __future__ import annotations
 

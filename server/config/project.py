@@ -1,4 +1,4 @@
-"""Project configuration (DESIGN 5.5).
+"""Project configuration (docs/project.md).
 
 Where it is read from, walking up from the checked script's folder, nearest first:
 
@@ -11,7 +11,7 @@ Both in one folder is an error rather than a silent choice. Paths in the file (a
 ``tech`` file, ``python``, sweep scripts) are relative to the file's folder and are
 stored resolved; a bare interpreter name such as ``python3`` and a built-in
 technology name are kept as written. No key grants trust: trust comes only from
-``latchwatch trust`` or an editor setting (DESIGN 7). ``require-sandbox = true`` can
+``latchwatch trust`` or an editor setting (docs/sandbox.md). ``require-sandbox = true`` can
 only tighten: it makes a missing sandbox protection an error for every run of the
 project; ``false`` does not undo the command-line flag or the editor setting.
 """

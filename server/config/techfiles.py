@@ -1,5 +1,5 @@
 """Technology files on disk: reading TOML, resolving ``extends``, the built-in
-presets, and the ``latchwatch tech list | show | check`` commands (DESIGN 5.1, 5.4).
+presets, and the ``latchwatch tech list | show | check`` commands (docs/command-line.md, docs/technology.md).
 
 Validation itself is latchwatch.analyzers.technology; this module only finds and
 parses files and turns every problem into a TechnologyError naming the file.

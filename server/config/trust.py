@@ -1,4 +1,4 @@
-"""The trust store (DESIGN 7): the folders whose scripts the language server may run.
+"""The trust store (docs/sandbox.md): the folders whose scripts the language server may run.
 
 The store lives in the user's configuration directory, never in a project:
 ``$XDG_CONFIG_HOME/latchwatch/trusted.json`` when XDG_CONFIG_HOME is set to an absolute
@@ -124,7 +124,7 @@ def is_trusted(path: Path | str, editor_folders: Iterable[str] = (), store: Path
 
 def trust_command(path: str | None, list_: bool, remove: str | None,
                   out: TextIO = sys.stdout, err: TextIO = sys.stderr) -> int:
-    """``latchwatch trust [PATH] | --list | --remove PATH``; exit status as DESIGN 5.1."""
+    """``latchwatch trust [PATH] | --list | --remove PATH``; exit status as docs/command-line.md."""
     store = store_path()
     try:
         if list_:

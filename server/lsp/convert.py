@@ -1,4 +1,4 @@
-"""Findings to LSP diagnostics and hovers (DESIGN 6, 8). Pure conversion, no I/O:
+"""Findings to LSP diagnostics and hovers (docs/provenance.md, docs/language-server.md). Pure conversion, no I/O:
 source lines come in through ``read_line``.
 
 - Findings that share an anchor line and a rule become one diagnostic: "2 of 5 P+
@@ -7,7 +7,7 @@ source lines come in through ``read_line``.
   checked document at its outermost frame there (the call that led to the drawing).
 - relatedInformation: the nearest tap at the line that drew it, the call sites, the
   reference placements.
-- Columns: frames carry 1-based columns in code points (server/probe.py converts
+- Columns: frames carry 1-based columns in code points (server/child/job.py converts
   CPython's UTF-8 byte offsets); they are converted to the negotiated position
   encoding, UTF-16 unless the client chose another.
 - Several runs of one document (parameter corners, previewed functions) merge per
@@ -174,7 +174,7 @@ def _count_phrase(group: Group, devices: DeviceIndex) -> str | None:
 
 def _figure(value: float, unit: str | None) -> str:
     """Lengths with 2 decimals (the unit follows the list); electrical values with 3
-    significant figures and their unit (DESIGN 9)."""
+    significant figures and their unit (docs/performance.md)."""
     return f"{value:.2f}" if unit in (None, "um") else si(value, unit)
 
 

@@ -1,4 +1,4 @@
-"""When each open document runs (DESIGN 8): debounced on change, at once on open and
+"""When each open document runs (docs/language-server.md): debounced on change, at once on open and
 save, one run per document at a time, a newer version superseding the older one.
 
 Superseding sets the older run's cancel event (the runner then kills the child's

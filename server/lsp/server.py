@@ -1,9 +1,9 @@
-"""``latchwatch serve``: the language server (DESIGN 8) on pygls.
+"""``latchwatch serve``: the language server (docs/language-server.md) on pygls.
 
 A thin front end: a run is ``pipeline.run_path`` + ``pipeline.check_run``, the same
 two calls ``latchwatch check`` makes, done in a worker thread so the server keeps
 answering; documents.py decides when runs happen, lsp_settings.py what they run
-with, lsp_convert.py what the editor is sent.
+with, convert.py what the editor is sent.
 """
 
 from __future__ import annotations
@@ -57,7 +57,7 @@ IGNORED = object()  # a message answered with an error while it was being decode
 
 
 class LatchwatchProtocol(LanguageServerProtocol):
-    """pygls' protocol, answering bad input instead of dropping it (DESIGN 8)."""
+    """pygls' protocol, answering bad input instead of dropping it (docs/language-server.md)."""
 
     @lsp_method(types.INITIALIZE)
     def lsp_initialize(self, params: types.InitializeParams):
@@ -435,7 +435,7 @@ def hover_at(ls: LatchwatchServer, uri: str, line: int):
 
 def suppression_actions(ls: LatchwatchServer, params: types.CodeActionParams) -> list[types.CodeAction]:
     """Per latchwatch diagnostic in range: suppress its rule on its line; per line: suppress
-    every latchwatch finding there (DESIGN 5.6)."""
+    every latchwatch finding there (docs/suppression.md)."""
     uri = params.text_document.uri
     document = ls.workspace.get_text_document(uri)
     lines = document.lines

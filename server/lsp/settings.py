@@ -1,6 +1,6 @@
 """Editor settings of the language server, and the check settings of one document.
 
-Precedence (DESIGN 5.5): editor settings over the project file over the defaults.
+Precedence (docs/project.md): editor settings over the project file over the defaults.
 Editor settings arrive in initializationOptions, in workspace/didChangeConfiguration
 and from workspace/configuration (section ``latchwatch``, asked per document so that
 each folder of a multi-root workspace can differ); later sources override earlier

@@ -1,4 +1,4 @@
-"""JSON report, schema "latchwatch-report/1" (DESIGN 5.2). Keys and their order are
+"""JSON report, schema "latchwatch-report/1" (docs/report-json.md). Keys and their order are
 the contract; a value the checker does not know is null."""
 
 from __future__ import annotations
@@ -94,7 +94,7 @@ def run_to_dict(run: RunSummary) -> dict:
         "sandbox": plain(run.sandbox),
     }
     if run.function is not None:
-        # An added key (DESIGN 5.2 extended compatibly): which function a corner called.
+        # An added key (docs/report-json.md extended compatibly): which function a corner called.
         entry["function"] = run.function
     return entry
 

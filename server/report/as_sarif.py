@@ -1,4 +1,4 @@
-"""SARIF 2.1.0 report (DESIGN 5.3): one run, the rule catalogue as the driver's rules,
+"""SARIF 2.1.0 report (docs/sarif.md): one run, the rule catalogue as the driver's rules,
 one result per finding.
 
 Paths inside the base folder are written relative, against the uriBaseId

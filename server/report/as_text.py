@@ -1,4 +1,4 @@
-"""Plain-text report: one finding a line in the GNU form editors parse (DESIGN 5.1).
+"""Plain-text report: one finding a line in the GNU form editors parse (docs/command-line.md).
 
     path:line:col: severity: message [rule-id]
     path: severity: message (cell CELL at x, y) [rule-id]      no line (GDSII/OASIS input)

@@ -1,5 +1,5 @@
 """The report record every output format renders: runs, findings, optional device
-table and the rule catalogue the run used (DESIGN 5.2, 5.3)."""
+table and the rule catalogue the run used (docs/report-json.md, docs/sarif.md)."""
 
 from __future__ import annotations
 
@@ -67,7 +67,7 @@ def _localize_finding(finding: Finding, base: Path | None) -> Finding:
 
 def for_display(report: Report, base: Path | None = None) -> Report:
     """The report as every format prints it: paths relative to ``base`` where inside
-    it, findings in DESIGN 5.2 order (sorted after the paths are shortened, so the
+    it, findings in docs/report-json.md order (sorted after the paths are shortened, so the
     order is the one the reader sees)."""
     findings = sorted((_localize_finding(f, base) for f in report.findings), key=Finding.sort_key)
     runs = tuple(replace(r, script=display_path(r.script, base)) for r in report.runs)

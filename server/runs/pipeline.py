@@ -33,7 +33,7 @@ class CheckSettings:
     devices: bool = False
     project_root: Path | None = None
     require_sandbox: bool = False  # a missing sandbox protection is an error (SandboxUnavailable), not a fallback
-    hosted: bool = False  # runs are forks of corner hosts (server/hosts.py): many runs, the same settings
+    hosted: bool = False  # runs are forks of corner hosts (server/sandbox/hosts.py): many runs, the same settings
 
 
 def is_checkable(path: Path) -> bool:

@@ -1,6 +1,6 @@
 """What a check runs: each script's tasks (a plain run, parameter corners, previews).
 
-Parameter corners (DESIGN 5.5) run a generator function over its parameter grid, each
+Parameter corners (docs/project.md) run a generator function over its parameter grid, each
 corner its own sandboxed run; server/runs/batch.py runs the tasks. Shared by
 ``latchwatch check`` and the language server.
 

@@ -1,4 +1,4 @@
-"""Suppression comments (DESIGN 5.6).
+"""Suppression comments (docs/suppression.md).
 
 ``# latchwatch: ignore[rule-id, rule-id]`` or ``# latchwatch: ignore`` (every rule)
 at the end of a line suppresses every finding whose stack passes through that

@@ -2,15 +2,15 @@
 
 A parameter sweep calls the same function of the same script dozens of times; a fresh
 interpreter for each call spends most of its time importing numpy and gdstk. A host
-is a Worker (server/workers.py) started with a socket: it confines itself exactly as
+is a Worker (server/sandbox/workers.py) started with a socket: it confines itself exactly as
 a worker does, imports gdstk once, and then, for every job it receives, forks a child
 that starts its own session, gets a run folder of its own with a Landlock layer on it,
-reports its sandbox and runs the job (server/sandbox_child.py, serve_jobs). When the
+reports its sandbox and runs the job (server/child/host.py, serve_jobs). When the
 child ends the host kills whatever it left behind, removes its folder and writes its
 exit code to the job's status pipe. Nothing a job does reaches the next one: each is
 forked from the host, which never runs a script itself.
 
-A HostedJob is what server/runner.py supervises, with the same members as a Worker.
+A HostedJob is what server/sandbox/runner.py supervises, with the same members as a Worker.
 HOSTS keeps idle hosts per (worker key, folders to read), at most one per core for at
 most two keys, retires a host after RETIRE_AFTER jobs (its own CPU-time limit counts
 every fork and wait) and ends one idle for longer than IDLE_LIMIT at the next take.
@@ -92,7 +92,7 @@ class Host:
 
 
 class HostedJob:
-    """One job in a child of a host; what server/runner.py supervises, as it does a Worker."""
+    """One job in a child of a host; what server/sandbox/runner.py supervises, as it does a Worker."""
 
     def __init__(self, host: Host, serial: int):
         self.host = host

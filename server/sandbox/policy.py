@@ -1,8 +1,8 @@
 """The sandbox of a script run, parent side: what is asked for, and what was applied.
 
-The child (server/sandbox_child.py) applies each protection it can and reports one
+The child (server/child/boot.py) applies each protection it can and reports one
 record: the protections in force with a detail, the missing ones with the reason.
-This module turns that record into the run's ``sandbox`` entry (DESIGN 5.2), which
+This module turns that record into the run's ``sandbox`` entry (docs/report-json.md), which
 claims nothing the child did not report, and into the lines of ``latchwatch doctor``.
 With ``require`` set, a missing protection of REQUIRED is an error instead of a
 fallback (the runner raises SandboxUnavailable before the script runs).

@@ -1,6 +1,6 @@
 """Runs a layout script in a child process and turns what happens into a RunOutcome.
 
-The child (server/workers.py) confines itself (server/sandbox_child.py), imports gdstk
+The child (server/sandbox/workers.py) confines itself (server/child/boot.py), imports gdstk
 and waits for its job, which this module sends once the child's sandbox report has
 arrived: a required sandbox with a protection missing stops here, before the script
 runs. Geometry comes back over a dedicated pipe, the script's prints over another,
@@ -9,9 +9,9 @@ whole process group is ended, and again after every run; the child's keeper ends
 whatever escaped the group (a PID namespace, or a sweep as child subreaper).
 
 The child is a fresh worker or (``hosted``) a fork of a corner host that has gdstk
-imported already (server/hosts.py); this module supervises both through the same members.
+imported already (server/sandbox/hosts.py); this module supervises both through the same members.
 
-A job is a JSON object (server/probe.py, options_from_job): a plain run, or a
+A job is a JSON object (server/child/job.py, options_from_job): a plain run, or a
 function call of a parameter corner; another kind of job needs only a new key there
 and a new keyword here.
 """
@@ -72,7 +72,7 @@ def run_script(path: str | Path, *, source: str | None = None, python: str | Non
     ``function(**kwargs)`` returns (kwargs JSON values); a return value that is no
     layout is a script error, or an empty capture with ``accept_non_layout``.
     ``hosted`` runs the job in a child forked from a corner host that has gdstk
-    imported (server/hosts.py): for runs that repeat with the same settings (a sweep's
+    imported (server/sandbox/hosts.py): for runs that repeat with the same settings (a sweep's
     corners, many scripts, an editor's edits). ``require_sandbox``
     makes a missing protection an error; ``skip_protections`` (sandbox.SKIPPABLE)
     leaves mechanisms out, as on a machine without them.

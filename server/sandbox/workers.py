@@ -1,11 +1,11 @@
 """Started children that wait for one job each.
 
-A Worker is ``python -I server/sandbox_child.py CONFIG`` in a fresh temporary folder:
+A Worker is ``python -I server/child/start.py CONFIG`` in a fresh temporary folder:
 its own session and process group, standard input on /dev/null, an allow-listed
 environment, and three pipes (result and control from the child, the job to it).
-The child confines itself, imports gdstk and waits; server/runner.py sends the job and
+The child confines itself, imports gdstk and waits; server/sandbox/runner.py sends the job and
 supervises the run. A worker runs one job and ends: a child that ran a script is never
-used again. A worker started with a socket is a corner host instead (server/hosts.py),
+used again. A worker started with a socket is a corner host instead (server/sandbox/hosts.py),
 which forks a child per job it receives.
 """
 
@@ -48,7 +48,7 @@ def child_environment(temp_dir: Path) -> dict[str, str]:
     env.setdefault("PATH", os.defpath)
     # One BLAS thread unless the user asks for more: a layout script does little linear
     # algebra, a thread pool costs each child start-up CPU and address space, and a
-    # corner host (server/hosts.py) must have no threads when it forks.
+    # corner host (server/sandbox/hosts.py) must have no threads when it forks.
     for name in _THREAD_NAMES:
         env[name] = os.environ.get(name, "1")
     for name in ("TMPDIR", "TMP", "TEMP"):
@@ -87,7 +87,7 @@ class Worker:
     def start(cls, key: WorkerKey, needs_reading: list[str], host_fd: int | None = None) -> Worker:
         """Start the child; raises RunnerError when the interpreter cannot be started.
 
-        With ``host_fd`` (a socket) the child is a corner host (server/hosts.py): it runs
+        With ``host_fd`` (a socket) the child is a corner host (server/sandbox/hosts.py): it runs
         no job of its own and forks a child per job it receives there."""
         work = Path(tempfile.mkdtemp(prefix="latchwatch-run-"))
         result_r, result_w = os.pipe()
@@ -116,7 +116,7 @@ class Worker:
             os.close(fd)
         return cls(key, process, work, result_r, control_r, job_w)
 
-    # What server/runner.py supervises; server/hosts.py's HostedJob offers the same.
+    # What server/sandbox/runner.py supervises; server/sandbox/hosts.py's HostedJob offers the same.
 
     @property
     def output_fd(self) -> int:

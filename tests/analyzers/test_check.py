@@ -28,7 +28,7 @@ def _broken(rule_id):
 
 
 def test_a_failing_rule_is_an_error_finding_and_the_other_rules_still_report():
-    # A P+ diffusion in an n-well with no tap at all: floating-well (DESIGN 5.7).
+    # A P+ diffusion in an n-well with no tap at all: floating-well (docs/rules.md).
     cell = CellBuilder("TOP").rect(NWELL, -1, -1, 6, 3).rect(PPLUS, 0, 0, 5, 2).rect(ACTIVE, 0, 0, 5, 2)
     rules = (_broken("shunt-resistance"), _rule("floating-well"))
     result = check_outcome(outcome(layout(cell)), load_technology("demo"), rules=rules)

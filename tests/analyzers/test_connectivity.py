@@ -1,5 +1,5 @@
 """Nets through the connectivity stack, label names, supply conflicts and pad-connected
-devices (analyzers/connectivity.py, analyzers/nets.py)."""
+devices (analyzers/extraction/connectivity.py, analyzers/extraction/nets.py)."""
 
 import numpy as np
 import pytest

@@ -1,4 +1,4 @@
-"""Diffusion typing of DESIGN 5.4, with and without a separate tap layer."""
+"""Diffusion typing of docs/technology.md, with and without a separate tap layer."""
 
 import numpy as np
 import pytest

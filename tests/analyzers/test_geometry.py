@@ -1,4 +1,4 @@
-"""analyzers/geometry.py: grouped unions with rectangles pre-joined in bands give the
+"""analyzers/layout/geometry.py: grouped unions with rectangles pre-joined in bands give the
 region shapely.union_all gives (the reference library), on random rectangle sets."""
 
 from __future__ import annotations

@@ -1,4 +1,4 @@
-"""Masetti mobility and resistivity (analyzers/mobility.py) against published points."""
+"""Masetti mobility and resistivity (analyzers/electrical/mobility.py) against published points."""
 
 import pytest
 

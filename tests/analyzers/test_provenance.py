@@ -1,4 +1,4 @@
-"""Anchors: the innermost user frame whose line is layer-specific (DESIGN 6)."""
+"""Anchors: the innermost user frame whose line is layer-specific (docs/provenance.md)."""
 
 from latchwatch.analyzers.layout.flatten import flatten
 from latchwatch.analyzers.layout.provenance import Provenance, is_user_file

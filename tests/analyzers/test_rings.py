@@ -1,4 +1,4 @@
-"""Guard-ring geometry (analyzers/rings.py): closure against a brute-force flood fill,
+"""Guard-ring geometry (analyzers/extraction/rings.py): closure against a brute-force flood fill,
 narrowest width, gaps and the distance to the ring against analytic answers."""
 
 from collections import deque

@@ -1,5 +1,5 @@
 """The sheet solver against analytic results, a direct reference solve, and itself on
-finer grids (DESIGN 9, 10; analyzers/sheet.py)."""
+finer grids (docs/performance.md, DEVELOPERS.md; analyzers/electrical/sheet.py)."""
 
 import math
 

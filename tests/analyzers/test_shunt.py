@@ -1,4 +1,4 @@
-"""The shunt estimate on layouts (analyzers/shunt.py), the shunt-resistance rule, the
+"""The shunt estimate on layouts (analyzers/electrical/shunt.py), the shunt-resistance rule, the
 electrical technology keys it reads, and its figures in the devices table and hover."""
 
 import copy
@@ -77,7 +77,7 @@ def test_strip_well_through_the_pipeline(demo):
     assert finding.value == pytest.approx(10700, rel=0.02)
     assert finding.limit == pytest.approx(0.7 / 1e-4) and finding.unit == "ohm"
     assert finding.rule == "shunt-resistance" and finding.severity.label == "warning"
-    # Three significant figures with SI prefixes (DESIGN 9), labelled an estimate (DESIGN 12).
+    # Three significant figures with SI prefixes (docs/performance.md), labelled an estimate (docs/caution.md).
     assert re.search(r"resistance to its taps 10\.[67] kohm \(sheet model\)", finding.message)
     assert re.search(r"so 6[56]\.\d uA through it forward-biases the junction", finding.message)
     assert "below the 100 uA a core device must withstand" in finding.message

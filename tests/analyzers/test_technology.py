@@ -1,4 +1,4 @@
-"""Validation and lookups of the technology model (analyzers/technology.py)."""
+"""Validation and lookups of the technology model (analyzers/technology/model.py)."""
 
 import copy
 

@@ -9,7 +9,7 @@ pad-connected NMOS and PMOS without guard rings for the I/O rules to examine). T
 file is read in this process and each phase is timed on its own:
   flatten   hierarchy to flat arrays          extract  wells, diffusions, taps
   core      tap-distance, floating-well and uncontacted-tap (the core check's rules)
-  nets      the conductor graph and its names (analyzers/nets.py)
+  nets      the conductor graph and its names (analyzers/extraction/nets.py)
   io rules  tap-supply, io-guard-ring, io-spacing and isolation-tie after the nets
 The figure the nets are judged by is nets / (flatten + extract + core).
 """

@@ -2,13 +2,13 @@
 
     python tests/bench/bench_sweep.py [--corners N] [--jobs J ...] [--repeat R]
 
-The cell is tests/test_sweep.py's finger_array (a PMOS with one n-well tap, a dozen
+The cell is tests/server/test_sweep.py's finger_array (a PMOS with one n-well tap, a dozen
 shapes). For each J (default: 1 and the number of cores) the sweep runs in a fresh
 project folder through ``sweep.check_all`` (the code ``latchwatch check --sweep`` runs),
 R times; printed per J: the best and median wall time, corners per second, and the
 split of the best run into time in children (the sum of the runs' own seconds) and the
 rest (checking in this process, thread hand-over). Corner runs are forked from corner
-hosts (server/hosts.py). "cold" starts with no host, as every `latchwatch check` does
+hosts (server/sandbox/hosts.py). "cold" starts with no host, as every `latchwatch check` does
 (the hosts start with the first corners); "warm" finds the hosts of the previous
 sweep idle, as the language server does. The target is 50 corners in <= 5 s on a
 2-core machine.

@@ -1,4 +1,4 @@
-"""The command line end to end (DESIGN 5.1): formats, rule selection, exit statuses,
+"""The command line end to end (docs/command-line.md): formats, rule selection, exit statuses,
 layout files as input, and errors that name what is wrong."""
 
 from __future__ import annotations

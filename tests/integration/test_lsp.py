@@ -2,7 +2,7 @@
 
 Each test starts a real server with a private XDG_CONFIG_HOME (the user's trust store
 is never touched) and a project folder holding a latchwatch.toml with the demo
-technology (tap-distance limit 20 um, invented; DESIGN 5.4).
+technology (tap-distance limit 20 um, invented; docs/technology.md).
 """
 
 from __future__ import annotations

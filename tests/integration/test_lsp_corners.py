@@ -1,5 +1,5 @@
 """Several runs of one document in the editor: corners merged per anchor line, the
-worst corner first (server/lsp_convert.py, diagnostics_for_runs / hover_for_runs)."""
+worst corner first (server/lsp/convert.py, diagnostics_for_runs / hover_for_runs)."""
 
 from __future__ import annotations
 

@@ -1,7 +1,7 @@
 """Parameter corners in the editor, end to end through `latchwatch serve`: the
 configured corners of the open document run with work-done progress and merge into
 one diagnostic per line, worst corner first; a file that only defines generator
-functions is previewed. The generator and its figures are those of tests/test_sweep.py
+functions is previewed. The generator and its figures are those of tests/server/test_sweep.py
 (demo technology, 20 um tap-distance limit, invented)."""
 
 from __future__ import annotations

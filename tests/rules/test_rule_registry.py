@@ -7,7 +7,7 @@ import latchwatch.analyzers.rules as rules_pkg
 from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.rules import RULES, RULES_BY_ID
 
-# DESIGN 5.7 catalogue: id -> default severity (rules of later work are added as they land).
+# docs/rules.md catalogue: id -> default severity (rules of later work are added as they land).
 CATALOGUE = {
     "tap-distance": Severity.ERROR, "floating-well": Severity.ERROR, "uncontacted-tap": Severity.WARNING,
     "tap-supply": Severity.WARNING, "io-guard-ring": Severity.ERROR, "io-spacing": Severity.WARNING,
@@ -59,3 +59,14 @@ def test_each_rule_runs_once_per_run_or_top_cell(monkeypatch):
     check_module.check_outcome(outcome(layout(one_top)), load_technology("demo"))
     # Once each: run rules without a flattened layout, layout rules on the one top cell.
     assert sorted(calls) == sorted((rule.id, rule.scope is Scope.RUN) for rule in RULES)
+
+
+def test_the_docs_catalogue_lists_every_rule_with_its_severity_and_scope():
+    from locations import ROOT
+
+    rows = {}
+    for line in (ROOT / "docs" / "rules.md").read_text(encoding="utf-8").splitlines():
+        cells = [c.strip() for c in line.strip().strip("|").split("|")]
+        if len(cells) == 4 and cells[0] in RULES_BY_ID:
+            rows[cells[0]] = (cells[1], cells[2])
+    assert rows == {rule.id: (rule.severity.label, rule.scope.value) for rule in RULES}

@@ -1,4 +1,4 @@
-"""The run scheduler of the language server (server/documents.py)."""
+"""The run scheduler of the language server (server/lsp/documents.py)."""
 
 from __future__ import annotations
 

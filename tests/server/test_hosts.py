@@ -1,6 +1,6 @@
-"""Corner hosts (server/hosts.py): one pre-imported worker forks a confined child per job.
+"""Corner hosts (server/sandbox/hosts.py): one pre-imported worker forks a confined child per job.
 
-tests/test_sandbox.py runs every hostile script in a host's child too; these tests
+tests/server/test_sandbox.py runs every hostile script in a host's child too; these tests
 cover what is particular to a host: what one job leaves never reaches the next, a job
 that fails or times out leaves the host serving, a host that dies is replaced."""
 

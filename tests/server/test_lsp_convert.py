@@ -1,4 +1,4 @@
-"""Findings to LSP diagnostics and hovers (server/lsp_convert.py)."""
+"""Findings to LSP diagnostics and hovers (server/lsp/convert.py)."""
 
 from __future__ import annotations
 

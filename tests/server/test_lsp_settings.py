@@ -1,4 +1,4 @@
-"""Editor settings and their precedence over the project file (server/lsp_settings.py)."""
+"""Editor settings and their precedence over the project file (server/lsp/settings.py)."""
 
 from __future__ import annotations
 
@@ -51,7 +51,7 @@ def make_project(folder: Path, text: str) -> Path:
 
 
 def test_editor_settings_override_the_project_file(tmp_path):
-    # DESIGN 5.5: editor settings override the file for the language server.
+    # docs/project.md: editor settings override the file for the language server.
     script = make_project(tmp_path / "chip", 'tech = "demo"\ntimeout = 3\ndisable = ["no-geometry"]\n'
                                              'severity = { tap-distance = "warning", floating-well = "info" }\n')
     techs = TechnologyCache()

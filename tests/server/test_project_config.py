@@ -1,4 +1,4 @@
-"""Project configuration (DESIGN 5.5): where it is found, what it holds, and how a
+"""Project configuration (docs/project.md): where it is found, what it holds, and how a
 malformed file is reported (file and key named)."""
 
 from pathlib import Path
@@ -17,8 +17,8 @@ from latchwatch.server.config.project import (
 
 KNOWN = {"tap-distance", "tap-supply", "shunt-resistance", "floating-well"}
 
-# The example of DESIGN.md section 5.5, verbatim.
-DESIGN_EXAMPLE = """
+# The example of docs/project.md, verbatim.
+CONTRACT_EXAMPLE = """
 [tool.latchwatch]
 tech = "demo"                 # or a path relative to this file
 include = ["cells/**/*.py"]
@@ -48,7 +48,7 @@ def load_error(path, known=None) -> ConfigError:
 
 
 def test_design_example_loads(tmp_path):
-    source = write(tmp_path / "pyproject.toml", DESIGN_EXAMPLE)
+    source = write(tmp_path / "pyproject.toml", CONTRACT_EXAMPLE)
     config = load_project_config(source, KNOWN)
     root = tmp_path
     assert config == ProjectConfig(
@@ -74,7 +74,7 @@ def test_tech_path_resolves_against_the_file_and_names_stay(tmp_path):
 
 
 def test_found_by_walking_up_from_a_script(tmp_path):
-    write(tmp_path / "pyproject.toml", DESIGN_EXAMPLE)
+    write(tmp_path / "pyproject.toml", CONTRACT_EXAMPLE)
     script = write(tmp_path / "cells" / "deep" / "row.py", "")
     config = find_project_config(script, KNOWN)
     assert config.source == tmp_path / "pyproject.toml" and config.root == tmp_path

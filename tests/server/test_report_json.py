@@ -1,4 +1,4 @@
-"""JSON report "latchwatch-report/1": keys, order and values as DESIGN 5.2 states."""
+"""JSON report "latchwatch-report/1": keys, order and values as docs/report-json.md states."""
 
 import json
 import math
@@ -12,9 +12,9 @@ from latchwatch.server.report.model import Report, RunSummary
 
 MESSAGE = "P+ diffusion is 21.02 um from the nearest n-well tap (limit 20.00 um)"
 
-# The example document of DESIGN.md section 5.2, transcribed (summary aside: the
+# The example document of docs/report-json.md, transcribed (summary aside: the
 # example's counts are illustrative and do not match its single finding).
-DESIGN_EXAMPLE = {
+CONTRACT_EXAMPLE = {
     "schema": "latchwatch-report/1",
     "tool": {"name": "latchwatch", "version": "0.1.0"},
     "technology": "demo180",
@@ -58,12 +58,12 @@ def example_report(devices=True):
 
 def test_design_example_is_reproduced_key_for_key_in_order(tmp_path):
     document = report_to_dict(example_report(), base=tmp_path)
-    expected = dict(DESIGN_EXAMPLE, tool={"name": "latchwatch", "version": latchwatch.__version__})
+    expected = dict(CONTRACT_EXAMPLE, tool={"name": "latchwatch", "version": latchwatch.__version__})
     # The devices table gained "net" and "corner" after the design's example (backward-compatible keys, last).
-    expected["devices"] = [dict(row, net=None, corner=None) for row in DESIGN_EXAMPLE["devices"]]
+    expected["devices"] = [dict(row, net=None, corner=None) for row in CONTRACT_EXAMPLE["devices"]]
     summary = document.pop("summary")
     assert document == expected
-    # Key order is part of the contract (DESIGN 5.2 lists it); dict equality ignores it.
+    # Key order is part of the contract (docs/report-json.md lists it); dict equality ignores it.
     assert list(document) == list(expected)
     assert list(document["findings"][0]) == list(expected["findings"][0])
     assert list(document["runs"][0]) == list(expected["runs"][0])
@@ -158,5 +158,5 @@ def test_run_names_the_function_a_corner_called():
 
     plain_run = RunSummary("a.py", None, "ok", 0.1, 1, 4, {})
     called = RunSummary("a.py", {"fingers": 16}, "ok", 0.1, 1, 4, {}, function="finger_array")
-    assert "function" not in run_to_dict(plain_run)  # the DESIGN 5.2 keys, unchanged
+    assert "function" not in run_to_dict(plain_run)  # the docs/report-json.md keys, unchanged
     assert run_to_dict(called)["function"] == "finger_array"

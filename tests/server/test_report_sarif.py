@@ -1,4 +1,4 @@
-"""SARIF 2.1.0 output (DESIGN 5.3), validated against the OASIS JSON schema."""
+"""SARIF 2.1.0 output (docs/sarif.md), validated against the OASIS JSON schema."""
 
 import json
 import math

@@ -1,4 +1,4 @@
-"""Text report: GNU-style finding lines (DESIGN 5.1) and the summary line."""
+"""Text report: GNU-style finding lines (docs/command-line.md) and the summary line."""
 
 import re
 
@@ -27,7 +27,7 @@ def lines_of(text):
 
 
 def test_design_example_line_exactly(tmp_path):
-    # DESIGN 5.1 gives this line verbatim; the column is unknown, so 1.
+    # docs/command-line.md gives this line verbatim; the column is unknown, so 1.
     finding = Finding("tap-distance", Severity.ERROR, MESSAGE, file="examples/row.py", line=12)
     first = lines_of(render_text(report(finding), base=tmp_path))[0]
     assert first == f"examples/row.py:12:1: error: {MESSAGE} [tap-distance]"

@@ -47,7 +47,7 @@ def test_ok_run_reports_layout_output_and_sandbox(tmp_path):
     assert outcome.layout.cells[0].poly_layer.tolist() == [3]
     assert outcome.layout.source == str(path)
     assert outcome.seconds > 0
-    # What the entry claims is what the child reported; tests/test_sandbox.py checks that
+    # What the entry claims is what the child reported; tests/server/test_sandbox.py checks that
     # each claim holds. The parent's own limits are always there.
     assert set(outcome.sandbox) >= {"network", "writes", "limits", "privileges", "leftovers", "core_dumps"}
     assert outcome.sandbox["limits"][0] == "time" and outcome.sandbox["limits"][-2:] == ["output", "geometry"]

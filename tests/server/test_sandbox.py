@@ -1,8 +1,8 @@
-"""Hostile scripts against the sandbox (DESIGN 7, issue 6): each test asserts that the
+"""Hostile scripts against the sandbox (docs/sandbox.md, issue 6): each test asserts that the
 run was contained, and skips only where `latchwatch doctor` reports the mechanism it
 needs as unavailable, with doctor's reason. Network tests connect only to listeners
 started here, on the loopback interface. Every test runs twice: in a fresh child, and
-in a child forked from a corner host (server/hosts.py), as sweep corners run."""
+in a child forked from a corner host (server/sandbox/hosts.py), as sweep corners run."""
 
 from __future__ import annotations
 

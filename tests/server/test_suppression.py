@@ -1,4 +1,4 @@
-"""Suppression comments (DESIGN 5.6): parsing, applying along the stack, and the
+"""Suppression comments (docs/suppression.md): parsing, applying along the stack, and the
 editor's add-a-comment edit."""
 
 import pytest

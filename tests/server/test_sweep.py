@@ -1,11 +1,11 @@
-"""Parameter corners (server/sweep.py): values, the grid and its sampling, the preview
+"""Parameter corners (server/runs/plan.py and server/runs/batch.py): values, the grid and its sampling, the preview
 of a file of generator functions, and sweeps run end to end through real children and
 through the ``latchwatch`` command.
 
 The generator draws a P+ diffusion ``fingers * 1.5 + 0.5`` um long with one contacted
 n-well tap ending 1 um left of it. The farthest point of the diffusion lies
 ``fingers * 1.5 + 1.5`` um from the tap (its far end, level with the tap), so against
-the demo technology's 20 um limit (invented, DESIGN 5.4) 1 and 4 fingers pass
+the demo technology's 20 um limit (invented, docs/technology.md) 1 and 4 fingers pass
 (3.0, 7.5 um) and 16 fingers fail (25.5 um). Zero fingers raises.
 """
 

@@ -1,5 +1,5 @@
 """Technology files: presets, TOML errors, extends, and the tech commands
-(server/techfiles.py)."""
+(server/config/techfiles.py)."""
 
 import io
 import re

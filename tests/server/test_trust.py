@@ -1,4 +1,4 @@
-"""The trust store and `latchwatch trust` (DESIGN 7)."""
+"""The trust store and `latchwatch trust` (docs/sandbox.md)."""
 
 from __future__ import annotations
 

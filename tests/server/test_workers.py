@@ -1,4 +1,4 @@
-"""Workers (server/workers.py): a started child waits for one job, is ended with its
+"""Workers (server/sandbox/workers.py): a started child waits for one job, is ended with its
 group, and leaves no folder behind."""
 
 from __future__ import annotations
