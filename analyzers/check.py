@@ -30,6 +30,7 @@ INCOMPLETE = ("latchwatch could not complete this check{where}: {error} (at {pla
 
 @dataclass
 class CheckResult:
+    """What one run's check found: its findings, its device rows (with --devices) and what it covered."""
     findings: list[Finding]
     devices: list[Device] | None
     cells: int
@@ -38,12 +39,14 @@ class CheckResult:
 
 def select_rules(select: Iterable[str] | None = None, ignore: Iterable[str] = (),
                  disable: Iterable[str] = ()) -> tuple[Rule, ...]:
+    """The registered rules left after --select, --ignore and the project's disable list, in catalogue order."""
     chosen = set(select) if select else None
     dropped = set(ignore) | set(disable)
     return tuple(r for r in RULES if (chosen is None or r.id in chosen) and r.id not in dropped)
 
 
 def top_cells(outcome: RunOutcome, top: str | None) -> list[int]:
+    """Indices of the cells to check: the one named by --top, else every cell no other cell references."""
     layout = outcome.layout
     if top is None:
         return layout.top_cells()

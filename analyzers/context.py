@@ -19,12 +19,14 @@ from latchwatch.analyzers.technology.model import Technology
 
 @dataclass(frozen=True)
 class CheckOptions:
+    """How a check is run: which frames are the user's, which top cell, and whether device figures are exact."""
     project_root: str | None = None  # frames under it are user frames
     top: str | None = None  # check this cell as the top
     exact_devices: bool = False  # compute every device's tap distance to 1 nm
 
 
 class CheckContext:
+    """What a rule sees: the run, the technology, the options, one flattened top cell (None for run rules)."""
     def __init__(self, outcome: RunOutcome, tech: Technology, options: CheckOptions,
                  flat: FlatLayout | None = None):
         self.outcome, self.tech, self.options, self.flat = outcome, tech, options, flat

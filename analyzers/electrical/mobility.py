@@ -25,6 +25,7 @@ MIN_DOPING, MAX_DOPING = 1e13, 1e21  # cm^-3, the range the published fits cover
 
 @dataclass(frozen=True)
 class MasettiParameters:
+    """The fit parameters of the Masetti mobility model for one carrier type."""
     mu0: float
     mumax: float
     cr: float

@@ -78,6 +78,7 @@ class SheetProblem:
 
 @dataclass
 class SheetResult:
+    """Resistances of a sheet problem's devices to its taps, with the size of the grid that produced them."""
     resistance: np.ndarray  # ohm per device; inf when no tap is reachable
     cells: int  # free cells in the factorized matrix
     iterations: int  # conjugate-gradient iterations of the slowest device

@@ -51,6 +51,7 @@ class Conductors:
 
 @dataclass
 class Connectivity:
+    """Conductors of every role and the net each belongs to, joined through the technology's cuts."""
     roles: tuple[str, ...]
     conductors: Conductors
     net: np.ndarray  # net id per conductor
@@ -199,6 +200,7 @@ def conductor_roles(tech: Technology) -> tuple[str, ...]:
 
 
 def connect(ex: Extraction, tech: Technology) -> Connectivity:
+    """Join the extracted conductors through the [connectivity] stack into nets."""
     flat = ex.flat
     roles = conductor_roles(tech)
     poly = Shapes(flat.polygons[flat.on_layer(tech.layer("poly"))])

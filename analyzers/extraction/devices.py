@@ -25,6 +25,7 @@ DEVICE_KIND = {"p": "pdiff", "n": "ndiff"}  # the name of each kind in findings 
 
 @dataclass
 class KindResult:
+    """Tap distances of one kind of device diffusion (P+ or N+), with the limits they were held to."""
     kind: str
     pieces: Pieces
     taps: Pieces  # contacted taps of the matching type
@@ -35,12 +36,14 @@ class KindResult:
 
 
 def body_name(kind: str, body: int) -> str:
+    """The name of a body in the devices table: psub, nwell#k or pwell#k."""
     if body == SUBSTRATE:
         return "psub"
     return f"pwell#{pwell_index(body) + 1}" if is_pwell_body(body) else f"nwell#{body + 1}"
 
 
 def tap_distances(ctx, kind: str, exact: bool) -> KindResult:
+    """Distance from each device diffusion of ``kind`` to the nearest contacted tap of its body."""
     ex, tech = ctx.extraction, ctx.tech
     pieces = ex.pdiff if kind == "p" else ex.ndiff
     gated = ex.pdiff_gated if kind == "p" else ex.ndiff_gated
@@ -59,6 +62,7 @@ def tap_distances(ctx, kind: str, exact: bool) -> KindResult:
 
 
 def device_table(ctx) -> list[Device]:
+    """One Device row per device diffusion of the flattened top cell, with its tap distance and shunt figures."""
     rows = []
     for kind in KINDS:
         r = ctx.memo(("tap-distance", True), lambda: {k: tap_distances(ctx, k, True) for k in KINDS})[kind]

@@ -42,6 +42,7 @@ def pwell_index(body):
 
 
 def is_pwell_body(body):
+    """True where a body number names an isolated p-well (those are numbered below SUBSTRATE)."""
     return np.asarray(body) <= FIRST_PWELL
 
 
@@ -70,6 +71,7 @@ class Pieces:
 
 @dataclass
 class Extraction:
+    """Wells, device diffusions, taps, contacts and gates of one flattened top cell."""
     flat: FlatLayout
     wells: np.ndarray  # merged n-well regions
     well_shapes: list[np.ndarray]  # flat shape indices of the polygons of each well
@@ -151,6 +153,7 @@ def _split_by_wells(pieces: Pieces, wells: np.ndarray) -> tuple[Pieces, Pieces]:
 
 
 def extract(flat: FlatLayout, tech: Technology) -> Extraction:
+    """Turn a flattened layout's shapes into wells, device diffusions and taps with their bodies."""
     wells, well_shapes = _merge_wells(flat, tech)
     n_active_in, n_active_out = _split_by_wells(_implanted(flat, tech, "active", "nplus"), wells)
     p_active_in, p_active_out = _split_by_wells(_implanted(flat, tech, "active", "pplus"), wells)

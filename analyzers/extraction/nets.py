@@ -26,11 +26,13 @@ from latchwatch.analyzers.layout import geometry as g
 
 DEVICE_CODES = {"n": NDIFF, "p": PDIFF}
 def matches(text: str, patterns) -> bool:
+    """True when ``text`` matches one of the glob ``patterns`` (case-sensitive)."""
     return any(fnmatchcase(text, p) for p in patterns)
 
 
 @dataclass
 class LayoutNets:
+    """The net graph of a labelled layout: which labels landed on which nets, and the names and supply classes."""
     conn: Connectivity | None  # None when the layout labels nothing
     label_index: np.ndarray  # flat label indices that landed on a conductor
     label_net: np.ndarray  # the net each of them names
@@ -83,11 +85,13 @@ def _placed_labels(flat, tech, conn: Connectivity) -> tuple[np.ndarray, np.ndarr
 
 
 def has_labels(flat, tech) -> bool:
+    """True when the flattened layout has a label on one of the technology's label layers."""
     return any(((flat.label_layer == layer) & (flat.label_texttype == texttype)).any()
                for layer, texttype in tech.labels.values())
 
 
 def layout_nets(ex, tech) -> LayoutNets:
+    """Name the nets of a layout from its labels; without labels no graph is built."""
     flat = ex.flat
     if not has_labels(flat, tech):
         none = np.zeros(0, bool)

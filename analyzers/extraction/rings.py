@@ -64,6 +64,7 @@ class TapRegions:
 
 
 def tap_regions(pieces: Pieces, contacted: np.ndarray) -> TapRegions:
+    """Taps of one type merged into regions, with the holes they enclose and whether each is contacted."""
     n = len(pieces)
     if n == 0:
         empty = np.empty(0, dtype=object)
@@ -141,10 +142,12 @@ def filled(geom) -> shapely.Geometry:
 
 
 def surrounds(geom, diff) -> bool:
+    """True when ``diff`` lies within ``geom`` with its holes filled (the ring encloses it)."""
     return bool(shapely.within(diff, filled(geom))) if not shapely.is_empty(geom) else False
 
 
 def erode(geom, r: float):
+    """``geom`` shrunk by ``r`` (unchanged for r <= 0)."""
     return shapely.buffer(geom, -r, quad_segs=QUAD_SEGS) if r > 0 else geom
 
 
@@ -164,6 +167,7 @@ def _representative(parts: np.ndarray, near) -> np.ndarray:
 
 @dataclass
 class Narrowest:
+    """The narrowest width of a closed ring and a point where it occurs."""
     width: float  # um, exact to tol
     location: np.ndarray  # (2,) a point of the narrowest spot
 
@@ -203,12 +207,14 @@ def narrowest_band(region, hole, diff, min_width: float, tol: float = DEFAULT_TO
 
 @dataclass
 class Gap:
+    """Where an open ring is open, and how wide the gap is when both ends are found."""
     location: np.ndarray  # (2,) a point in the gap
     width: float | None  # distance between the ring ends beside it, when two are found
     count: int  # gaps that had to be bridged
 
 
 def closing(geom, r: float):
+    """Morphological closing of ``geom`` by ``r``: grown, then shrunk, so gaps narrower than 2r close."""
     if r <= 0:
         return geom
     return shapely.buffer(shapely.buffer(geom, r, quad_segs=_CLOSING_QUAD_SEGS), -r, quad_segs=_CLOSING_QUAD_SEGS)

@@ -24,6 +24,7 @@ SLACK = 1e-6  # floating-point slack when comparing against a limit
 
 @dataclass
 class FarthestPoints:
+    """Per diffusion: the farthest point from the taps, its distance, its nearest tap, and whether it is within the limit."""
     value: np.ndarray  # max distance (nan where not needed: proven within the limit)
     point: np.ndarray  # (n, 2) farthest point found
     tap: np.ndarray  # nearest tap index at that point, -1 when the body has no tap

@@ -42,6 +42,7 @@ class Instances:
 
 @dataclass
 class FlatLayout:
+    """One top cell's shapes and labels in top-cell coordinates, with the instances and stacks they came through."""
     captured: CapturedLayout
     top: int
     instances: Instances
@@ -228,6 +229,7 @@ def repair(polygons: np.ndarray, non_finite: np.ndarray | None = None):
 
 
 def flatten(captured: CapturedLayout, top: int) -> FlatLayout:
+    """Expand the hierarchy under ``top`` into per-shape arrays with numpy transforms, repairing invalid polygons."""
     inst = expand_instances(captured, top)
     grid = captured.precision / captured.unit
     order = np.argsort(inst.cell, kind="stable")

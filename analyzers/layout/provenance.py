@@ -25,6 +25,7 @@ _LIBRARY_DIRS = tuple(
 
 
 def is_user_file(path: str, project_root: str | None) -> bool:
+    """True for a file of the user's own code: under the project root, outside site-packages and the standard library."""
     if not path or path.startswith("<"):
         return False
     norm = os.path.normcase(os.path.realpath(path))
@@ -39,6 +40,7 @@ def is_user_file(path: str, project_root: str | None) -> bool:
 
 @dataclass(frozen=True)
 class Anchor:
+    """The line a finding is published on and the user frames from it outwards."""
     frame: Frame | None  # the line a finding is published on
     stack: tuple[Frame, ...]  # user frames from the anchor outwards
 
@@ -97,6 +99,7 @@ class Provenance:
         return self._stack_cache[key]
 
     def placements(self, instance: int) -> tuple[Placement, ...]:
+        """The reference placements from the top cell down to a flat instance, arrays named with column and row."""
         out = []
         cells = self.captured.cells
         inst = self.flat.instances

@@ -21,6 +21,7 @@ def _i32(n=0):
 
 @dataclass
 class CapturedCell:
+    """One cell as captured: polygons, labels and references as numpy arrays, each with its stack id."""
     name: str
     # Polygons: vertices of polygon k are points[offsets[k]:offsets[k + 1]].
     poly_layer: np.ndarray = field(default_factory=_i32)

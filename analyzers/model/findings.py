@@ -11,6 +11,7 @@ from dataclasses import dataclass, field, replace
 
 
 class Severity(enum.IntEnum):
+    """How serious a finding is; ordered, so a threshold compares with >=."""
     INFO = 1
     WARNING = 2
     ERROR = 3
@@ -61,6 +62,7 @@ class Related:
 
 @dataclass(frozen=True)
 class Finding:
+    """One finding: rule, severity, message, anchor, figures and where it was drawn; immutable."""
     rule: str
     severity: Severity
     message: str

@@ -15,6 +15,7 @@ FAILURE_KINDS = ("error", "timeout", "limit", "cancelled")
 
 @dataclass(frozen=True)
 class ScriptFailure:
+    """Why a run produced no layout: an exception, a timeout or a limit, with the frames it happened in."""
     kind: str  # "error" | "timeout" | "limit" | "cancelled"
     exc_type: str | None  # e.g. "ZeroDivisionError", "MemoryError"; None when nothing was raised
     message: str
@@ -29,6 +30,7 @@ class ScriptFailure:
 
 @dataclass(frozen=True)
 class RunOutcome:
+    """The pure record of one run: status, captured layout or failure, output and the sandbox report."""
     script: str  # the path as given
     status: str  # one of STATUSES
     seconds: float

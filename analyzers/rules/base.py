@@ -12,6 +12,7 @@ from latchwatch.analyzers.model.findings import Finding, Severity
 
 @dataclass(frozen=True)
 class RuleDoc:
+    """A rule's documentation in four parts: what it flags, why it matters, an example, the fix."""
     flags: str  # what it flags
     why: str  # why it matters (the physics, one paragraph)
     example: str  # a script fragment that triggers it
@@ -27,6 +28,7 @@ class Scope(enum.Enum):
 
 @dataclass(frozen=True)
 class Rule:
+    """A rule: id, default severity, summary, documentation, scope and its check function."""
     id: str
     severity: Severity
     summary: str  # one line, for `latchwatch rules` and SARIF shortDescription

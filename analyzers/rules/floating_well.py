@@ -36,6 +36,7 @@ def _finding(ctx, template, kind_tap, region, region_shape, first_device, n, n_b
 
 
 def check(ctx):
+    """Findings for wells and isolated p-wells that hold device diffusions but no contacted tap."""
     ex = ctx.extraction
     if len(ex.wells):
         devices, bare, untied = _untied(len(ex.wells), ex.pdiff.body, ex.ntap.body, ex.ntap_contacted)

@@ -11,6 +11,7 @@ MESSAGE = "polygon on layer {layer}/{datatype} is invalid ({reason}); it was rep
 
 
 def check(ctx):
+    """Findings for polygons that flattening had to repair."""
     flat = ctx.flat
     if flat is None or len(flat.invalid) == 0:
         return

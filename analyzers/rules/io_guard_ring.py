@@ -60,6 +60,7 @@ def _ring_piece(regions: rings.TapRegions, taps, region: int, location) -> int:
 
 
 def check(ctx):
+    """Findings for pad-connected diffusions without a closed, wide, near enough and contacted guard ring."""
     params = ctx.tech.rules.get("io-guard-ring")
     if params is None:
         return

@@ -28,6 +28,7 @@ def _nearest(geoms: np.ndarray, targets: np.ndarray) -> tuple[np.ndarray, np.nda
 
 
 def check(ctx):
+    """Findings for pad-connected diffusions closer than the minimum to the opposite device type."""
     minimum = ctx.tech.rules.get("io-spacing", {}).get("min")
     if minimum is None:
         return

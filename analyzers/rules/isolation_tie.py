@@ -21,6 +21,7 @@ def _where(region):
 
 
 def check(ctx):
+    """Findings for deep n-wells and isolated p-wells without a contacted tie."""
     ex = ctx.extraction
     if len(ex.deep_nwells) == 0:
         return

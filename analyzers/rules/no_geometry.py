@@ -9,6 +9,7 @@ MESSAGE = "script ran but drew no shapes on the layers of technology {tech}"
 
 
 def check(ctx):
+    """One finding when a run that succeeded drew nothing on the technology's layers."""
     layout = ctx.outcome.layout
     if ctx.outcome.status != "ok" or layout is None:
         return

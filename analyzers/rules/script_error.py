@@ -9,6 +9,7 @@ MESSAGE = "script raised {exc_type}: {message}"
 
 
 def check(ctx):
+    """One finding on the raising line when the script raised."""
     failure = ctx.outcome.failure
     if failure is None or failure.kind != "error":
         return

@@ -9,6 +9,7 @@ MESSAGE = "script exceeded a resource limit: {message}"
 
 
 def check(ctx):
+    """One finding when the script exceeded a memory, output or process limit."""
     failure = ctx.outcome.failure
     if failure is None or failure.kind != "limit":
         return

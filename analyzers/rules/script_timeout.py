@@ -9,6 +9,7 @@ MESSAGE = "script ran past its time limit and was stopped after {seconds:.1f} s 
 
 
 def check(ctx):
+    """One finding on the line the script was running when its time ran out."""
     failure = ctx.outcome.failure
     if failure is None or failure.kind != "timeout":
         return

@@ -22,6 +22,7 @@ MESSAGE_NO_PATH = ("{what}: no path through the {body} sheet to a contacted {tap
 
 
 def check(ctx):
+    """Findings for devices whose estimated shunt lets less than the required current forward-bias the junction."""
     ex = ctx.extraction
     estimates = shunt_estimates(ctx)
     for kind in KINDS:

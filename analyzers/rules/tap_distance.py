@@ -16,10 +16,12 @@ MESSAGE_NO_TAP = "{what} has no contacted {tap} in its body (limit {limit:.2f} u
 
 
 def describe(kind: str, gated: bool) -> str:
+    """How a message names a diffusion: P+ or N+, transistor diffusion when poly crosses it."""
     return f"{NAMES[kind][0]} {'transistor diffusion' if gated else 'diffusion'}"
 
 
 def check(ctx):
+    """Findings for device diffusions with a point farther than the limit from the nearest contacted tap."""
     exact = ctx.options.exact_devices
     results = ctx.memo(("tap-distance", exact), lambda: {k: tap_distances(ctx, k, exact) for k in KINDS})
     for kind in KINDS:

@@ -18,6 +18,7 @@ MESSAGE_SHORT = "net labelled {first} here is also labelled {second}: two suppli
 
 
 def check(ctx):
+    """Findings for taps on the wrong supply or on no named net, and nets with two supply names."""
     ln = nets(ctx)
     if ln.conn is None:
         return

@@ -12,6 +12,7 @@ MESSAGE = "{kind} encloses no contact; it is not counted as a tap"
 
 
 def check(ctx):
+    """Findings for tap diffusions that enclose no contact."""
     ex = ctx.extraction
     for kind, pieces, contacted in (("n-tap", ex.ntap, ex.ntap_contacted), ("p-tap", ex.ptap, ex.ptap_contacted)):
         bare = np.flatnonzero(~contacted)

@@ -40,10 +40,12 @@ RULE_KEYS = {
 
 
 def is_cut_role(role: str) -> bool:
+    """True for layer roles that connect conductors: contact and viaN."""
     return role == "contact" or _VIA.fullmatch(role) is not None
 
 
 def is_conductor_role(role: str) -> bool:
+    """True for layer roles that carry current: active, tap, poly and metalN."""
     return role in ("active", "tap", "poly") or _METAL.fullmatch(role) is not None
 
 
@@ -141,6 +143,7 @@ ELECTRICAL_KEYS = tuple(f.name for f in fields(Electrical))
 
 @dataclass(frozen=True)
 class Technology:
+    """A validated technology: layers, labels, connectivity, nets, rule values and electrical values."""
     name: str
     description: str
     source: str  # file path or "built-in NAME"

@@ -73,6 +73,7 @@ def run_worker(config, record, plan, started, forked):
 
 
 def main(argv=None):
+    """Enter the sandbox (keeper, init, worker) and serve the job; the child's entry point."""
     started = time.perf_counter()
     argv = sys.argv if argv is None else argv
     config = json.loads(argv[1])

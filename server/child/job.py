@@ -104,6 +104,7 @@ def options_from_job(job, config):
 
 
 class Control:
+    """The control pipe: one text line per event (ready, started, finished)."""
     def __init__(self, fd):
         self.fd = fd
 

@@ -61,6 +61,7 @@ def enter_namespaces(config, record):
 
 
 def become_subreaper(record):
+    """Make this process the subreaper of what the run leaves; False where the system has none."""
     if not sys.platform.startswith("linux"):
         return False
     try:
@@ -148,6 +149,7 @@ def be_init(config, record, map_pipes, status_w, started, run_worker):
 
 
 def kill_quietly(pid, signum):
+    """Send ``signum`` to ``pid``, ignoring a process that is already gone."""
     try:
         os.kill(pid, signum)
     except (ProcessLookupError, PermissionError):

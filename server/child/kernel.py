@@ -62,6 +62,7 @@ _libc_handle = None
 
 
 def libc():
+    """The C library, loaded once, with errno kept for call_libc."""
     global _libc_handle
     if _libc_handle is None:
         _libc_handle = ctypes.CDLL(None, use_errno=True)
@@ -78,11 +79,13 @@ def call_libc(function, *args):
 
 
 def prctl(option, value=0):
+    """prctl(2) with one argument; raises OSError on failure."""
     return call_libc(libc().prctl, ctypes.c_int(option), ctypes.c_ulong(value), ctypes.c_ulong(0),
                  ctypes.c_ulong(0), ctypes.c_ulong(0))
 
 
 def unshare(flags):
+    """unshare(2): os.unshare where Python has it (3.12+), else through libc."""
     if hasattr(os, "unshare"):  # Python 3.12+
         os.unshare(flags)
     else:
@@ -90,17 +93,20 @@ def unshare(flags):
 
 
 def why(error):
+    """A short reason for an error, for the sandbox record."""
     if isinstance(error, OSError):
         return os.strerror(error.errno) if error.errno else (error.strerror or str(error))
     return str(error)
 
 
 def write_text(path, text):
+    """Write ``text`` to ``path`` (a /proc map file, say) in one call."""
     with open(path, "w") as handle:
         handle.write(text)
 
 
 def report_sandbox(config, record, started):
+    """Send the sandbox record, with its set-up time, as one ``sandbox {json}`` line on the control pipe."""
     line = "sandbox " + json.dumps(dict(record.as_dict(), setup_ms=round((time.perf_counter() - started) * 1e3, 2)))
     try:
         os.write(config["control_fd"], line.encode("utf-8") + b"\n")

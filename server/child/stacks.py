@@ -33,6 +33,7 @@ class StackTables:
         self._keep = []  # code objects whose ids are keys above
 
     def frame_id(self, code, lasti):
+        """The interned frame id of a code object at an instruction offset."""
         key = (id(code), lasti)
         fid = self._position_frames.get(key)
         if fid is None:
@@ -47,6 +48,7 @@ class StackTables:
         return fid
 
     def stack_id(self, frame_ids):
+        """The interned stack id of a sequence of frame ids, innermost first."""
         frame_ids = tuple(frame_ids)
         sid = self._stack_index.get(frame_ids)
         if sid is None:

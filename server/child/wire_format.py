@@ -58,12 +58,14 @@ def encode_payload(header, arrays):
 
 
 def write_payload(fd, header, arrays):
+    """Write a header and its arrays to the result pipe as one payload."""
     with open(fd, "wb", closefd=False) as out:
         for chunk in encode_payload(header, arrays):
             out.write(chunk)
 
 
 def failure_header(kind, exc_type, message, frames=()):
+    """The payload header of a run that produced no layout."""
     return {
         "version": WIRE_VERSION,
         "status": kind,

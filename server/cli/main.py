@@ -224,6 +224,7 @@ COMMANDS = {"check": _check, "rules": _rules, "tech": _tech, "serve": _serve, "t
 
 
 def main(argv: list[str] | None = None) -> int:
+    """The `latchwatch` command; returns the exit status."""
     args = _parser().parse_args(argv)
     try:
         return COMMANDS[args.command](args)

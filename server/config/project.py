@@ -51,6 +51,7 @@ class ConfigError(Exception):
 
 @dataclass(frozen=True)
 class SweepSpec:
+    """One [[tool.latchwatch.sweep]] entry: a script, a function in it, and the values of its parameters."""
     script: str  # resolved path of the generator script
     function: str  # a function in it returning a gdstk.Cell or gdstk.Library
     params: dict[str, list]  # parameter -> values; the full grid is run
@@ -58,6 +59,7 @@ class SweepSpec:
 
 @dataclass(frozen=True)
 class ProjectConfig:
+    """The project's [tool.latchwatch] settings, with the folder and file they came from."""
     root: Path | None = None  # folder of the file that held the configuration
     source: Path | None = None  # that file
     tech: str | None = None  # built-in name as written, or a resolved file path

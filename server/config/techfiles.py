@@ -25,6 +25,7 @@ _TOML_POSITION = re.compile(r"\s*\(at line (\d+), column (\d+)\)\s*$")
 
 
 def builtin_names() -> list[str]:
+    """Names of the built-in technologies."""
     return sorted(p.name[: -len(".toml")] for p in _PRESETS.iterdir()
                   if p.name.endswith(".toml"))
 
@@ -151,12 +152,14 @@ def describe_technology(tech: Technology) -> str:
 
 
 def tech_list_command(out) -> int:
+    """`latchwatch tech list`: each built-in technology with its description."""
     for name in builtin_names():
         out.write(f"{name:<10} {load_technology(name).description}\n")
     return 0
 
 
 def tech_show_command(name: str, out, err=None) -> int:
+    """`latchwatch tech show NAME`: one technology, resolved, with its units."""
     try:
         tech = load_technology(name)
     except TechnologyError as exc:
@@ -167,6 +170,7 @@ def tech_show_command(name: str, out, err=None) -> int:
 
 
 def tech_check_command(path: str, out, err) -> int:
+    """`latchwatch tech check FILE`: validate a technology file; exit 2 naming the key on an error."""
     try:
         tech = load_technology(path)
     except TechnologyError as exc:

@@ -27,6 +27,7 @@ class TrustStoreError(Exception):
 
 
 def config_dir(env: Mapping[str, str] | None = None) -> Path:
+    """The user's latchwatch configuration folder ($XDG_CONFIG_HOME/latchwatch, else ~/.config/latchwatch)."""
     env = os.environ if env is None else env
     xdg = env.get("XDG_CONFIG_HOME", "")
     if xdg and os.path.isabs(xdg):
@@ -38,6 +39,7 @@ def config_dir(env: Mapping[str, str] | None = None) -> Path:
 
 
 def store_path(env: Mapping[str, str] | None = None) -> Path:
+    """The file that lists the trusted folders."""
     return config_dir(env) / STORE_NAME
 
 
@@ -106,6 +108,7 @@ def remove_trusted(folder: Path | str, store: Path | None = None) -> Path:
 
 
 def is_inside(path: Path | str, folders: Iterable[Path | str]) -> bool:
+    """True when ``path`` lies in one of ``folders`` (symlinks resolved; a shared prefix is not containment)."""
     resolved = _canonical(path)
     for folder in folders:
         root = _canonical(folder)

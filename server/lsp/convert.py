@@ -57,6 +57,7 @@ def encode_column(line_text: str, offset: int, encoding: str) -> int:
 
 
 def line_length(line_text: str, encoding: str) -> int:
+    """The length of a line in the client's position encoding."""
     return encode_column(line_text, len(line_text), encoding)
 
 
@@ -88,6 +89,7 @@ def line_range(file: str, line: int, end_line: int | None, column: int | None, e
 
 @dataclass(frozen=True)
 class Target:
+    """Where a group of findings is shown: a file, a line and a rule."""
     file: str
     line: int  # 1-based
     rule: str
@@ -95,6 +97,7 @@ class Target:
 
 @dataclass
 class Group:
+    """Findings shown as one diagnostic, worst first."""
     target: Target
     findings: list[Finding]
     via: bool  # shown at a call site, the drawing line lies in another file
@@ -179,6 +182,7 @@ def _figure(value: float, unit: str | None) -> str:
 
 
 def group_message(group: Group, devices: DeviceIndex) -> str:
+    """The diagnostic text of a group: the worst finding, counted against what the line drew."""
     findings = group.findings
     worst = findings[0]
     message = worst.message
@@ -209,6 +213,7 @@ def _location(file: str, line: int, read_line: ReadLine, encoding: str) -> types
 
 
 def related_information(group: Group, read_line: ReadLine, encoding: str) -> list[types.DiagnosticRelatedInformation]:
+    """Related locations of a group (nearest tap, call sites, placements), each once."""
     seen, out = set(), []
 
     def add(file: str | None, line: int | None, message: str) -> None:
@@ -232,6 +237,7 @@ def related_information(group: Group, read_line: ReadLine, encoding: str) -> lis
 
 def to_diagnostic(group: Group, devices: DeviceIndex, read_line: ReadLine, encoding: str,
                   rule_href: Callable[[str], str | None]) -> types.Diagnostic:
+    """The LSP diagnostic of a group of findings."""
     worst = group.findings[0]
     if group.frame is not None:
         f = group.frame

@@ -18,6 +18,7 @@ Start = Callable[[str, int, threading.Event], Awaitable[None]]
 
 @dataclass
 class ScheduledRun:
+    """A run scheduled for one document version, with the event that cancels it."""
     version: int
     cancel: threading.Event
     task: asyncio.Task | None = None
@@ -26,6 +27,7 @@ class ScheduledRun:
 
 
 class RunScheduler:
+    """Debounces runs per document; a newer version supersedes and cancels the run in flight."""
     def __init__(self, start: Start):
         self._start = start
         self._runs: dict[str, ScheduledRun] = {}

@@ -90,6 +90,7 @@ class LatchwatchProtocol(LanguageServerProtocol):
 
 
 def supports_pull(capabilities: types.ClientCapabilities) -> bool:
+    """True when the client can pull diagnostics (textDocument/diagnostic)."""
     return bool(capabilities.text_document and capabilities.text_document.diagnostic is not None)
 
 
@@ -107,6 +108,7 @@ class DocumentResult:
 
 
 class LatchwatchServer(LanguageServer):
+    """The language server: documents, their latest results, settings and the run scheduler."""
     def __init__(self):
         super().__init__("latchwatch", __version__, protocol_cls=LatchwatchProtocol,
                          text_document_sync_kind=types.TextDocumentSyncKind.Incremental)
@@ -173,6 +175,7 @@ class LatchwatchServer(LanguageServer):
         return settings
 
     def workspace_folder_of(self, path: Path) -> Path | None:
+        """The innermost workspace folder that holds ``path``, if any."""
         folders = [Path(to_fs_path(f.uri)) for f in self.workspace.folders.values()]
         if self.workspace.root_path:
             folders.append(Path(self.workspace.root_path))
@@ -230,6 +233,7 @@ class LatchwatchServer(LanguageServer):
 
     def publish_notice(self, uri: str, version: int, message: str,
                        severity=types.DiagnosticSeverity.Information, code: str | None = None) -> None:
+        """Publish one diagnostic that is not a finding (untrusted folder, bad configuration)."""
         if self.versions.get(uri) != version:
             return
         first = (self.workspace.get_text_document(uri).lines or [""])[0]
@@ -264,6 +268,7 @@ class LatchwatchServer(LanguageServer):
             uri=target, diagnostics=self.diagnostics_of(target), version=version))
 
     def forget(self, uri: str) -> None:
+        """Drop a closed document: cancel its run and clear its diagnostics."""
         self.scheduler.supersede(uri)
         self.versions.pop(uri, None)
         self.results.pop(uri, None)
@@ -318,6 +323,7 @@ class LineReader:
 
 
 def untrusted_message(root: Path) -> str:
+    """The notice shown in a folder that is not trusted, with the command that trusts it."""
     return (f"latchwatch runs no script here: {root} is not a trusted folder. To trust it, run "
             f"`latchwatch trust {root}` in a terminal, or add it to the editor setting "
             f"{SECTION}.trustedFolders; then save the file.")
@@ -342,6 +348,7 @@ def rule_doc_file(rule: str) -> str | None:
 
 
 def create_server() -> LatchwatchServer:
+    """The language server with its handlers registered."""
     server = LatchwatchServer()
 
     @server.feature(types.INITIALIZE)
@@ -402,6 +409,7 @@ def create_server() -> LatchwatchServer:
 
 
 def document_report(ls: LatchwatchServer, uri: str, previous: str | None):
+    """The pull-diagnostics report of a document, unchanged when its result id is ``previous``."""
     result = ls.results.get(uri)
     if result is None:
         return types.RelatedFullDocumentDiagnosticReport(items=[], result_id="none")
@@ -414,6 +422,7 @@ def document_report(ls: LatchwatchServer, uri: str, previous: str | None):
 
 
 def hover_at(ls: LatchwatchServer, uri: str, line: int):
+    """The hover text of a line that drew device diffusions, or None."""
     result = ls.results.get(uri)
     if result is None or result.settings is None:
         return None

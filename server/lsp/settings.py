@@ -47,6 +47,7 @@ class SettingsError(Exception):
 
 @dataclass(frozen=True)
 class EditorSettings:
+    """Settings the editor sent; None where it sent none."""
     tech: str | None = None
     python: str | None = None
     timeout: float | None = None
@@ -134,6 +135,7 @@ class TechnologyCache:
         self._cache: dict[tuple, Technology] = {}
 
     def load(self, reference: str, base: Path) -> Technology:
+        """The technology a reference names, reloaded only when its file changed."""
         candidate = Path(reference) if os.path.isabs(reference) else base / reference
         stamp = candidate.stat().st_mtime_ns if candidate.is_file() else None
         key = (reference, str(base), stamp)

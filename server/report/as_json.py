@@ -24,6 +24,7 @@ def number(value) -> float | None:
 
 
 def point(values) -> list | None:
+    """A coordinate pair as JSON numbers, or None."""
     return None if values is None else [number(v) for v in values]
 
 
@@ -41,10 +42,12 @@ def plain(value):
 
 
 def frame_to_dict(frame: Frame) -> dict:
+    """A stack frame as a JSON object."""
     return {"file": frame.file, "line": frame.line, "function": frame.function}
 
 
 def placement_to_dict(placement: Placement) -> dict:
+    """A reference placement as a JSON object."""
     return {
         "file": placement.file,
         "line": placement.line,
@@ -54,6 +57,7 @@ def placement_to_dict(placement: Placement) -> dict:
 
 
 def related_to_dict(related: Related) -> dict:
+    """A related location as a JSON object."""
     return {
         "file": related.file,
         "line": related.line,
@@ -63,6 +67,7 @@ def related_to_dict(related: Related) -> dict:
 
 
 def finding_to_dict(finding: Finding) -> dict:
+    """A finding as a JSON object, keys in schema order."""
     return {
         "rule": finding.rule,
         "severity": finding.severity.label,
@@ -84,6 +89,7 @@ def finding_to_dict(finding: Finding) -> dict:
 
 
 def run_to_dict(run: RunSummary) -> dict:
+    """A run's summary as a JSON object."""
     entry = {
         "script": run.script,
         "corner": plain(run.corner),
@@ -100,6 +106,7 @@ def run_to_dict(run: RunSummary) -> dict:
 
 
 def device_to_dict(device: Device) -> dict:
+    """A device row as a JSON object."""
     return {
         "kind": device.kind,
         "cell": device.cell,
@@ -133,4 +140,5 @@ def report_to_dict(report: Report, *, base: Path | None = None) -> dict:
 
 
 def render_json(report: Report, *, base: Path | None = None) -> str:
+    """The report as JSON text (schema latchwatch-report/1)."""
     return json.dumps(report_to_dict(report, base=base), indent=2, allow_nan=False) + "\n"

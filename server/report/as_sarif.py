@@ -31,6 +31,7 @@ LEVELS = {Severity.ERROR: "error", Severity.WARNING: "warning", Severity.INFO: "
 
 
 def artifact_location(file: str) -> dict:
+    """A SARIF artifactLocation for a file (a file URI when absolute)."""
     if os.path.isabs(file):
         return {"uri": Path(file).as_uri()}
     return {"uri": quote(Path(file).as_posix()), "uriBaseId": SOURCE_ROOT}
@@ -38,6 +39,7 @@ def artifact_location(file: str) -> dict:
 
 def region(line: int, end_line: int | None = None, column: int | None = None,
            end_column: int | None = None) -> dict:
+    """A SARIF region from 1-based lines and columns."""
     end_line = end_line if end_line is not None and end_line >= line else line
     area = {"startLine": line, "endLine": end_line, "startColumn": column or 1}
     if end_column is not None and (end_line > line or end_column > area["startColumn"]):
@@ -46,6 +48,7 @@ def region(line: int, end_line: int | None = None, column: int | None = None,
 
 
 def physical_location(file: str, line: int | None = None, **extent) -> dict:
+    """A SARIF physicalLocation of a file and an optional region."""
     place = {"artifactLocation": artifact_location(file)}
     if line is not None:
         place["region"] = region(line, **extent)
@@ -53,6 +56,7 @@ def physical_location(file: str, line: int | None = None, **extent) -> dict:
 
 
 def rule_descriptor(rule: Rule) -> dict:
+    """A SARIF reportingDescriptor for a rule, with its documentation as help."""
     doc = rule.doc
     markdown = (
         f"{rule.summary}\n\n**What it flags**\n\n{doc.flags}\n\n**Why it matters**\n\n{doc.why}"
@@ -111,6 +115,7 @@ def related_locations(finding: Finding) -> list[dict]:
 
 
 def result(finding: Finding, rule_index: dict[str, int]) -> dict:
+    """A SARIF result for a finding, its figures in properties."""
     entry: dict = {"ruleId": finding.rule}
     if finding.rule in rule_index:
         entry["ruleIndex"] = rule_index[finding.rule]
@@ -137,6 +142,7 @@ def result(finding: Finding, rule_index: dict[str, int]) -> dict:
 
 
 def report_to_sarif(report: Report, *, base: Path | None = None) -> dict:
+    """The report as a SARIF 2.1.0 log."""
     shown = for_display(report, base)
     base_folder = Path(os.path.abspath(base if base is not None else os.getcwd()))
     rule_index = {rule.id: index for index, rule in enumerate(shown.rules)}

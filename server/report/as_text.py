@@ -38,6 +38,7 @@ def _corner(finding: Finding) -> str:
 
 
 def format_finding(finding: Finding) -> str:
+    """One finding as one line: path:line:col: severity: message [rule]."""
     message = " ".join(finding.message.split())  # one finding, one line
     head = f"{finding.severity.label}: {message}{_corner(finding)}"
     if finding.file is not None and finding.line is not None:
@@ -52,6 +53,7 @@ def _plural(count: int, word: str) -> str:
 
 
 def summary_line(report: Report) -> str:
+    """The closing line: counts by severity and the number of files."""
     counts = report.summary()
     wording = [
         _plural(counts["error"], "error"),

@@ -27,6 +27,7 @@ class RunSummary:
 
 @dataclass(frozen=True)
 class Report:
+    """A check's runs, findings and devices, ready for any writer."""
     technology: str
     runs: tuple[RunSummary, ...]
     findings: tuple[Finding, ...]

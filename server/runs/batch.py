@@ -28,6 +28,7 @@ from latchwatch.server.sandbox.runner import run_script
 
 @dataclass
 class RunResult:
+    """One task's run and check: status, findings, devices and output."""
     task: Task
     status: str
     cells: int
@@ -204,6 +205,7 @@ class ProgressBar:
         print(text, file=self.stream, flush=True)
 
     def update(self, done: int, total: int) -> None:
+        """Redraw the bar for ``done`` of ``total`` runs (only on a terminal, only for several runs)."""
         if not self.bar or total < 2:
             return
         filled = self.WIDTH * done // total

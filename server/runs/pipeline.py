@@ -22,6 +22,7 @@ LAYOUT_SUFFIXES = (".gds", ".gds2", ".gdsii", ".oas", ".oasis")
 
 @dataclass(frozen=True)
 class CheckSettings:
+    """Everything a check needs besides the paths: technology, interpreter, limits, rules."""
     tech: Technology
     python: str | None = None
     timeout: float = 10.0
@@ -37,6 +38,7 @@ class CheckSettings:
 
 
 def is_checkable(path: Path) -> bool:
+    """True for a script or layout file latchwatch can check."""
     return path.suffix.lower() in SCRIPT_SUFFIXES + LAYOUT_SUFFIXES
 
 
@@ -68,6 +70,7 @@ def run_path(path: Path, settings: CheckSettings, source: str | None = None, can
 
 
 def check_run(outcome: RunOutcome, settings: CheckSettings, read_source=None) -> tuple[list[Finding], list, RunSummary]:
+    """The findings, devices and summary of one run under the settings (suppression comments applied)."""
     rules = select_rules(settings.select or None, settings.ignore, settings.disable)
     options = CheckOptions(
         project_root=str(settings.project_root) if settings.project_root else None,

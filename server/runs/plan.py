@@ -60,6 +60,7 @@ class SweepError(ValueError):
 
 @dataclass(frozen=True)
 class Sweep:
+    """A function of a script and the values of its parameters."""
     script: Path
     function: str
     params: dict[str, list]  # parameter -> values in the order given; empty: one call with the defaults
@@ -124,6 +125,7 @@ def _split_values(text: str) -> list[str] | None:
 
 
 def ad_hoc_sweep(script: Path, function: str, param_texts: Iterable[str]) -> Sweep:
+    """The sweep --sweep FUNCTION and --param NAME=V1,V2 ask for."""
     if not function.isidentifier():
         raise SweepError(f"--sweep: expected the name of a function in {script}, got {function!r}")
     params: dict[str, list] = {}
@@ -169,6 +171,7 @@ def configured_sweeps(config: ProjectConfig, only: Path | None = None) -> tuple[
 
 
 def sweeps_for(path: Path, sweeps: Iterable[Sweep]) -> list[Sweep]:
+    """The sweeps of one script."""
     target = Path(path).resolve()
     return [s for s in sweeps if s.script.resolve() == target]
 
@@ -215,6 +218,7 @@ def sample_corners(params: dict[str, list], count: int | None, seed: int = CORNE
 
 
 def sweep_tasks(sweep: Sweep, count: int | None = None) -> list[Task]:
+    """One task per corner of a sweep (all, or ``count`` sampled)."""
     corners = sample_corners(sweep.params, count) if sweep.params else [{}]
     return [Task(sweep.script, sweep.function, corner) for corner in corners]
 

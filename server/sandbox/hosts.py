@@ -45,6 +45,7 @@ class Host:
 
     @classmethod
     def start(cls, key: WorkerKey, needs_reading: list[str]) -> Host:
+        """Start a host: a confined worker with the layout library imported, waiting for jobs on a socket."""
         try:
             ours, theirs = socket.socketpair(socket.AF_UNIX, socket.SOCK_SEQPACKET)
         except (AttributeError, OSError) as error:  # no such socket here: the runner uses a fresh child
@@ -209,6 +210,7 @@ class HostPool:
         return expired
 
     def give_back(self, host: Host) -> None:
+        """Return an idle host to the pool, ending it when it is spent or the pool is full."""
         slot = (host.key, host.reading)
         evicted = []
         with self._lock:

@@ -145,6 +145,7 @@ class SandboxReport:
         return entry
 
     def doctor_lines(self) -> list[str]:
+        """The lines `latchwatch doctor` prints: each protection in force or missing, with why."""
         width = max(len(name) for name, _title in PROTECTIONS)
         lines = []
         for name, title in PROTECTIONS:

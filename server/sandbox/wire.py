@@ -64,6 +64,7 @@ def decode_payload(buffer: bytes | bytearray | memoryview) -> tuple[dict, list[n
 
 
 def frame_from_row(row) -> Frame:
+    """A Frame from a header's frame row (missing columns are None)."""
     file, line, function, column, end_line, end_column = (list(row) + [None] * 6)[:6]
     return Frame(str(file), int(line), str(function), column, end_line, end_column)
 
@@ -114,6 +115,7 @@ def _check_cell(cell: CapturedCell, number: int, cell_count: int) -> None:
 
 
 def decode_layout(buffer: bytes | bytearray | memoryview) -> CapturedLayout:
+    """The CapturedLayout of a successful payload; WireError for anything else."""
     header, arrays = decode_payload(buffer)
     if header.get("status") != "ok":
         raise WireError(f"payload reports status {header.get('status')!r}, not a layout")

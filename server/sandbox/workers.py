@@ -57,6 +57,7 @@ def child_environment(temp_dir: Path) -> dict[str, str]:
 
 
 def cpu_seconds(timeout: float) -> int:
+    """The CPU-time limit of a run: its timeout plus the start-up and collection allowances."""
     return math.ceil(timeout + STARTUP_ALLOWANCE + COLLECT_ALLOWANCE)
 
 
@@ -177,6 +178,7 @@ def close_quietly(*fds: int | None) -> None:
 
 
 def kill_group(pgid: int, sig: int) -> None:
+    """Signal a process group, ignoring one that is already gone."""
     try:
         os.killpg(pgid, sig)
     except (ProcessLookupError, PermissionError):
