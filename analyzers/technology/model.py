@@ -139,6 +139,13 @@ class Electrical:
 
 
 ELECTRICAL_KEYS = tuple(f.name for f in fields(Electrical))
+# The unit of each [electrical] key, as shown to users.
+ELECTRICAL_UNITS = {
+    "vbe_on": "V", "nwell_sheet": "ohm/sq", "psub_sheet": "ohm/sq", "injection_current": "A",
+    "pwell_sheet": "ohm/sq", "deep_nwell_sheet": "ohm/sq", "psub_resistivity": "ohm cm", "core_current": "A",
+    "sheet_grid": "um", "nwell_doping": "cm^-3", "nwell_depth": "um", "pwell_doping": "cm^-3", "pwell_depth": "um",
+    "psub_doping": "cm^-3", "psub_depth": "um",
+}
 
 
 @dataclass(frozen=True)

@@ -13,7 +13,13 @@ import sys
 from importlib import resources
 from pathlib import Path
 
-from latchwatch.analyzers.technology.model import Electrical, Technology, TechnologyError, technology_from_mapping
+from latchwatch.analyzers.technology.model import (
+    ELECTRICAL_UNITS,
+    Electrical,
+    Technology,
+    TechnologyError,
+    technology_from_mapping,
+)
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -141,10 +147,9 @@ def describe_technology(tech: Technology) -> str:
             else:
                 out.append(f"    {key:<10} {value:.2f} um")
     out += ["", "electrical"]
-    units = {"vbe_on": "V", "injection_current": "A", "psub_resistivity": "ohm cm"}
     defaults = vars(Electrical())
     for key, value in vars(tech.electrical).items():
-        shown = "not set" if value is None else f"{value:.3g} {units.get(key, 'ohm/sq')}"
+        shown = "not set" if value is None else f"{value:.3g} {ELECTRICAL_UNITS[key]}"
         if value is not None and value == defaults[key]:
             shown += " (the default)"
         out.append(f"  {key:<18} {shown}")

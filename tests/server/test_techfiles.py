@@ -308,3 +308,18 @@ def test_tech_check_command(tmp_path):
     assert out.getvalue() == ""
     assert err.getvalue().startswith(f"{bad}: layers.nwel: expected a layer role")
     assert err.getvalue().rstrip().endswith("did you mean 'nwell'?")
+
+
+def test_tech_show_gives_every_electrical_key_its_own_unit():
+    """core_current is a current (A), not a sheet resistance; every key has one unit."""
+    import io
+
+    from latchwatch.analyzers.technology.model import ELECTRICAL_KEYS, ELECTRICAL_UNITS
+
+    assert set(ELECTRICAL_UNITS) == set(ELECTRICAL_KEYS)
+    out = io.StringIO()
+    tech_show_command("demo", out)
+    shown = {line.split()[0]: line for line in out.getvalue().splitlines() if line.startswith("  ") and
+             line.split()[0] in ELECTRICAL_KEYS}
+    assert "0.0001 A" in shown["core_current"] and "ohm/sq" not in shown["core_current"]
+    assert "1e+03 ohm/sq" in shown["nwell_sheet"]
