@@ -14,6 +14,9 @@ import numpy as np
 
 from latchwatch.analyzers.model.findings import Frame
 
+# Cells that carry a layout tool's metadata, not geometry (KLayout's context information).
+METADATA_CELLS = frozenset({"$$$CONTEXT_INFO$$$"})
+
 
 def _i32(n=0):
     return np.zeros(n, dtype=np.int32)
@@ -84,11 +87,16 @@ class CapturedLayout:
         return None
 
     def top_cells(self) -> list[int]:
-        """Cells no other cell references, in capture order."""
+        """Cells no other layout cell references, in capture order; metadata cells are never tops.
+
+        KLayout-based writers add a metadata cell that references every cell at the
+        origin: its references make nothing a non-top, and it is not checked itself."""
         referenced = np.zeros(len(self.cells), dtype=bool)
-        for cell in self.cells:
-            referenced[cell.ref_cell] = True
-        return [int(i) for i in np.flatnonzero(~referenced)]
+        metadata = np.array([cell.name in METADATA_CELLS for cell in self.cells], dtype=bool)
+        for cell, is_metadata in zip(self.cells, metadata, strict=True):
+            if not is_metadata:
+                referenced[cell.ref_cell] = True
+        return [int(i) for i in np.flatnonzero(~referenced & ~metadata)]
 
     @property
     def shape_count(self) -> int:

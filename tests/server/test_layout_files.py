@@ -95,3 +95,18 @@ def test_garbage_file_is_a_failed_read_naming_it(tmp_path):
     path.write_bytes(b"this is not a GDSII stream at all" * 10)
     outcome = read_layout_file(path, "gds")
     assert outcome.failure is not None and "broken.gds" in outcome.failure.message
+
+
+def test_a_klayout_context_info_cell_is_never_a_top(tmp_path):
+    """KLayout-based writers add ``$$$CONTEXT_INFO$$$``, referencing every cell at the origin
+    (seen in GDS files written by gdsfactory 9): the real top stays the top, and the
+    metadata cell is not checked."""
+    lib = _library()
+    context = lib.new_cell("$$$CONTEXT_INFO$$$")
+    for cell in list(lib.cells):
+        if cell is not context:
+            context.add(gdstk.Reference(cell))
+    path = tmp_path / "klayout_like.gds"
+    lib.write_gds(str(path))
+    layout = read_layout(path)
+    assert [layout.cells[i].name for i in layout.top_cells()] == ["TOP"]
