@@ -13,7 +13,8 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from latchwatch.analyzers.model.findings import Finding
+from latchwatch.analyzers.electrical.shunt import si
+from latchwatch.analyzers.model.findings import Device, Finding
 from latchwatch.server.report.model import Report, for_display
 
 PROGRAM = "latchwatch"
@@ -70,9 +71,40 @@ def summary_line(report: Report) -> str:
     return ", ".join(shown) + where
 
 
+def device_lines(devices) -> list[str]:
+    """The ``--devices`` table: a heading and one indented row per device, its place last.
+
+    Rows start with spaces and carry no ``path:line:`` prefix, so editors that parse the
+    finding lines do not take them for findings."""
+    lines = [f"devices ({len(devices)}):"]
+    for device in devices:
+        lines.append("  " + "  ".join(_device_fields(device)))
+    return lines
+
+
+def _device_fields(device: Device) -> list[str]:
+    fields = [device.kind, device.body]
+    fields.append("tap " + (f"{device.tap_distance_um:.2f} um" if device.tap_distance_um is not None else "none"))
+    if device.shunt_ohm is not None:
+        fields.append("shunt " + si(device.shunt_ohm, "ohm"))
+    if device.trigger_current_a is not None:
+        fields.append("trigger " + si(device.trigger_current_a, "A"))
+    if device.net:
+        fields.append(f"net {device.net}")
+    where = f"at {device.file} line {device.line}" if device.file and device.line else "at"
+    x0, y0, x1, y1 = device.bbox
+    where += f" (cell {device.cell}, {x0:.2f}, {y0:.2f} to {x1:.2f}, {y1:.2f})"
+    if device.corner:
+        where += " corner " + ", ".join(f"{k}={v!r}" for k, v in device.corner.items())
+    fields.append(where)
+    return fields
+
+
 def render_text(report: Report, *, base: Path | None = None) -> str:
     """``base``: paths inside it print relative to it (default: the working directory)."""
     shown = for_display(report, base)
     lines = [format_finding(finding) for finding in shown.findings]
+    if shown.devices is not None:
+        lines += device_lines(shown.devices)
     lines.append(summary_line(shown))
     return "\n".join(lines) + "\n"

@@ -134,3 +134,17 @@ def test_rules_command(project):
     one = latchwatch("rules", "floating-well", cwd=project)
     for part in ("What it flags", "Why it matters", "Example", "How to fix it"):
         assert part in one.stdout
+
+
+def test_devices_in_text_output_lists_the_rows_the_json_report_has(project):
+    text = latchwatch("check", "--tech", "demo", "--devices", "far.py", cwd=project)
+    as_json = json.loads(latchwatch("check", "--tech", "demo", "--devices", "--format", "json", "far.py",
+                                    cwd=project).stdout)
+    rows = [line for line in text.stdout.splitlines() if line.startswith("  ")]
+    assert f"devices ({len(as_json['devices'])}):" in text.stdout.splitlines()
+    assert len(rows) == len(as_json["devices"]) >= 1
+    for row, device in zip(rows, as_json["devices"], strict=True):
+        assert row.split()[0] == device["kind"] and f"tap {device['tap_distance_um']:.2f} um" in row
+        assert f"far.py line {device['line']}" in row
+    # Rows are not finding lines: nothing but the findings has the path:line:col: form.
+    assert all(not row.lstrip().startswith("far.py:") for row in rows)
