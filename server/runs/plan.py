@@ -33,6 +33,7 @@ corner its own sandboxed run; server/runs/batch.py runs the tasks. Shared by
 from __future__ import annotations
 
 import ast
+import difflib
 import itertools
 import random
 import re
@@ -128,6 +129,12 @@ def ad_hoc_sweep(script: Path, function: str, param_texts: Iterable[str]) -> Swe
     """The sweep --sweep FUNCTION and --param NAME=V1,V2 ask for."""
     if not function.isidentifier():
         raise SweepError(f"--sweep: expected the name of a function in {script}, got {function!r}")
+    names = module_names(script)
+    if names is not None and function not in names:
+        known = sorted(n for n in names if not n.startswith("_"))
+        close = difflib.get_close_matches(function, known, n=1)
+        hint = f"; did you mean {close[0]!r}?" if close else f" (it defines {', '.join(known) or 'nothing'})"
+        raise SweepError(f"--sweep: {script} defines no function named {function!r}{hint}")
     params: dict[str, list] = {}
     for text in param_texts:
         name, values = parse_param(text)
@@ -135,6 +142,28 @@ def ad_hoc_sweep(script: Path, function: str, param_texts: Iterable[str]) -> Swe
             raise SweepError(f"--param {name}: given twice; list every value in one --param {name}=V1,V2")
         params[name] = values
     return Sweep(Path(script), function, params)
+
+
+def module_names(script: Path) -> set[str] | None:
+    """Names the script binds at module level (definitions, assignments, imports), read
+    without running it; None when that cannot be known (unreadable, a syntax error, or a
+    ``from ... import *``), so that the run itself reports it."""
+    try:
+        tree = ast.parse(Path(script).read_bytes())
+    except (OSError, SyntaxError, ValueError):
+        return None
+    names: set[str] = set()
+    for node in ast.walk(tree):
+        if isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef, ast.ClassDef)):
+            names.add(node.name)
+        elif isinstance(node, ast.Name) and isinstance(node.ctx, ast.Store):
+            names.add(node.id)
+        elif isinstance(node, (ast.Import, ast.ImportFrom)):
+            for alias in node.names:
+                if alias.name == "*":
+                    return None
+                names.add((alias.asname or alias.name).split(".")[0])
+    return names
 
 
 def _json_value(value) -> bool:

@@ -148,3 +148,17 @@ def test_devices_in_text_output_lists_the_rows_the_json_report_has(project):
         assert f"far.py line {device['line']}" in row
     # Rows are not finding lines: nothing but the findings has the path:line:col: form.
     assert all(not row.lstrip().startswith("far.py:") for row in rows)
+
+
+def test_an_unknown_sweep_function_is_one_usage_error(tmp_path):
+    script = tmp_path / "fingers.py"
+    script.write_text("import gdstk\n\n\ndef finger_array(fingers=1):\n    return gdstk.Cell('F')\n")
+    done = latchwatch("check", "--tech", "demo", str(script), "--sweep", "finger_arry", "--param", "fingers=1,2,3",
+                      cwd=tmp_path)
+    assert done.returncode == 2, done.stdout + done.stderr
+    assert "defines no function named 'finger_arry'; did you mean 'finger_array'?" in done.stderr
+    assert "script-error" not in done.stdout
+    # A function bound by an import is not refused on sight: the run decides.
+    script.write_text("from os.path import join as finger_arry\n")
+    assert "defines no function" not in latchwatch("check", "--tech", "demo", str(script), "--sweep",
+                                                   "finger_arry", cwd=tmp_path).stderr
