@@ -9,7 +9,8 @@ from typing import TYPE_CHECKING
 
 from latchwatch.analyzers.context import CheckContext, CheckOptions
 from latchwatch.analyzers.extraction.devices import device_table
-from latchwatch.analyzers.layout.flatten import flatten
+from latchwatch.analyzers.layout.flatten import HierarchyError, flatten
+from latchwatch.analyzers.model.captured import METADATA_CELLS
 from latchwatch.analyzers.model.findings import Device, Finding, Severity
 from latchwatch.analyzers.rules import RULES, Rule, Scope
 
@@ -49,7 +50,12 @@ def top_cells(outcome: RunOutcome, top: str | None) -> list[int]:
     """Indices of the cells to check: the one named by --top, else every cell no other cell references."""
     layout = outcome.layout
     if top is None:
-        return layout.top_cells()
+        tops = layout.top_cells()
+        if not tops and any(cell.name not in METADATA_CELLS for cell in layout.cells):
+            names = ", ".join(sorted(c.name for c in layout.cells if c.name not in METADATA_CELLS))
+            raise HierarchyError(f"{outcome.script}: every cell is referenced by another, so none is a top: "
+                                 f"the references form a cycle (cells: {names})")
+        return tops
     index = layout.cell_index(top)
     if index is None:
         names = ", ".join(sorted(c.name for c in layout.cells)) or "none"

@@ -11,6 +11,13 @@ from latchwatch.analyzers.model.findings import Frame
 # it); it is not a failure of the script and yields no finding.
 STATUSES = ("ok", "error", "timeout", "limit", "cancelled")
 FAILURE_KINDS = ("error", "timeout", "limit", "cancelled")
+# What a run reads instead of running: layout files, by suffix (lower case).
+LAYOUT_SUFFIXES = (".gds", ".gds2", ".gdsii", ".oas", ".oasis")
+
+
+def is_layout_file(path: str) -> bool:
+    """True for a GDSII or OASIS file name (read, not run)."""
+    return path.lower().endswith(LAYOUT_SUFFIXES)
 
 
 @dataclass(frozen=True)

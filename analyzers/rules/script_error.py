@@ -3,9 +3,11 @@
 from __future__ import annotations
 
 from latchwatch.analyzers.model.findings import Severity
+from latchwatch.analyzers.model.run_outcome import is_layout_file
 from latchwatch.analyzers.rules.base import Rule, RuleDoc, Scope
 
 MESSAGE = "script raised {exc_type}: {message}"
+MESSAGE_LAYOUT = "the layout file could not be read: {message}"
 
 
 def check(ctx):
@@ -13,7 +15,10 @@ def check(ctx):
     failure = ctx.outcome.failure
     if failure is None or failure.kind != "error":
         return
-    text = MESSAGE.format(exc_type=failure.exc_type or "an error", message=failure.message or "(no message)")
+    if is_layout_file(ctx.outcome.script or ""):
+        text = MESSAGE_LAYOUT.format(message=failure.message or "(no message)")
+    else:
+        text = MESSAGE.format(exc_type=failure.exc_type or "an error", message=failure.message or "(no message)")
     yield ctx.run_finding(RULE, text, failure.frames)
 
 

@@ -10,14 +10,13 @@ from pathlib import Path
 
 from latchwatch.analyzers.check import CheckOptions, check_outcome, select_rules
 from latchwatch.analyzers.model.findings import Finding, Severity
-from latchwatch.analyzers.model.run_outcome import RunOutcome
+from latchwatch.analyzers.model.run_outcome import LAYOUT_SUFFIXES, RunOutcome
 from latchwatch.analyzers.technology.model import Technology
 from latchwatch.server.report.model import RunSummary
 from latchwatch.server.runs.suppression import apply_suppressions
 from latchwatch.server.sandbox.runner import read_layout_file, run_script
 
 SCRIPT_SUFFIXES = (".py",)
-LAYOUT_SUFFIXES = (".gds", ".gds2", ".gdsii", ".oas", ".oasis")
 
 
 @dataclass(frozen=True)

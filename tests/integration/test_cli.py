@@ -162,3 +162,18 @@ def test_an_unknown_sweep_function_is_one_usage_error(tmp_path):
     script.write_text("from os.path import join as finger_arry\n")
     assert "defines no function" not in latchwatch("check", "--tech", "demo", str(script), "--sweep",
                                                    "finger_arry", cwd=tmp_path).stderr
+
+
+def test_a_layout_whose_every_cell_is_referenced_is_an_error_not_an_empty_pass(tmp_path):
+    script = tmp_path / "selfref.py"
+    script.write_text("import gdstk\nlib = gdstk.Library()\ncell = lib.new_cell('A')\ncell.add(gdstk.Reference(cell))\n")
+    done = latchwatch("check", "--tech", "demo", str(script), cwd=tmp_path)
+    assert done.returncode == 2 and "none is a top: the references form a cycle (cells: A)" in done.stderr
+
+
+def test_an_unreadable_layout_file_says_so_not_that_a_script_raised(tmp_path):
+    (tmp_path / "broken.gds").write_bytes(b"not a GDSII stream" * 20)
+    done = latchwatch("check", "--tech", "demo", "broken.gds", cwd=tmp_path)
+    assert done.returncode == 1
+    assert "broken.gds:1:1: error: the layout file could not be read: cannot read broken.gds as GDSII" in done.stdout
+    assert "script raised" not in done.stdout
