@@ -58,8 +58,9 @@ class FlatLayout:
     label_xy: np.ndarray  # (k, 2)
     label_stack: np.ndarray
     label_instance: np.ndarray
-    invalid: np.ndarray  # flat indices of polygons that were invalid and got repaired
+    invalid: np.ndarray  # flat indices of polygons that were broken and got repaired
     invalid_reason: np.ndarray  # GEOS's reason for each of them
+    invalid_area: np.ndarray  # (k, 2): area as drawn (signed rings summed) and after the repair
 
     @property
     def top_name(self) -> str:
@@ -194,11 +195,17 @@ def _non_finite_rings(coords, offsets):
 
 
 def repair(polygons: np.ndarray, non_finite: np.ndarray | None = None):
-    """Make invalid polygons valid, keeping only their polygonal parts.
+    """Make invalid polygons valid, keeping only their polygonal parts; returns
+    (broken indices, GEOS's reason for each, their (drawn, repaired) areas, the polygons).
 
-    A degenerate polygon (zero area) becomes an empty geometry that no query hits, and
-    so does one marked in ``non_finite`` (NaN or infinite coordinates), which GEOS
-    cannot repair."""
+    GDSII has no holes, so a ring is drawn as one "keyhole" outline that meets itself
+    along a zero-width cut. GEOS calls that invalid, but its repair is the intended
+    polygon with a hole and encloses exactly the outline's area. Every repair that
+    keeps the area (keyholes, shapes touching at a corner, repeated vertices) is such
+    a change of representation and is not counted as broken. A bow tie or a
+    doubly-wound outline changes area under repair; a degenerate polygon (zero area)
+    becomes an empty geometry that no query hits, and so does one marked in
+    ``non_finite`` (NaN or infinite coordinates), which GEOS cannot repair."""
     broken = np.zeros(len(polygons), dtype=bool) if non_finite is None else non_finite
     # Rectangles are valid by construction; GEOS validity is costly, so test the rest only.
     others = np.flatnonzero(~axis_aligned_rectangles(polygons) | broken)
@@ -209,7 +216,7 @@ def repair(polygons: np.ndarray, non_finite: np.ndarray | None = None):
     flawed[~non_finite] = ~shapely.is_valid(finite) | (shapely.area(finite) <= 0)
     invalid = others[flawed]
     if len(invalid) == 0:
-        return invalid, np.empty(0, dtype=object), polygons
+        return invalid, np.empty(0, dtype=object), np.zeros((0, 2)), polygons
     unusable = non_finite[flawed]
     bad = polygons[invalid].copy()
     bad[unusable] = shapely.Polygon()
@@ -223,9 +230,16 @@ def repair(polygons: np.ndarray, non_finite: np.ndarray | None = None):
     if keep.any():
         present, dense = np.unique(owner[keep], return_inverse=True)
         rebuilt[present] = shapely.multipolygons(parts[keep], indices=dense)
+        # One part stays a Polygon, and the cut's leftover vertices (collinear now) go.
+        single = present[shapely.get_num_geometries(rebuilt[present]) == 1]
+        rebuilt[single] = shapely.get_geometry(rebuilt[single], 0)
+        rebuilt[present] = shapely.simplify(rebuilt[present], 0.0)
     out = polygons.copy()
     out[invalid] = rebuilt
-    return invalid, reasons, out
+    areas = np.column_stack([shapely.area(bad), shapely.area(rebuilt)])
+    same_area = (areas[:, 0] > 0) & np.isclose(areas[:, 0], areas[:, 1], rtol=1e-9, atol=0.0)
+    really_broken = unusable | ~same_area
+    return invalid[really_broken], reasons[really_broken], areas[really_broken], out
 
 
 def flatten(captured: CapturedLayout, top: int) -> FlatLayout:
@@ -264,9 +278,9 @@ def flatten(captured: CapturedLayout, top: int) -> FlatLayout:
         return np.concatenate(parts) if parts else np.zeros(shape, dtype=dtype)
 
     polygons = cat(polys, object)
-    invalid, reasons, polygons = repair(polygons, cat(non_finite, bool))
+    invalid, reasons, areas, polygons = repair(polygons, cat(non_finite, bool))
     return FlatLayout(
-        captured=captured, top=top, instances=inst, invalid=invalid, invalid_reason=reasons,
+        captured=captured, top=top, instances=inst, invalid=invalid, invalid_reason=reasons, invalid_area=areas,
         polygons=polygons, layer=cat(layers, np.int32), datatype=cat(dts, np.int32),
         stack=cat(stacks, np.int32), instance=cat(owners, np.int32), source_polygon=cat(sources, np.int64),
         label_text=cat(lt, object), label_layer=cat(ll, np.int32), label_texttype=cat(ltt, np.int32),

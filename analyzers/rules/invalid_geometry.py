@@ -7,7 +7,8 @@ import numpy as np
 from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.rules.base import Rule, RuleDoc
 
-MESSAGE = "polygon on layer {layer}/{datatype} is invalid ({reason}); it was repaired before checking"
+MESSAGE = ("polygon on layer {layer}/{datatype} is invalid ({reason}); it was repaired before checking: "
+           "area {drawn:.4g} as drawn, {repaired:.4g} after the repair")
 
 
 def check(ctx):
@@ -23,7 +24,8 @@ def check(ctx):
         shape = int(flat.invalid[k])
         yield ctx.shape_finding(
             RULE, shape,
-            MESSAGE.format(layer=flat.layer[shape], datatype=flat.datatype[shape], reason=flat.invalid_reason[k]),
+            MESSAGE.format(layer=flat.layer[shape], datatype=flat.datatype[shape], reason=flat.invalid_reason[k],
+                           drawn=flat.invalid_area[k, 0], repaired=flat.invalid_area[k, 1]),
             bbox=_bounds(flat, shape),
         )
 
@@ -44,7 +46,9 @@ RULE = Rule(
             "A polygon whose outline crosses itself, or that has no area (collinear or repeated points). The "
             "checker repairs it (the GEOS make-valid operation, keeping polygonal parts; a zero-area polygon "
             "becomes empty) and goes on, so the other findings still come; this one says the geometry was not "
-            "what was drawn."
+            "what was drawn, and gives the area before and after the repair. A keyhole outline (a ring drawn "
+            "as one polygon that meets itself along a zero-width cut, as GDSII draws every hole) is not "
+            "flagged: its repair is the polygon with a hole and keeps the drawn area."
         ),
         why=(
             "A self-intersecting outline means different things to different tools: a mask writer may fill it "

@@ -102,3 +102,30 @@ def test_polygons_from_rings_match_shapely_polygons_one_by_one():
                 reference = shapely.polygons(ring)
             assert np.array_equal(shapely.get_coordinates(built[i]), shapely.get_coordinates(reference),
                                   equal_nan=True), i
+
+
+# A ring as gdstk.boolean(rectangle((0, 0), (10, 10)), rectangle((2, 2), (8, 8)), "not") writes it:
+# one outline that runs in to the hole and back out along the same cut (gdstk 1.0.2's output).
+KEYHOLE_RING = [(10, 10), (0, 10), (0, 2), (2, 2), (2, 8), (8, 8), (8, 2), (2, 2), (0, 2), (0, 0), (10, 0)]
+
+
+def test_a_keyhole_ring_is_read_as_a_polygon_with_a_hole_and_not_counted_as_broken():
+    c = CellBuilder("TOP").polygon(ACTIVE, KEYHOLE_RING)
+    flat = flatten(layout(c), top=0)
+    assert flat.invalid.tolist() == []
+    ring = flat.polygons[0]
+    # shapely (the reference library): the same region built with its hole explicitly.
+    expected = shapely.Polygon([(0, 0), (10, 0), (10, 10), (0, 10)], holes=[[(2, 2), (8, 2), (8, 8), (2, 8)]])
+    assert shapely.is_valid(ring) and ring.normalize().equals(expected.normalize())
+    assert not shapely.contains_xy(ring, 5, 5)
+
+
+def test_a_repair_that_changes_the_area_is_broken_and_records_both_areas():
+    doubly_wound = [(0, 0), (4, 0), (4, 4), (0, 4), (0, 0), (4, 0), (4, 4), (0, 4)]
+    c = CellBuilder("TOP").polygon(ACTIVE, [(0, 0), (2, 2), (2, 0), (0, 2)]).polygon(ACTIVE, doubly_wound)
+    flat = flatten(layout(c), top=0)
+    assert flat.invalid.tolist() == [0, 1]
+    # Bow tie: the two triangles' signed areas cancel as drawn (0), the repair keeps both (2).
+    assert flat.invalid_area[0].tolist() == pytest.approx([0.0, 2.0])
+    assert flat.invalid_area[1, 1] == pytest.approx(16.0)
+    assert flat.invalid_area[1, 0] != pytest.approx(16.0)
