@@ -62,6 +62,22 @@ class CheckContext:
         """A finding on the line that drew flat shape ``shape``."""
         return self._finding(rule, self.provenance.locate_shape(shape), message, **fields)
 
+    def piece_finding(self, rule, pieces, i: int, message: str, related=(), **fields) -> Finding:
+        """A finding on the line that drew most of diffusion piece ``i`` of ``pieces``; the
+        other lines that drew parts of it follow the given related information."""
+        shape = int(pieces.shape[i])
+        anchor = self.provenance.locate_shape(shape)
+        seen = {(anchor["file"], anchor["line"])}
+        also = []
+        for other in pieces.drawn_shapes(i).tolist():
+            if other == shape:
+                continue
+            part = self.related_shape(other, "also drawn here (the same diffusion)")
+            if (part.file, part.line) not in seen:
+                seen.add((part.file, part.line))
+                also.append(part)
+        return self._finding(rule, anchor, message, related=(*related, *also), **fields)
+
     def label_finding(self, rule, label: int, message: str, **fields) -> Finding:
         """A finding on the line that added flat label ``label``, located at the label."""
         fields.setdefault("location", self.flat.label_xy[label])

@@ -5,8 +5,12 @@ outside every n-well is a p-tap, active & pplus inside an n-well is a P+ device
 diffusion and active & nplus outside is an N+ device diffusion. With a ``tap`` layer,
 taps are tap & implant and everything typed on active is a device diffusion.
 
-Every piece keeps the index of the flat shape it was cut from (the drawn active or tap
-polygon), which is how findings find their source line.
+Touching and overlapping pieces of the same kind in the same body are one diffusion,
+however many shapes drew it (PDK cells draw a transistor's diffusion in several
+polygons, a tap strip in abutting rectangles): they are merged before taps, contacts
+and devices are decided. Every merged piece keeps the flat shapes that drew it; its
+``shape`` is the one that drew the most of it, which is how findings find their source
+line, and the others go into the finding's related information.
 
 Isolation: with a ``deep_nwell`` layer, a p-well isolated over a deep n-well is a body
 of its own (ids ``pwell_body(k)``, below SUBSTRATE): its N+ device diffusions and its
@@ -51,22 +55,68 @@ class Pieces:
     """Typed diffusion pieces: one row per polygon part."""
 
     geoms: np.ndarray
-    shape: np.ndarray  # flat shape index the piece was cut from
+    shape: np.ndarray  # flat shape index the piece was cut from (after merging: the one that drew most of it)
     body: np.ndarray  # well index, or SUBSTRATE
+    # Per piece merged from several shapes, every flat shape that drew it; None (for the
+    # whole array or one piece) means the piece was drawn by ``shape`` alone.
+    drawn: np.ndarray | None = None
 
     def __len__(self) -> int:
         return len(self.geoms)
 
+    def drawn_shapes(self, i: int) -> np.ndarray:
+        """The flat shapes that drew piece ``i``, ``shape[i]`` among them."""
+        several = None if self.drawn is None else self.drawn[i]
+        return np.array([self.shape[i]], np.int64) if several is None else several
+
     def select(self, mask: np.ndarray) -> Pieces:
-        return Pieces(self.geoms[mask], self.shape[mask], self.body[mask])
+        return Pieces(self.geoms[mask], self.shape[mask], self.body[mask],
+                      None if self.drawn is None else self.drawn[mask])
+
+    def taken(self, owner: np.ndarray, geoms: np.ndarray, body: np.ndarray) -> Pieces:
+        """New pieces ``geoms`` cut from pieces ``owner`` of these, in bodies ``body``."""
+        return Pieces(geoms, self.shape[owner], body, None if self.drawn is None else self.drawn[owner])
 
     @staticmethod
     def concat(parts: list[Pieces]) -> Pieces:
-        return Pieces(
-            np.concatenate([p.geoms for p in parts]) if parts else np.empty(0, dtype=object),
-            np.concatenate([p.shape for p in parts]) if parts else np.zeros(0, np.int64),
-            np.concatenate([p.body for p in parts]) if parts else np.zeros(0, np.int64),
-        )
+        if not parts:
+            return Pieces(np.empty(0, dtype=object), np.zeros(0, np.int64), np.zeros(0, np.int64))
+        drawn = None
+        if any(p.drawn is not None for p in parts):
+            drawn = np.concatenate([np.full(len(p), None, dtype=object) if p.drawn is None else p.drawn for p in parts])
+        return Pieces(*(np.concatenate([getattr(p, f) for p in parts]) for f in ("geoms", "shape", "body")), drawn)
+
+
+def merged(pieces: Pieces) -> Pieces:
+    """Touching or overlapping pieces in the same body united into one piece each.
+
+    >>> import shapely
+    >>> strip = Pieces(shapely.box([0, 2, 9], 0, [2, 4, 10], 1), np.array([5, 6, 7]), np.zeros(3, np.int64))
+    >>> one = merged(strip)
+    >>> [p.bounds for p in one.geoms], one.shape.tolist(), [one.drawn_shapes(i).tolist() for i in range(2)]
+    ([(0.0, 0.0, 4.0, 1.0), (9.0, 0.0, 10.0, 1.0)], [5, 7], [[5, 6], [7]])
+    """
+    n = len(pieces)
+    if n < 2:
+        return pieces
+    ia, ib = g.overlap_pairs(pieces.geoms, pieces.geoms, touching=True)
+    keep = (pieces.body[ia] == pieces.body[ib]) & (ia != ib)
+    if not keep.any():
+        return pieces
+    label = g.labels_of_pairs(ia[keep], ib[keep], n)
+    n_groups = int(label.max()) + 1
+    # Without the seams' collinear vertices, which would otherwise become grid lines of the sheet model.
+    geoms = shapely.simplify(g.union_groups(pieces.geoms, label, n_groups), 0.0)
+    # The representative: the piece with the largest area, the first-drawn shape on a tie.
+    order = np.lexsort((pieces.shape, -shapely.area(pieces.geoms), label))
+    starts = np.flatnonzero(np.r_[True, label[order][1:] != label[order][:-1]])
+    first = order[starts]
+    drawn = np.full(n_groups, None, dtype=object)
+    sizes = np.diff(np.r_[starts, n])
+    for s, size in zip(starts[sizes > 1].tolist(), sizes[sizes > 1].tolist(), strict=True):  # merged groups only
+        members = order[s:s + size]
+        drawn[label[members[0]]] = np.unique(np.concatenate([pieces.drawn_shapes(int(m)) for m in members]))
+    return Pieces(geoms, pieces.shape[first], pieces.body[first], drawn)
 
 
 @dataclass
@@ -129,8 +179,8 @@ def _split_by_pwells(pieces: Pieces, pwells: np.ndarray) -> Pieces:
     inside, i_owner, i_pwell = g.clip_inside(pieces.geoms, pwells)
     outside, o_owner = g.clip_outside(pieces.geoms, pwells)
     return Pieces.concat([
-        Pieces(outside, pieces.shape[o_owner], pieces.body[o_owner]),
-        Pieces(inside, pieces.shape[i_owner], pwell_body(i_pwell.astype(np.int64))),
+        pieces.taken(o_owner, outside, pieces.body[o_owner]),
+        pieces.taken(i_owner, inside, pwell_body(i_pwell.astype(np.int64))),
     ])
 
 
@@ -147,8 +197,8 @@ def _split_by_wells(pieces: Pieces, wells: np.ndarray) -> tuple[Pieces, Pieces]:
     inside, i_owner, i_well = g.clip_inside(pieces.geoms, wells)
     outside, o_owner = g.clip_outside(pieces.geoms, wells)
     return (
-        Pieces(inside, pieces.shape[i_owner], i_well.astype(np.int64)),
-        Pieces(outside, pieces.shape[o_owner], np.full(len(outside), SUBSTRATE, np.int64)),
+        pieces.taken(i_owner, inside, i_well.astype(np.int64)),
+        pieces.taken(o_owner, outside, np.full(len(outside), SUBSTRATE, np.int64)),
     )
 
 
@@ -167,6 +217,7 @@ def extract(flat: FlatLayout, tech: Technology) -> Extraction:
     deep, deep_shapes = _merge_wells(flat, tech, "deep_nwell")
     pwells, pwell_shapes = _isolated_pwells(flat, tech, deep, deep_shapes, wells)
     ndiff, ptap = _split_by_pwells(ndiff, pwells), _split_by_pwells(ptap, pwells)
+    pdiff, ndiff, ntap, ptap = merged(pdiff), merged(ndiff), merged(ntap), merged(ptap)
 
     contacts, _ = _shapes(flat, tech, "contact")
     poly, _ = _shapes(flat, tech, "poly")

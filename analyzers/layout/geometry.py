@@ -60,6 +60,15 @@ def components(geoms: np.ndarray, *, touching: bool = True) -> np.ndarray:
     if n == 0:
         return np.zeros(0, np.int64)
     ia, ib = overlap_pairs(geoms, geoms, touching=touching)
+    return labels_of_pairs(ia, ib, n)
+
+
+def labels_of_pairs(ia: np.ndarray, ib: np.ndarray, n: int) -> np.ndarray:
+    """Connected-component label of each of n items joined by the pairs (ia[k], ib[k]).
+
+    >>> labels_of_pairs(np.array([0, 3]), np.array([2, 4]), 5).tolist()
+    [0, 1, 0, 2, 2]
+    """
     graph = coo_matrix((np.ones(len(ia), dtype=np.int8), (ia, ib)), shape=(n, n))
     _, labels = connected_components(graph, directed=False)
     return labels

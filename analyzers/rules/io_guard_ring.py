@@ -83,12 +83,12 @@ def _check_kind(ctx, k: _Kind, devices: np.ndarray, params):
         shape = int(k.pieces.shape[i])
         words = dict(k.words, what=describe(k.kind, bool(k.gated[i])))
 
-        def finding(code, message, location, related_shape, related_text, shape=shape, n=n, **fields):
+        def finding(code, message, location, related_shape, related_text, shape=shape, n=n, i=i, **fields):
             if (shape, code) in seen:
                 return None
             seen.add((shape, code))
             related = (ctx.related_shape(related_shape, related_text, location),) if related_shape is not None else ()
-            return ctx.shape_finding(RULE, shape, message, location=location, bbox=bounds[n], related=related,
+            return ctx.piece_finding(RULE, k.pieces, i, message, location=location, bbox=bounds[n], related=related,
                                      **fields)
 
         hole = own_hole[n]

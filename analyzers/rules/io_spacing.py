@@ -66,8 +66,8 @@ def check(ctx):
             done.add(shape)
             line = shapely.get_coordinates(shapely.shortest_line(geoms[n], geom))
             what = describe(kind, bool(gated[devices[n]]))
-            yield ctx.shape_finding(
-                RULE, shape, MESSAGE.format(what=what, value=value, target=target, limit=minimum, extra=extra),
+            yield ctx.piece_finding(
+                RULE, pieces, int(devices[n]), MESSAGE.format(what=what, value=value, target=target, limit=minimum, extra=extra),
                 location=line[0], bbox=bounds[n], value=value, limit=minimum, unit="um",
                 related=(ctx.related_shape(target_shape, near_text, line[1]),),
             )

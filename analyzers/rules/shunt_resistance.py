@@ -54,8 +54,8 @@ def check(ctx):
             finite = np.isfinite(ohm)
             message = (MESSAGE.format(ohm=si(ohm, "ohm"), trigger=si(est.vbe_on / ohm, "A"), **words)
                        if finite else MESSAGE_NO_PATH.format(**words))
-            yield ctx.shape_finding(
-                RULE, int(pieces.shape[i]), message,
+            yield ctx.piece_finding(
+                RULE, pieces, i, message,
                 location=shapely.get_coordinates(shapely.point_on_surface(pieces.geoms[i]))[0],
                 bbox=bounds[i], value=ohm if finite else None, limit=float(f"{limit[i]:.6g}"), unit="ohm",
                 related=related,

@@ -41,9 +41,8 @@ def check(ctx):
                 tap_name = "p-well tap"
             what = describe(kind, bool(r.gated[i]))
             limit = float(r.limit[i])
-            shape = int(r.pieces.shape[i])
             if not np.isfinite(res.value[i]):
-                yield ctx.shape_finding(RULE, shape, MESSAGE_NO_TAP.format(what=what, tap=tap_name, limit=limit),
+                yield ctx.piece_finding(RULE, r.pieces, i, MESSAGE_NO_TAP.format(what=what, tap=tap_name, limit=limit),
                                         bbox=bounds[i], limit=limit, unit="um", device_kind=DEVICE_KIND[kind])
                 continue
             where = ""
@@ -53,8 +52,8 @@ def check(ctx):
             tap_xy = shapely.get_coordinates(
                 shapely.shortest_line(r.taps.geoms[res.tap[i]], shapely.points(res.point[i]))
             )[0]
-            yield ctx.shape_finding(
-                RULE, shape,
+            yield ctx.piece_finding(
+                RULE, r.pieces, i,
                 MESSAGE.format(what=what, value=res.value[i], tap=tap_name, limit=limit, where=where),
                 location=res.point[i], bbox=bounds[i], value=res.value[i], limit=limit, unit="um",
                 related=(ctx.related_shape(tap_shape, f"nearest {tap_name}", tap_xy),),

@@ -58,13 +58,13 @@ def check(ctx):
             done.add(shape)
             where = shapely.get_coordinates(shapely.point_on_surface(pieces.geoms[i]))[0]
             if is_wrong:
-                yield ctx.shape_finding(
-                    RULE, shape, MESSAGE_WRONG.format(tap=tap, net=ln.display_name(n), supply=supply,
+                yield ctx.piece_finding(
+                    RULE, pieces, i, MESSAGE_WRONG.format(tap=tap, net=ln.display_name(n), supply=supply,
                                                       patterns=patterns),
                     location=where, bbox=bounds[i])
             else:
-                yield ctx.shape_finding(
-                    RULE, shape, MESSAGE_UNNAMED.format(tap=tap, names=", ".join(ln.supply_names)),
+                yield ctx.piece_finding(
+                    RULE, pieces, i, MESSAGE_UNNAMED.format(tap=tap, names=", ".join(ln.supply_names)),
                     location=where, bbox=bounds[i]).with_severity(Severity.INFO)
 
 

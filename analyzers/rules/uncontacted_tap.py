@@ -22,8 +22,8 @@ def check(ctx):
         _, first = np.unique(pieces.shape[bare], return_index=True)
         bounds = shapely.bounds(pieces.geoms)
         for i in bare[first]:
-            yield ctx.shape_finding(
-                RULE, int(pieces.shape[i]), MESSAGE.format(kind=kind),
+            yield ctx.piece_finding(
+                RULE, pieces, i, MESSAGE.format(kind=kind),
                 location=shapely.get_coordinates(shapely.point_on_surface(pieces.geoms[i]))[0],
                 bbox=bounds[i],
             )

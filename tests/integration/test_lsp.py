@@ -60,12 +60,13 @@ async def test_edit_updates_and_close_clears(tmp_path, session):
     await s.start(tmp_path / "proj", options=trusted(tmp_path / "proj"))
     uri = s.open(script)
     await s.published_for(uri, version=1, where=lambda p: len(p.diagnostics) == 1)
-    # Move the third diffusion from x=28 to x=8: one failure (23 um) remains.
+    # Move the third diffusion from x=28 to x=8: the three now abut or overlap (0..8, 8..16,
+    # 14..22), one diffusion whose farthest point is 23 um from the tap.
     loop_text = "for x in (0, 14, 28):"
     s.edit_line(uri, 2, LOOP_LINE - 1, loop_text.index("28"), loop_text.index("28") + 2, "8")
     published = await s.published_for(uri, version=2)
     (diagnostic,) = published.diagnostics
-    assert diagnostic.message.startswith("1 of 3 P+ diffusions drawn here: P+ diffusion is 23.00 um")
+    assert diagnostic.message.startswith("P+ diffusion is 23.00 um")
     s.edit_line(uri, 3, LOOP_LINE - 1, loop_text.index("14"), loop_text.index("14") + 2, "4")
     assert (await s.published_for(uri, version=3)).diagnostics == []
     s.client.text_document_did_close(types.DidCloseTextDocumentParams(types.TextDocumentIdentifier(uri)))

@@ -1,0 +1,100 @@
+"""Layouts drawn the way PDK cells and layout tools draw them, through `latchwatch check`:
+rings as keyhole polygons (gdstk.boolean), one diffusion drawn in several shapes.
+Expected figures are worked out by hand from the geometry in each script."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+PRELUDE = '''import gdstk
+NWELL, ACTIVE, POLY, NPLUS, PPLUS, CONTACT = (1, 0), (2, 0), (3, 0), (4, 0), (5, 0), (6, 0)
+lib = gdstk.Library()
+cell = lib.new_cell("TOP")
+
+
+def box(layer, x0, y0, x1, y1):
+    cell.add(gdstk.rectangle((x0, y0), (x1, y1), layer=layer[0], datatype=layer[1]))
+
+
+def polygons(shapes, *layers):
+    for layer in layers:
+        for shape in shapes:
+            cell.add(gdstk.Polygon(shape.points, layer=layer[0], datatype=layer[1]))
+'''
+
+# A 40 um n-tap ring, 2 um wide, made by gdstk.boolean (one keyhole polygon), contacted
+# along its bottom side, round a 4 um P+ device at the centre of a 44 um n-well.
+KEYHOLE_RING = PRELUDE + '''
+box(NWELL, -2, -2, 42, 42)
+ring = gdstk.boolean(gdstk.rectangle((0, 0), (40, 40)), gdstk.rectangle((2, 2), (38, 38)), "not")
+polygons(ring, ACTIVE, NPLUS)
+for x in range(1, 40, 4):
+    box(CONTACT, x - 0.2, 0.8, x + 0.2, 1.2)
+box(PPLUS, 18, 18, 22, 22)
+box(ACTIVE, 18, 18, 22, 22)
+'''
+
+# The same ring drawn as two contacted halves, and as four abutting sides.
+HALVES_RING = KEYHOLE_RING.replace(
+    'ring = gdstk.boolean(gdstk.rectangle((0, 0), (40, 40)), gdstk.rectangle((2, 2), (38, 38)), "not")',
+    'ring = gdstk.boolean(gdstk.rectangle((0, 0), (40, 40)), gdstk.rectangle((2, 2), (38, 38)), "not")\n'
+    'ring = [*gdstk.boolean(ring, gdstk.rectangle((-1, -1), (20, 41)), "and"),\n'
+    '        *gdstk.boolean(ring, gdstk.rectangle((20, -1), (41, 41)), "and")]\n'
+    'box(CONTACT, 19.8, 38.8, 20.2, 39.2)  # a contact on the upper half too')
+
+# An n-tap strip drawn as two abutting rectangles with one contact at its far left, and a
+# P+ transistor diffusion drawn as five abutting pieces 4 um above the strip's right half.
+PIECES = PRELUDE + '''
+box(NWELL, -2, -2, 42, 12)
+box(NPLUS, 0, 0, 20, 2)
+box(ACTIVE, 0, 0, 20, 2)
+box(NPLUS, 20, 0, 40, 2)
+box(ACTIVE, 20, 0, 40, 2)
+box(CONTACT, 0.8, 0.8, 1.2, 1.2)
+for k in range(5):
+    box(PPLUS, 30 + 2 * k, 6, 32 + 2 * k, 10)
+    box(ACTIVE, 30 + 2 * k, 6, 32 + 2 * k, 10)
+box(POLY, 32.5, 5, 33.5, 11)
+'''
+
+
+def check(tmp_path, name, script):
+    path = tmp_path / f"{name}.py"
+    path.write_text(script)
+    result = subprocess.run([sys.executable, "-m", "latchwatch", "check", "--tech", "demo", "--devices",
+                             "--format", "json", path.name], cwd=tmp_path, capture_output=True, text=True,
+                            timeout=120)
+    assert result.returncode in (0, 1), result.stderr
+    return json.loads(result.stdout)
+
+
+def test_a_keyhole_ring_from_gdstk_boolean_is_a_closed_contacted_ring(tmp_path):
+    report = check(tmp_path, "keyhole", KEYHOLE_RING)
+    assert report["findings"] == []  # no invalid-geometry, no lost ring
+    (device,) = report["devices"]
+    # Hand: the device's farthest point from the ring is its centre (20, 20), 18 um from
+    # the ring's inner edge at x = 2 (and y = 2, x = 38, y = 38).
+    assert device["tap_distance_um"] == 18.0
+    assert device["shunt_ohm"] is not None and device["shunt_ohm"] > 0
+
+
+def test_a_ring_drawn_in_halves_is_the_same_ring(tmp_path):
+    whole = check(tmp_path, "whole", KEYHOLE_RING)["devices"][0]
+    halves_report = check(tmp_path, "halves", HALVES_RING)
+    assert halves_report["findings"] == []
+    halves = halves_report["devices"][0]
+    assert halves["tap_distance_um"] == whole["tap_distance_um"]
+    # The one extra contact adds no conductor: the ring is one tap either way.
+    assert abs(halves["shunt_ohm"] - whole["shunt_ohm"]) <= 1e-6 * whole["shunt_ohm"]
+
+
+def test_a_tap_and_a_device_drawn_in_pieces_are_one_tap_and_one_device(tmp_path):
+    report = check(tmp_path, "pieces", PIECES)
+    assert report["findings"] == []  # the strip's right half is not an uncontacted tap
+    (device,) = report["devices"]
+    # Hand: the device spans x 30..40, y 6..10; the strip (y 0..2) runs under all of it,
+    # so its farthest point is on its top edge, 10 - 2 = 8 um from the strip.
+    assert device["bbox"] == [30.0, 6.0, 40.0, 10.0]
+    assert device["tap_distance_um"] == 8.0
