@@ -9,8 +9,8 @@ the other one (analyzers/electrical/sheet.py solves the sheet).
 
 A body whose grid stays small is solved whole: one factorization for all its devices.
 Larger bodies are solved in a window around each device, reaching WINDOW_REACH times
-the distance to its nearest tap beyond it (the sheet outside a window is cut away,
-which can only raise the estimate). Windows whose contents are the same up to a
+the true distance to its WINDOW_TAPS-th nearest tap beyond it (the sheet outside a
+window is cut away, which can only raise the estimate; see _windowed). Windows whose contents are the same up to a
 translation (repeated cells) are solved once: each window's contents are hashed
 after clipping, relative to the device. The cost is then linear in the number of
 distinct windows.
@@ -33,7 +33,8 @@ SUBSTRATE_MARGIN = 5.0  # layout units (um) of substrate sheet beyond the layout
 WHOLE_BODY_CELLS = 6000  # grid cells up to which a body is solved whole
 WHOLE_BODY_DEVICES = 48  # more devices than this: windows (the grid grows with every device)
 WINDOW_TAPS = 2  # a window reaches WINDOW_REACH times the distance to the device's WINDOW_TAPS-th nearest tap
-WINDOW_REACH = 1.5
+SECOND_TAP_CAP = 2.0  # ... but no farther than this many times the distance to the nearest tap
+WINDOW_REACH = 2.0
 WINDOW_RETRIES = 2  # a device cut off from its taps inside its window gets a 4x wider one
 CHANNEL_TAPS = 2  # taps tried for a device's channel bound
 PRUNE_MARGIN = 1.1  # a bound this far inside the limit skips the solve (the grid errs by under 6%)
@@ -198,16 +199,33 @@ def _regions(ex, kind: str):
 
 
 def tap_reach(pieces: Pieces, taps: Pieces) -> np.ndarray:
-    """Distance between box centres from each piece to the WINDOW_TAPS-th nearest tap of
-    its own body (or its farthest, when the body has fewer)."""
-    def points(p):  # the body as a third coordinate far apart: neighbours stay in the body
-        b = shapely.bounds(p.geoms)
-        return np.c_[(b[:, :2] + b[:, 2:]) / 2, p.body * _BODY_SPACING]
+    """True geometric distance from each piece to the WINDOW_TAPS-th nearest tap of its
+    own body, at most SECOND_TAP_CAP times the nearest one, and never less than the
+    piece's own larger side (a tap abutting the device still needs room for the
+    current to spread). -inf where the body has no tap.
 
-    k = min(WINDOW_TAPS, len(taps))
-    dist, _ = cKDTree(points(taps)).query(points(pieces), k=list(range(1, k + 1)))
-    dist[dist >= _BODY_SPACING / 2] = -np.inf
-    return dist.max(axis=1)
+    Box centres would not do: the centre of a tap ring, or of an L-shaped strip, can sit
+    on the device it surrounds."""
+    nearest, _ = nearest_taps(pieces, taps)
+    reach = nearest.copy()
+    found = np.isfinite(nearest)
+    if WINDOW_TAPS > 1 and found.any():
+        rows = np.flatnonzero(found)
+        cap = SECOND_TAP_CAP * nearest[rows]
+        qi, ti = shapely.STRtree(taps.geoms).query(pieces.geoms[rows], predicate="dwithin", distance=cap)
+        same = taps.body[ti] == pieces.body[rows[qi]]
+        qi, ti = qi[same], ti[same]
+        d = shapely.distance(pieces.geoms[rows[qi]], taps.geoms[ti])
+        # The WINDOW_TAPS-th smallest distance per piece, or the cap when fewer taps are that near.
+        order = np.lexsort((d, qi))
+        rank = np.arange(len(order)) - np.searchsorted(qi[order], qi[order])
+        kth = np.full(len(rows), np.nan)
+        pick = order[rank == WINDOW_TAPS - 1]
+        kth[qi[pick]] = d[pick]
+        reach[rows] = np.where(np.isnan(kth), cap, kth)
+    b = shapely.bounds(pieces.geoms)
+    size = np.maximum(b[:, 2] - b[:, 0], b[:, 3] - b[:, 1])
+    return np.where(found, np.maximum(reach, size), -np.inf)
 
 
 _BODY_SPACING = 1e12
@@ -240,7 +258,13 @@ def nearest_taps(pieces: Pieces, taps: Pieces) -> tuple[np.ndarray, np.ndarray]:
 
 def _windowed(pieces, members, sheet, taps, regions, grid) -> np.ndarray:
     """Estimates of ``pieces[members]``, each in its own window; windows of every body of
-    the kind are compared together, so a repeated well is solved once."""
+    the kind are compared together, so a repeated well is solved once.
+
+    Cutting the sheet outside a window can only raise the resistance (removing conductor
+    never lowers it: Rayleigh's monotonicity), so each estimate errs upward. A window
+    reaches WINDOW_REACH times the true distance to the device's WINDOW_TAPS-th nearest
+    tap (tap_reach), so the taps that carry most of the current lie inside it; a device
+    that still finds no tap in its window gets a 4x wider one, WINDOW_RETRIES times."""
     devices = pieces.geoms[members]
     body = pieces.body[members]
     bounds = shapely.bounds(devices)

@@ -98,3 +98,23 @@ def test_a_tap_and_a_device_drawn_in_pieces_are_one_tap_and_one_device(tmp_path)
     # so its farthest point is on its top edge, 10 - 2 = 8 um from the strip.
     assert device["bbox"] == [30.0, 6.0, 40.0, 10.0]
     assert device["tap_distance_um"] == 8.0
+
+
+ANNULUS = PRELUDE + '''
+R1, R2 = 2.0, {r2}
+box(NWELL, -R2 - 6, -R2 - 6, R2 + 6, R2 + 6)
+polygons([gdstk.ellipse((0, 0), R2 + 2, inner_radius=R2, tolerance=1e-3)], ACTIVE, NPLUS)
+polygons([gdstk.ellipse((0, 0), R1, tolerance=1e-3)], ACTIVE, PPLUS)
+box(CONTACT, R2 + 0.8, -0.2, R2 + 1.2, 0.2)
+'''
+
+
+def test_the_annulus_end_to_end_matches_the_analytic_resistance(tmp_path):
+    import math
+
+    for r2 in (20.0, 80.0):  # r2 / r1 = 10 and 40
+        report = check(tmp_path, f"annulus_{int(r2)}", ANNULUS.format(r2=r2))
+        (device,) = report["devices"]
+        # Analytic: R = Rs / (2 pi) ln(r2 / r1), Rs = 1000 ohm/sq (the demo's n-well sheet).
+        analytic = 1000.0 / (2 * math.pi) * math.log(r2 / 2.0)
+        assert abs(device["shunt_ohm"] / analytic - 1) <= 0.02, (r2, device["shunt_ohm"], analytic)
