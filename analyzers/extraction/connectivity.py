@@ -27,6 +27,7 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
 from latchwatch.analyzers.extraction.extract import Extraction, Pieces
+from latchwatch.analyzers.extraction.layers import layer_shapes
 from latchwatch.analyzers.layout import geometry as g
 from latchwatch.analyzers.technology.model import Technology, is_conductor_role
 
@@ -203,8 +204,8 @@ def connect(ex: Extraction, tech: Technology) -> Connectivity:
     """Join the extracted conductors through the [connectivity] stack into nets."""
     flat = ex.flat
     roles = conductor_roles(tech)
-    poly = Shapes(flat.polygons[flat.on_layer(tech.layer("poly"))])
-    has_tap_layer = tech.layer("tap") is not None
+    poly = Shapes(layer_shapes(flat, tech, "poly")[0])
+    has_tap_layer = tech.has_layer("tap")
     per_role: list[Conductors] = []
     for role in roles:
         if role == "active":
@@ -213,12 +214,12 @@ def connect(ex: Extraction, tech: Technology) -> Connectivity:
         elif role == "tap" and has_tap_layer:
             c = _diffusion_conductors(ex, poly, (NTAP, PTAP))
         else:
-            idx = flat.on_layer(tech.layer(role))
-            c = Conductors(flat.polygons[idx], np.zeros(0), np.full(len(idx), NOT_DIFFUSION, np.int64),
+            geoms, idx = layer_shapes(flat, tech, role)
+            c = Conductors(geoms, np.zeros(0), np.full(len(idx), NOT_DIFFUSION, np.int64),
                            np.full(len(idx), -1, np.int64), idx)
         per_role.append(c)
     cut_roles = sorted({cut for _, cut, _ in tech.connectivity})
-    cuts = [flat.polygons[flat.on_layer(tech.layer(role))] for role in cut_roles]
+    cuts = [layer_shapes(flat, tech, role)[0] for role in cut_roles]
     links = [(roles.index(lo), len(roles) + cut_roles.index(cut), roles.index(up))
              for lo, cut, up in tech.connectivity]
 

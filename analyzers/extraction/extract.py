@@ -27,6 +27,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import shapely
 
+from latchwatch.analyzers.extraction.layers import layer_shapes
 from latchwatch.analyzers.layout import geometry as g
 from latchwatch.analyzers.layout.flatten import FlatLayout
 from latchwatch.analyzers.technology.model import Technology
@@ -140,8 +141,7 @@ class Extraction:
     pwell_shapes: list[np.ndarray] = field(default_factory=list)  # drawn shapes of each
 
 def _shapes(flat: FlatLayout, tech: Technology, role: str) -> tuple[np.ndarray, np.ndarray]:
-    idx = flat.on_layer(tech.layer(role))
-    return flat.polygons[idx], idx
+    return layer_shapes(flat, tech, role)
 
 
 def _merge_touching(geoms: np.ndarray, idx: np.ndarray):
@@ -207,7 +207,7 @@ def extract(flat: FlatLayout, tech: Technology) -> Extraction:
     wells, well_shapes = _merge_wells(flat, tech)
     n_active_in, n_active_out = _split_by_wells(_implanted(flat, tech, "active", "nplus"), wells)
     p_active_in, p_active_out = _split_by_wells(_implanted(flat, tech, "active", "pplus"), wells)
-    if tech.layer("tap") is not None:
+    if tech.has_layer("tap"):
         n_tap_in, _ = _split_by_wells(_implanted(flat, tech, "tap", "nplus"), wells)
         _, p_tap_out = _split_by_wells(_implanted(flat, tech, "tap", "pplus"), wells)
         ntap, ptap = n_tap_in, p_tap_out

@@ -22,6 +22,7 @@ import numpy as np
 import shapely
 
 from latchwatch.analyzers.extraction.connectivity import NDIFF, PDIFF, Connectivity, connect
+from latchwatch.analyzers.extraction.layers import layer_shapes
 from latchwatch.analyzers.layout import geometry as g
 
 DEVICE_CODES = {"n": NDIFF, "p": PDIFF}
@@ -131,8 +132,7 @@ def pad_connected(ctx) -> dict[str, np.ndarray]:
 
     def compute():
         ex, tech, ln = ctx.extraction, ctx.tech, nets(ctx)
-        marker_idx = ex.flat.on_layer(tech.layer("io_marker"))
-        marker = ex.flat.polygons[marker_idx]
+        marker, _ = layer_shapes(ex.flat, tech, "io_marker")
         out = {}
         for kind, pieces in (("n", ex.ndiff), ("p", ex.pdiff)):
             flags = g.area_overlap_any(pieces.geoms, marker) if len(marker) else np.zeros(len(pieces), bool)

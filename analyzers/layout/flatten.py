@@ -9,7 +9,7 @@ parent's coordinates. Arrays are expanded with numpy, never one copy at a time.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import shapely
@@ -61,6 +61,8 @@ class FlatLayout:
     invalid: np.ndarray  # flat indices of polygons that were broken and got repaired
     invalid_reason: np.ndarray  # GEOS's reason for each of them
     invalid_area: np.ndarray  # (k, 2): area as drawn (signed rings summed) and after the repair
+    # Shapes computed from these once per layout, such as derived layers (extraction/layers.py).
+    cache: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def top_name(self) -> str:

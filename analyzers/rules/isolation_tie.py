@@ -53,7 +53,8 @@ def check(ctx):
     # A p-well that is only the inside of an n-well ring and holds nothing needs no tie;
     # one drawn on the pwell layer, or holding taps, does.
     pwell_layer = ctx.tech.layer("pwell")
-    drawn = np.array([pwell_layer is not None and (int(ctx.flat.layer[s[0]]), int(ctx.flat.datatype[s[0]]))
+    derived = pwell_layer is None and "pwell" in ctx.tech.derived  # its shapes are all the layout's p-wells
+    drawn = np.array([derived or pwell_layer is not None and (int(ctx.flat.layer[s[0]]), int(ctx.flat.datatype[s[0]]))
                       == tuple(pwell_layer) for s in ex.pwell_shapes], dtype=bool)
     for k in np.flatnonzero(~tied_p & ~devices & (drawn | (bare > 0))):
         extra = f"; its {bare[k]} p-tap{'s' if bare[k] > 1 else ''} enclose no contact" if bare[k] else ""

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.rules.base import Rule, RuleDoc, Scope
+from latchwatch.analyzers.technology.derived import pairs as named_pairs
 
 MESSAGE = "script ran but drew no shapes on the layers of technology {tech}"
 
@@ -14,6 +15,8 @@ def check(ctx):
     if ctx.outcome.status != "ok" or layout is None:
         return
     known = {tuple(v) for v in ctx.tech.layers.values()}
+    for expr in ctx.tech.derived.values():  # L/D layers a derived role names directly
+        known |= named_pairs(expr)
     for cell in layout.cells:
         pairs = set(zip(cell.poly_layer.tolist(), cell.poly_datatype.tolist(), strict=False)) if cell.polygon_count else set()
         if pairs & known:

@@ -13,11 +13,12 @@ import difflib
 import math
 import re
 from collections.abc import Mapping
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, field, fields
 from types import MappingProxyType
 from typing import Any
 
 from latchwatch.analyzers.electrical.mobility import MAX_DOPING, MIN_DOPING, UM_PER_CM, sheet_resistance
+from latchwatch.analyzers.technology import derived as derived_layers
 
 REQUIRED_LAYERS = ("nwell", "active", "poly", "nplus", "pplus", "contact")
 OPTIONAL_LAYERS = ("metal1", "via1", "metal2", "pwell", "deep_nwell", "tap", "io_marker")
@@ -162,12 +163,19 @@ class Technology:
     pads: tuple[str, ...]
     rules: Mapping[str, Mapping[str, object]]
     electrical: Electrical
+    # Roles given as expressions (analyzers/technology/derived.py).
+    derived: Mapping[str, derived_layers.Expr] = field(default_factory=lambda: MappingProxyType({}))
 
     def __hash__(self) -> int:  # the mapping fields are unhashable; equal ones share these
         return hash((self.name, self.source))
 
     def layer(self, role: str) -> tuple[int, int] | None:
+        """The drawn GDS layer of a role (None for a derived or absent one)."""
         return self.layers.get(role)
+
+    def has_layer(self, role: str) -> bool:
+        """The technology names this role, drawn or derived."""
+        return role in self.layers or role in self.derived
 
     def has_spacing_table(self) -> bool:
         return bool(self.rules.get("tap-distance", {}).get("by_spacing"))
@@ -203,7 +211,8 @@ class Technology:
         data: dict[str, Any] = {
             "name": self.name,
             "description": self.description,
-            "layers": {role: list(pair) for role, pair in self.layers.items()},
+            "layers": {**{role: list(pair) for role, pair in self.layers.items()},
+                       **{role: derived_layers.unparse(expr) for role, expr in self.derived.items()}},
             "labels": {role: list(pair) for role, pair in self.labels.items()},
             "connectivity": {"stack": [list(link) for link in self.connectivity]},
             "nets": {"power": list(self.power), "ground": list(self.ground),
@@ -244,8 +253,10 @@ def technology_from_mapping(data: dict, source: str, base: Technology | None = N
         raise TechnologyError(source, "description", "a string", description)
 
     layers = check.layers(data.get("layers"))
-    labels = check.labels(data.get("labels", {}), layers)
-    connectivity = check.connectivity(data.get("connectivity", {}), layers)
+    derived = check.derived_roles(data.get("layers"), layers)
+    roles = {**layers, **derived}  # what labels and connectivity may name
+    labels = check.labels(data.get("labels", {}), roles)
+    connectivity = check.connectivity(data.get("connectivity", {}), roles)
     nets = check.table(data.get("nets", {}), "nets")
     check.known_keys(nets, "nets", NET_KEYS)
     patterns = {k: check.strings(nets.get(k, []), f"nets.{k}") for k in NET_KEYS}
@@ -256,7 +267,7 @@ def technology_from_mapping(data: dict, source: str, base: Technology | None = N
         layers=MappingProxyType(layers), labels=MappingProxyType(labels),
         connectivity=connectivity,
         power=patterns["power"], ground=patterns["ground"], pads=patterns["pads"],
-        rules=MappingProxyType(rules), electrical=electrical,
+        rules=MappingProxyType(rules), electrical=electrical, derived=MappingProxyType(derived),
     )
 
 
@@ -354,6 +365,8 @@ class _Checker:
         layers: dict[str, tuple[int, int]] = {}
         owner: dict[tuple[int, int], str] = {}
         for role, raw in table.items():
+            if isinstance(raw, str):
+                continue  # a derived role: derived_roles() reads it
             pair = self.pair(raw, f"layers.{role}")
             if pair in owner:
                 raise self.fail(f"layers.{role}", f"a layer pair not already given to "
@@ -361,6 +374,36 @@ class _Checker:
             owner[pair] = role
             layers[role] = pair
         return layers
+
+    def derived_roles(self, value: Any, layers: dict) -> dict[str, derived_layers.Expr]:
+        """The [layers] roles given as expressions: each parses, names only roles of
+        [layers] (or L/D pairs), and no role is derived from itself."""
+        table = {role: raw for role, raw in self.table(value, "layers").items() if isinstance(raw, str)}
+        derived: dict[str, derived_layers.Expr] = {}
+        for role, text in table.items():
+            try:
+                derived[role] = derived_layers.parse(text, f"layers.{role}")
+            except derived_layers.ExpressionError as e:
+                raise self.fail(e.key, f"{e.expected} at character {e.position + 1}", text) from None
+        known = list(layers) + list(derived)
+        for role, expr in derived.items():
+            for name in sorted(derived_layers.references(expr)):
+                if name not in known:
+                    close = difflib.get_close_matches(name, known, n=1)
+                    raise self.fail(f"layers.{role}", f"roles of [layers] in the expression ({', '.join(known)})",
+                                    name, suggestion=close[0] if close else None)
+        for role in derived:
+            self._no_cycle(derived, [role])
+        return derived
+
+    def _no_cycle(self, derived: dict, path: list[str]) -> None:
+        """A depth-first walk from path[0]; meeting a role already on the path is a cycle."""
+        for ref in sorted(derived_layers.references(derived[path[-1]])):
+            if ref in path:
+                raise self.fail(f"layers.{path[0]}", "an expression that does not depend on itself",
+                                None, got_text=" -> ".join([*path, ref]))
+            if ref in derived:
+                self._no_cycle(derived, [*path, ref])
 
     def labels(self, value: Any, layers: dict) -> dict[str, tuple[int, int]]:
         table = self.table(value, "labels")

@@ -13,6 +13,7 @@ import sys
 from importlib import resources
 from pathlib import Path
 
+from latchwatch.analyzers.technology.derived import unparse
 from latchwatch.analyzers.technology.model import (
     ELECTRICAL_UNITS,
     Electrical,
@@ -121,6 +122,7 @@ def describe_technology(tech: Technology) -> str:
     out = [f"{tech.name}: {tech.description}" if tech.description else tech.name,
            f"source: {tech.source}", "", "layers (role: gds layer/datatype)"]
     out += [f"  {role:<11} {pair[0]}/{pair[1]}" for role, pair in tech.layers.items()]
+    out += [f"  {role:<11} = {unparse(expr)}" for role, expr in tech.derived.items()]
     if tech.labels:
         out += ["", "labels (conductor: text layer/texttype)"]
         out += [f"  {role:<11} {pair[0]}/{pair[1]}" for role, pair in tech.labels.items()]

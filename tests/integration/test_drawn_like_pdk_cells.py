@@ -118,3 +118,58 @@ def test_the_annulus_end_to_end_matches_the_analytic_resistance(tmp_path):
         # Analytic: R = Rs / (2 pi) ln(r2 / r1), Rs = 1000 ohm/sq (the demo's n-well sheet).
         analytic = 1000.0 / (2 * math.pi) * math.log(r2 / 2.0)
         assert abs(device["shunt_ohm"] / analytic - 1) <= 0.02, (r2, device["shunt_ohm"], analytic)
+
+
+# SG13G2 drawn as the PDK's gdsfactory cells draw it (PyPI ihp-gdsfactory 2.0.0,
+# ihp/cells/fet_transistors.py and passives.py): the nmos is Activ and GatPoly with no
+# nSD, the pmos has pSD over its Activ inside NWell, the n-tap draws nSD, the p-tap pSD.
+# Layers: SG13G2_os_layout_rules.pdf Rev 0.4, layer table.
+SG13G2 = '''import gdstk
+ACTIV, GATPOLY, CONT, NSD, PSD, NWELL = (1, 0), (5, 0), (6, 0), (7, 0), (14, 0), (31, 0)
+lib = gdstk.Library()
+cell = lib.new_cell("INV")
+
+
+def box(layer, x0, y0, x1, y1):
+    cell.add(gdstk.rectangle((x0, y0), (x1, y1), layer=layer[0], datatype=layer[1]))
+
+
+def nmos(x, y):
+    box(ACTIV, x, y, x + 2, y + 1)  # no nSD: N+ is Activ outside pSD
+    box(GATPOLY, x + 0.9, y - 0.2, x + 1.1, y + 1.2)
+
+
+box(NWELL, -1, 3, 4, 7)
+box(PSD, -0.2, 4.8, 2.2, 6.2)
+box(ACTIV, 0, 5, 2, 6)                  # pmos
+box(GATPOLY, 0.9, 4.8, 1.1, 6.2)
+box(NSD, 2.8, 4.8, 3.7, 6.2)
+box(ACTIV, 3, 5, 3.5, 6)                # n-tap beside it
+box(CONT, 3.1, 5.3, 3.4, 5.6)
+box(PSD, 2.8, -0.2, 3.7, 1.2)
+box(ACTIV, 3, 0, 3.5, 1)                # p-tap beside the nmos
+box(CONT, 3.1, 0.3, 3.4, 0.6)
+nmos({nmos_x}, 0)
+'''
+
+
+def sg13g2(tmp_path, name, nmos_x):
+    path = tmp_path / f"{name}.py"
+    path.write_text(SG13G2.format(nmos_x=nmos_x))
+    result = subprocess.run([sys.executable, "-m", "latchwatch", "check", "--tech", "sg13g2", "--format", "json",
+                             path.name], cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    assert result.returncode in (0, 1), result.stderr
+    return json.loads(result.stdout)["findings"]
+
+
+def test_an_sg13g2_inverter_drawn_as_the_pdk_draws_it_has_no_findings(tmp_path):
+    assert sg13g2(tmp_path, "inverter", 0) == []
+
+
+def test_an_sg13g2_nmos_beyond_lu_b_from_its_tie_fails_at_the_line_that_drew_it(tmp_path):
+    # The nmos from x = -25 to -23: its far edge is 3 - (-25) = 28 um from the p-tap's left
+    # edge at x = 3, beyond LU.b (20.00 um, SG13G2_os_layout_rules.pdf Rev 0.4).
+    (finding,) = sg13g2(tmp_path, "far_nmos", -25)
+    assert finding["rule"] == "tap-distance" and finding["limit"] == 20.0
+    assert finding["value"] == 28.0
+    assert finding["line"] == SG13G2.splitlines().index('    box(ACTIV, x, y, x + 2, y + 1)  # no nSD: N+ is Activ outside pSD') + 1

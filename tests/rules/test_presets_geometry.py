@@ -22,17 +22,25 @@ PUBLISHED = [
 def _cell(tech, kind, far_end):
     """A diffusion from x = 0 to x = far_end, its contacted tap 1 um wide ending at x = 0 minus a
     spacing of 0, both 1 um tall; the farthest point is at x = far_end, far_end from the tap."""
-    L = tech.layer
-    tap_layer = L("tap") or L("active")
+    tap_layer = tech.layer("tap") or tech.layer("active")
     c = CellBuilder("TOP")
+
+    class Drawn:  # an implant the technology derives (sg13g2's N+) is not drawn, as the PDK's cells do
+        def rect(self, layer, *box):
+            if layer is not None:
+                c.rect(layer, *box)
+            return self
+
+    def L(role):
+        return tech.layer(role)
     if kind == "p":
         c.rect(L("nwell"), -10, -10, far_end + 10, 11)
         c.rect(L("pplus"), 0, 0, far_end, 1).rect(L("active"), 0, 0, far_end, 1)
-        c.rect(L("nplus"), -1, 0, 0, 1).rect(tap_layer, -1, 0, 0, 1)
+        Drawn().rect(L("nplus"), -1, 0, 0, 1).rect(tap_layer, -1, 0, 0, 1)
     else:
         # N+ in the p-body, the n-well far away so the widest spacing row applies.
         c.rect(L("nwell"), -100, 100, -60, 140)
-        c.rect(L("nplus"), 0, 0, far_end, 1).rect(L("active"), 0, 0, far_end, 1)
+        Drawn().rect(L("nplus"), 0, 0, far_end, 1).rect(L("active"), 0, 0, far_end, 1)
         c.rect(L("pplus"), -1, 0, 0, 1).rect(tap_layer, -1, 0, 0, 1)
     c.rect(L("contact"), -0.7, 0.3, -0.3, 0.7)
     return c

@@ -75,9 +75,12 @@ def test_sg13g2_published_values():
     assert not tech.has_spacing_table()
     # SG13G2_os_layout_rules.pdf Rev 0.4, layer table.
     assert dict(tech.layers) == {
-        "active": (1, 0), "poly": (5, 0), "contact": (6, 0), "nplus": (7, 0),
+        "active": (1, 0), "poly": (5, 0), "contact": (6, 0),
         "pplus": (14, 0), "metal1": (8, 0), "via1": (19, 0), "metal2": (10, 0),
         "nwell": (31, 0), "pwell": (46, 0)}
+    # N+ is Activ outside pSD: PyPI ihp-gdsfactory 2.0.0, ihp/cells/fet_transistors.py draws
+    # nmos without nSD (pmos with pSD), ihp/cells/passives.py ntap1 with nSD outside pSD.
+    assert tech.to_mapping()["layers"]["nplus"] == "active not pplus"
     assert dict(tech.labels) == {"metal1": (8, 25), "metal2": (10, 25)}
     # SG13G2_os_layout_rules.pdf Rev 0.4, 7.2.1: double guard rings for output buffers.
     assert tech.rules["io-guard-ring"]["double"] is True
