@@ -68,10 +68,12 @@ def klayout_module():
 
 
 def is_gdstk_cell(item):
+    """Whether ``item`` is a gdstk cell (never, where gdstk is missing)."""
     return gdstk is not None and isinstance(item, capture_gdstk.BaseCell)
 
 
 def is_gdstk_library(item):
+    """Whether ``item`` is a gdstk library (never, where gdstk is missing)."""
     return gdstk is not None and isinstance(item, capture_gdstk.BaseLibrary)
 
 

@@ -42,35 +42,44 @@ class KlayoutRecorder(StackRecorder):
 
     def __init__(self, depth=STACK_DEPTH):
         super().__init__(depth)
-        self.shapes = []  # subject: the Shape inserted, or the Shapes container of a bulk insert
-        self.instances = []  # subject: the Instance inserted
-        self.bulk = []  # subject: the Cell a flatten or copy filled
+        self.layouts = []  # every Layout the script made, kept alive for collection
+        self.shapes = []  # subject: the Shape inserted
+        # subject: (layout, parent cell index, CellInstArray). Not the Instance: after a
+        # flatten KLayout may crash on an Instance object that outlived its instance.
+        self.instances = []
+        self.bulk = []  # subject: (layout, cell index) of a cell a flatten, a copy or a whole container filled
         self.installed = False
 
     @property
     def used(self):
         """Whether the script put anything into a KLayout cell."""
-        return bool(self.shapes or self.instances)
+        return bool(self.shapes or self.instances or self.bulk)
 
 
-def _logging(base, log, recorder, depth=1):
-    """``base`` wrapped to append (its result, the position of the caller ``depth`` frames up) to ``log``."""
+def _logging(base, recorder, route, depth=1):
+    """``base`` wrapped to log its call: ``route(self, result)`` gives (log, subject), or None to log nothing.
+
+    The record's position is the caller ``depth`` frames above the wrapper.
+    """
     getframe = sys._getframe
     chain_of_frame = recorder.chain_of_frame
     chain_id = recorder.chain_id
-    append = log.append
 
     def logged(self, *args, **kwargs):
         result = base(self, *args, **kwargs)
+        target = route(self, result)
+        if target is None:
+            return result
+        log, subject = target
         try:
             caller = getframe(depth)
             above = caller.f_back
             cid = chain_of_frame.get(above)
             if cid is None:
                 cid = chain_id(above)
-            append((result, caller.f_code, caller.f_lasti, above.f_lasti, cid))
+            log.append((subject, caller.f_code, caller.f_lasti, above.f_lasti, cid))
         except Exception:
-            append(recorder.caller_record(result, depth + 1))
+            log.append(recorder.caller_record(subject, depth + 1))
         return result
 
     logged.__name__ = base.__name__
@@ -78,16 +87,24 @@ def _logging(base, log, recorder, depth=1):
     return logged
 
 
-def _region_inserts(base, recorder, kdb):
-    """``Shapes.insert`` logged as _logging does, a flat Region inserted polygon by polygon.
+def _shape_insert(base, recorder, kdb):
+    """``Shapes.insert`` logged; a flat Region is inserted polygon by polygon.
 
     KLayout inserts a Region's raw polygons as they are, with their properties; doing it
     one by one stores the same shapes, each with a Shape to log, and returns the
-    container, as the bulk insert does.
+    container, as the bulk insert does. Other containers (Shapes, Edges, iterators)
+    go in whole: the cell's unlogged shapes take the line of that call.
     """
-    logged = _logging(base, recorder.shapes, recorder, depth=2)
-    region_type = kdb.Region
-    log = recorder.shapes
+    shape_type, region_type = kdb.Shape, kdb.Region
+    log, bulk = recorder.shapes, recorder.bulk
+
+    def route(shapes, result):
+        if type(result) is shape_type:
+            return log, result
+        cell = shapes.cell()
+        return (bulk, (cell.layout(), cell.cell_index())) if cell is not None else None
+
+    logged = _logging(base, recorder, route, depth=2)
 
     def insert(self, *args, **kwargs):
         if len(args) == 1 and not kwargs and type(args[0]) is region_type and not args[0].is_deep():
@@ -106,27 +123,34 @@ def install(recorder, kdb):
     if recorder.installed:
         return
     recorder.installed = True
+    shape_log, instance_log, bulk_log = recorder.shapes, recorder.instances, recorder.bulk
+    instance_type = kdb.Instance
     for name in SHAPE_INSERT_ALIASES:
         base = getattr(kdb.Shapes, name, None)
         if base is not None:
-            setattr(kdb.Shapes, name, _logging(base, recorder.shapes, recorder))
-    kdb.Shapes.insert = _region_inserts(kdb.Shapes.insert, recorder, kdb)
-    kdb.Cell.insert = _logging(kdb.Cell.insert, recorder.instances, recorder)
+            setattr(kdb.Shapes, name, _logging(base, recorder, lambda shapes, shape: (shape_log, shape)))
+    kdb.Shapes.insert = _shape_insert(kdb.Shapes.insert, recorder, kdb)
+
+    def instance_route(cell, result):
+        if type(result) is not instance_type:
+            return None
+        return instance_log, (cell.layout(), cell.cell_index(), result.cell_inst)
+
+    kdb.Cell.insert = _logging(kdb.Cell.insert, recorder, instance_route)
     for name in BULK_CELL_CALLS:
         base = getattr(kdb.Cell, name, None)
         if base is not None:
-            setattr(kdb.Cell, name, _bulk_logging(base, recorder))
+            setattr(kdb.Cell, name, _logging(base, recorder, lambda cell, _result: (
+                bulk_log, (cell.layout(), cell.cell_index()))))
+    base_init = kdb.Layout.__init__
+    layouts = recorder.layouts
 
+    def layout_init(self, *args, **kwargs):
+        base_init(self, *args, **kwargs)
+        layouts.append(self)
 
-def _bulk_logging(base, recorder):
-    def logged(self, *args, **kwargs):
-        result = base(self, *args, **kwargs)
-        recorder.bulk.append(recorder.caller_record(self))
-        return result
-
-    logged.__name__ = base.__name__
-    logged.__doc__ = base.__doc__
-    return logged
+    layout_init.__doc__ = base_init.__doc__
+    kdb.Layout.__init__ = layout_init
 
 
 class _InstallingLoader:

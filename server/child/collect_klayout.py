@@ -43,24 +43,21 @@ def _stacks_by_subject(records, kind, stacks):
 
 
 class _InstanceStacks:
-    """Stack ids of logged instances. An Instance compares by the instance it points at but
-    hashes by identity, so candidates are found by its parent cell and placement first."""
+    """Stack ids of logged instances, found by parent cell and placement (a CellInstArray); the last insert wins."""
 
-    def __init__(self, records, kind, stacks):
+    def __init__(self, records, stacks):
         self._buckets = {}
         for record in records:
-            instance = record[0]
-            if type(instance) is kind and instance.is_valid():
-                self._buckets.setdefault(self._key(instance), []).append((instance, stacks.of(record)))
+            layout, parent, placement = record[0]
+            key = (_layout_key(layout), parent, placement.hash())
+            self._buckets.setdefault(key, []).append((placement, stacks.of(record)))
 
-    @staticmethod
-    def _key(instance):
-        return (instance.parent_cell.cell_index(), instance.cell_inst.hash())
-
-    def get(self, instance, default=-1):
-        """The stack id of the last insert of this instance, or ``default``."""
-        for candidate, sid in reversed(self._buckets.get(self._key(instance), ())):
-            if candidate == instance:
+    def get(self, layout, instance, default=-1):
+        """The stack id of the last insert of an instance like this one into its parent cell, or ``default``."""
+        placement = instance.cell_inst
+        key = (_layout_key(layout), instance.parent_cell.cell_index(), placement.hash())
+        for candidate, sid in reversed(self._buckets.get(key, ())):
+            if candidate == placement:
                 return sid
         return default
 
@@ -70,36 +67,25 @@ def _layout_key(layout):
 
 
 class _Capture:
-    """What the logs say about one run: the layouts filled, and the stack of each logged object."""
+    """What the logs say about one run: the layouts made, and the stack of each logged object."""
 
     def __init__(self, recorder, tables, kdb):
         stacks = _RecordStacks(recorder, tables)
         self.shape_stacks = _stacks_by_subject(recorder.shapes, kdb.Shape, stacks)
-        self.instance_stacks = _InstanceStacks(recorder.instances, kdb.Instance, stacks)
-        self.layouts = []
-        seen = set()
-        # A cell filled by a bulk call (flatten, a copy, a Region or Shapes inserted whole)
+        self.instance_stacks = _InstanceStacks(recorder.instances, stacks)
+        self.layouts = [layout for layout in recorder.layouts if layout.cells()]
+        # A cell filled by a bulk call (flatten, a copy, a container inserted whole)
         # gives its unlogged shapes the stack of the last such call.
         self.cell_fallback = {}
-        for record in recorder.shapes + recorder.instances + recorder.bulk:
-            subject = record[0]
-            owner = subject.cell() if type(subject) is kdb.Shapes else subject
-            if type(owner) in (kdb.Shape, kdb.Instance) and not owner.is_valid():
-                continue
-            layout = owner.layout() if owner is not None else None
-            if layout is None:
-                continue  # a standalone Shapes container, in no cell
-            if _layout_key(layout) not in seen:
-                seen.add(_layout_key(layout))
-                self.layouts.append(layout)
-            if type(owner) is kdb.Cell:
-                self.cell_fallback[(_layout_key(layout), owner.cell_index())] = stacks.of(record)
+        for record in recorder.bulk:
+            layout, cell_index = record[0]
+            self.cell_fallback[(_layout_key(layout), cell_index)] = stacks.of(record)
 
 
 def add_layouts(header, arrays, tables, recorder, kdb, tops=None, layouts=None):
     """Append KLayout cells to a layout header and its arrays (in place); returns both.
 
-    By default every cell of every layout the script inserted into; with ``tops`` (the
+    By default every cell of every layout the script made that has cells; with ``tops`` (the
     cells a generator returned) those and the cells they call; with ``layouts`` (a
     file read) every cell of those.
     """
@@ -207,7 +193,7 @@ def _instance_fields(cell, layout, scale, capture, index, put):
         rotation.append(math.radians(placement.angle))
         magnification.append(placement.mag)
         mirror.append(placement.is_mirror())
-        stack.append(instance_stacks.get(instance, -1))
+        stack.append(instance_stacks.get(layout, instance, -1))
         count = 0
         if instance.is_regular_array():
             a, b = instance.a, instance.b
