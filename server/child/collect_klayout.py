@@ -32,13 +32,20 @@ class _RecordStacks:
         return sid
 
 
-def _stacks_by_subject(records, kind, stacks):
-    """{Shape: stack id} of the records whose shape still exists; the last insert wins."""
+def _shape_stacks(records, kind, stacks, layouts):
+    """{Shape: stack id} of the records whose shape still exists; the last insert wins.
+
+    Adds the layouts of those shapes to ``layouts`` ({id: layout}): a layout KLayout made
+    itself (a kdb.Library's, as kfactory uses) was never constructed by the script.
+    """
     found = {}
     for record in records:
-        subject = record[0]
-        if type(subject) is kind and subject.is_valid():
-            found[subject] = stacks.of(record)
+        shape = record[0]
+        if type(shape) is kind and shape.is_valid():
+            found[shape] = stacks.of(record)
+            layout = shape.layout()
+            if layout is not None:
+                layouts.setdefault(_layout_key(layout), layout)
     return found
 
 
@@ -71,9 +78,14 @@ class _Capture:
 
     def __init__(self, recorder, tables, kdb):
         stacks = _RecordStacks(recorder, tables)
-        self.shape_stacks = _stacks_by_subject(recorder.shapes, kdb.Shape, stacks)
+        # Layouts in order of construction, then of first use; KLayout hands out one
+        # Python object per layout, so identity tells them apart.
+        layouts = {_layout_key(layout): layout for layout in recorder.layouts}
+        self.shape_stacks = _shape_stacks(recorder.shapes, kdb.Shape, stacks, layouts)
         self.instance_stacks = _InstanceStacks(recorder.instances, stacks)
-        self.layouts = [layout for layout in recorder.layouts if layout.cells()]
+        for record in recorder.instances + recorder.bulk:
+            layouts.setdefault(_layout_key(record[0][0]), record[0][0])
+        self.layouts = [layout for layout in layouts.values() if layout.cells()]
         # A cell filled by a bulk call (flatten, a copy, a container inserted whole)
         # gives its unlogged shapes the stack of the last such call.
         self.cell_fallback = {}
