@@ -12,7 +12,7 @@ import numpy as np
 
 from .capture_gdstk import BaseCell
 from .stacks import StackTables
-from .wire_format import WIRE_VERSION
+from .wire_format import layout_header
 
 _points = attrgetter("points")
 
@@ -91,15 +91,7 @@ class _CellLog:
         return self._stack(code, lasti, above_lasti, cid)
 
     def _stack(self, code, lasti, above_lasti, cid):
-        if code is None:
-            return -1
-        tables = self.tables
-        ids = [tables.frame_id(code, lasti)]
-        above_code, outer = self.recorder.chains[cid]
-        if above_code is not None:
-            ids.append(tables.frame_id(above_code, above_lasti))
-            ids.extend(tables.frame_id(code, lasti) for code, lasti in outer)
-        return tables.stack_id(ids)
+        return self.recorder.stack_of(self.tables, code, lasti, above_lasti, cid)
 
     def stacks_for(self, objects, kind):
         """Stack id of each object; kind names the cell's list they come from."""
@@ -249,9 +241,12 @@ class _CellList:
         return self.add(target)
 
 
-def collect(cells, recorder=None, unit=1e-6, source=""):
-    """Header and arrays for the given cells and every cell they reference."""
-    tables = StackTables()
+def collect(cells, recorder=None, unit=1e-6, source="", tables=None):
+    """Header and arrays for the given cells and every cell they reference.
+
+    ``tables`` interns the stacks; pass the run's own to add another backend's cells after these.
+    """
+    tables = StackTables() if tables is None else tables
     logs = _Logs(recorder, tables) if recorder is not None else None
     order = _CellList()
     for cell in cells:
@@ -286,16 +281,7 @@ def collect(cells, recorder=None, unit=1e-6, source=""):
                       points=put(points), poly_stack=put(stacks))
         _collect_labels(cell.labels, stacks_for, entry, fields, put)
         _collect_references(cell.references, stacks_for, order, fields, put)
-    header = {
-        "version": WIRE_VERSION,
-        "status": "ok",
-        "unit": unit,
-        "source": source,
-        "cells": header_cells,
-        "frames": tables.frames,
-        "stacks": [list(s) for s in tables.stacks],
-    }
-    return header, arrays
+    return layout_header(unit, source, header_cells, tables), arrays
 
 
 def _collect_labels(labels, stacks_for, entry, fields, put):

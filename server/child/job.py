@@ -4,8 +4,9 @@ Loaded by child/boot.py once the child is confined, which calls ``serve(config)`
 job module says ``ready`` on the control pipe and waits for its job on the job pipe (a
 JSON object, see options_from_job), so a child can be started before its job is known
 (a corner host forks it, server/sandbox/hosts.py, after the imports). The package stays
-self-contained (standard library, numpy and the layout library only): the interpreter
-may be the user's own, which has gdstk but not latchwatch. Written for Python 3.8 and
+self-contained (standard library, numpy and the layout libraries only): the interpreter
+may be the user's own, which has gdstk or klayout but not latchwatch. The capture
+backends are child/backends.py. Written for Python 3.8 and
 later. A job with ``call`` imports the script as a module instead (not as
 ``__main__``) and collects the returned cells (parameter corners, see _call_generator).
 
@@ -22,20 +23,12 @@ import json
 import os
 import sys
 
+from . import backends
 from .stacks import STACK_DEPTH, StackTables, traceback_frames
 from .wire_format import failure_header, write_payload
 
-try:
-    import gdstk
-    import numpy as np
-
-    from .capture_gdstk import BaseCell, BaseLibrary, Recorder, install
-    from .collect_gdstk import captured_cells, collect
-except ImportError as error:  # reported by run(); the parent shows it as a script error
-    np = gdstk = None
-    IMPORT_ERROR = error
-else:
-    IMPORT_ERROR = None
+# Reported by run(); the parent shows it as a script error.
+IMPORT_ERROR = backends.unusable_reason()
 
 def _exception_failure(error, memory_limit):
     tables = StackTables()
@@ -72,7 +65,7 @@ class _Options:
     call = None  # a function to import the script for and call, instead of running it
     kwargs = {}
     non_layout = "error"
-    layout = None  # "gds" or "oas": read the file at ``script`` with gdstk instead of running anything
+    layout = None  # "gds" or "oas": read the file at ``script`` instead of running anything
 
 
 JOB_KEYS = ("script", "source", "timeout", "paths", "depth", "call", "kwargs", "non_layout", "layout")
@@ -137,9 +130,7 @@ def _run_exit_handlers():
 def run(options):
     """Run the script; return (header, arrays) to send."""
     if IMPORT_ERROR is not None:
-        return failure_header("error", type(IMPORT_ERROR).__name__,
-                              "the interpreter %s cannot import numpy and gdstk: %s"
-                              % (sys.executable, IMPORT_ERROR)), []
+        return failure_header("error", "ImportError", IMPORT_ERROR), []
     control = Control(options.control_fd)
     if options.layout is not None:
         return read_layout_file(options, control)
@@ -157,8 +148,7 @@ def run(options):
     for path in reversed(options.paths):
         if path not in sys.path:
             sys.path.insert(0, path)
-    recorder = Recorder(options.depth)
-    install(recorder)
+    capture = backends.Capture(options.depth)
     import types
 
     # A call imports the script as a module named after its file, as `import` would,
@@ -200,11 +190,8 @@ def run(options):
     if failure is not None:
         return failure, []
     try:
-        unit = recorder.libraries[0].unit if recorder.libraries else 1e-6
-        if returned is not None:  # a call: the returned cells are the tops, other cells are left out
-            cells, unit = returned
-            return collect(cells, recorder, unit=unit or 1e-6, source=script)
-        return collect(captured_cells(recorder), recorder, unit=unit, source=script)
+        # A call: the returned cells are the tops, other cells are left out.
+        return capture.collect(script, returned)
     except MemoryError as error:
         return _exception_failure(error, options.memory), []
     except Exception as error:
@@ -215,9 +202,9 @@ def run(options):
 def read_layout_file(options, control):
     """A GDSII or OASIS file read here, not in the tool: gdstk may crash on a corrupt one."""
     kind = "GDSII" if options.layout == "gds" else "OASIS"
+    layout_file = backends.LayoutFile(options.script, options.layout)
     try:
-        reader = gdstk.read_gds if options.layout == "gds" else gdstk.read_oas
-        library = reader(options.script)
+        layout_file.read()
     except (OSError, RuntimeError, ValueError) as error:
         return failure_header("error", None, "cannot read %s as %s: %s"
                               % (os.path.basename(options.script), kind, error)), []
@@ -225,22 +212,21 @@ def read_layout_file(options, control):
         return _exception_failure(error, options.memory), []
     control.say("finished")  # reading is done; collecting gets the collection allowance
     try:
-        header, arrays = collect(library.cells, recorder=None, unit=library.unit, source=options.script)
+        return layout_file.collect()
     except MemoryError as error:
         return _exception_failure(error, options.memory), []
-    header["precision"] = library.precision
-    return header, arrays
 
 
-NOT_A_LAYOUT = "returned %s, not a gdstk.Cell, a gdstk.Library or a list of them"
+NOT_A_LAYOUT = "returned %s, not a gdstk.Cell or Library, a klayout.db.Cell or Layout, or a list of them"
 
 
 def _call_generator(module, options):
     """Call ``options.call`` of the imported script with ``options.kwargs``.
 
-    Returns ((cells, unit), None), or (None, failure header). The returned cells (a
-    Cell, a Library's cells, or the cells and libraries of a list) are what gets
-    collected, with the cells they reference; cells created but not returned are not.
+    Returns ((gdstk cells, unit, klayout cells), None), or (None, failure header). The
+    returned cells (a Cell, a Library's or Layout's cells, a kfactory KCell, or the
+    cells of a list of them) are what gets collected, with the cells they reference;
+    cells created but not returned are not.
     With ``--non-layout ignore`` a value that is no layout collects nothing instead of
     failing (used to try every function of a file that builds nothing itself).
     """
@@ -249,20 +235,22 @@ def _call_generator(module, options):
         return None, failure_header("error", "AttributeError", "the script %s defines no function named %r"
                                     % (os.path.basename(options.script), options.call))
     value = function(**options.kwargs)
-    cells, unit = [], None
+    cells, unit, klayout_cells = [], None, []
     for item in value if isinstance(value, (list, tuple)) else [value]:
-        if isinstance(item, BaseCell):
+        if backends.is_gdstk_cell(item):
             cells.append(item)
-        elif isinstance(item, BaseLibrary):
+        elif backends.is_gdstk_library(item):
             cells.extend(item.cells)
             unit = unit or item.unit
+        elif backends.klayout_cells_of(item) is not None:
+            klayout_cells.extend(backends.klayout_cells_of(item))
         else:
             cells = None
             break
     if cells is not None:
-        return (cells, unit), None
+        return (cells, unit, klayout_cells), None
     if options.non_layout == "ignore":
-        return ([], None), None
+        return ([], None, []), None
     code = getattr(function, "__code__", None)
     frames = [[code.co_filename, code.co_firstlineno, code.co_name, None, None, None]] if code else []
     arguments = ", ".join("%s=%r" % item for item in options.kwargs.items())
@@ -302,7 +290,7 @@ def serve(config):
     except (AttributeError, ValueError):
         pass
     if IMPORT_ERROR is None:
-        control.say("ready numpy=%s gdstk=%s" % (np.__version__, getattr(gdstk, "__version__", "?")))
+        control.say("ready " + " ".join(backends.versions()))
     else:
         control.say("ready import-error=%s" % json.dumps(str(IMPORT_ERROR)))
     try:

@@ -64,6 +64,19 @@ def write_payload(fd, header, arrays):
             out.write(chunk)
 
 
+def layout_header(unit, source, cells, tables):
+    """The payload header of a captured layout: its cells' entries and the interned stacks."""
+    return {
+        "version": WIRE_VERSION,
+        "status": "ok",
+        "unit": unit,
+        "source": source,
+        "cells": cells,
+        "frames": tables.frames,
+        "stacks": [list(s) for s in tables.stacks],
+    }
+
+
 def failure_header(kind, exc_type, message, frames=()):
     """The payload header of a run that produced no layout."""
     return {

@@ -44,5 +44,5 @@ def _interpreter_state(ready: str | None, output: str) -> str:
         tail = output.strip().splitlines()[-1:] or ["no output"]
         return f"the child did not get ready ({tail[0]})"
     if "import-error=" in ready:
-        return "cannot import numpy and gdstk: " + ready.split("import-error=", 1)[1].strip('"')[:200]
+        return "cannot capture: " + ready.split("import-error=", 1)[1].strip('"')[:200]
     return "imports " + ", ".join(part.replace("=", " ") for part in ready.split()[1:])

@@ -81,7 +81,8 @@ def test_a_value_that_is_no_layout_is_an_error_on_the_def_line(script):
     outcome = run_script(script, call=("nothing", {"x": 4}))
     assert outcome.status == "error"
     assert outcome.failure.exc_type == "TypeError"
-    assert outcome.failure.message == "nothing(x=4) returned int, not a gdstk.Cell, a gdstk.Library or a list of them"
+    assert outcome.failure.message == ("nothing(x=4) returned int, not a gdstk.Cell or Library, "
+                                       "a klayout.db.Cell or Layout, or a list of them")
     assert (outcome.failure.frames[0].line, outcome.failure.frames[0].function) == (_line_of("def nothing"), "nothing")
 
 
