@@ -17,10 +17,18 @@ except ImportError:  # Windows
 from .identity import MapRequest, plan_identity
 from .kernel import (
     CLONE_NEWNET,
+    CLONE_NEWNS,
     CLONE_NEWPID,
     CLONE_NEWUSER,
+    MS_NODEV,
+    MS_NOEXEC,
+    MS_NOSUID,
+    MS_PRIVATE,
+    MS_REC,
     PR_SET_CHILD_SUBREAPER,
     PR_SET_PDEATHSIG,
+    SHARED_MEMORY,
+    mount,
     prctl,
     report_sandbox,
     unshare,
@@ -57,7 +65,24 @@ def enter_namespaces(config, record):
         record.no("network", reason)
         return False, False
     record.ok("network", "fresh network namespace: no interface but a loopback that is down")
+    config["_private_shared_memory"] = _private_shared_memory()
     return True, user_namespace
+
+
+def _private_shared_memory():
+    """A mount namespace with a fresh tmpfs on /dev/shm, so that the run's POSIX
+    semaphores and shared memory (multiprocessing's locks) work and vanish with it,
+    and the write confinement can allow them without opening the host's /dev/shm.
+    False where the kernel refuses; the run then has no shared memory to write."""
+    if not os.path.isdir(SHARED_MEMORY):
+        return False
+    try:
+        unshare(CLONE_NEWNS)
+        mount(None, "/", None, MS_REC | MS_PRIVATE, None)  # nothing mounted here reaches the host
+        mount("latchwatch-shm", SHARED_MEMORY, "tmpfs", MS_NOSUID | MS_NODEV | MS_NOEXEC, "size=64m,mode=1777")
+    except OSError:
+        return False
+    return True
 
 
 def become_subreaper(record):

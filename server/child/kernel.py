@@ -25,6 +25,9 @@ CLONE_NEWPID = 0x20000000
 
 
 CLONE_NEWNET = 0x40000000
+CLONE_NEWNS = 0x00020000
+MS_NOSUID, MS_NODEV, MS_NOEXEC, MS_REC, MS_PRIVATE = 0x2, 0x4, 0x8, 0x4000, 0x40000
+SHARED_MEMORY = "/dev/shm"  # where POSIX semaphores and shared memory live (glibc)
 
 
 PR_SET_PDEATHSIG = 1
@@ -90,6 +93,15 @@ def unshare(flags):
         os.unshare(flags)
     else:
         call_libc(libc().unshare, ctypes.c_int(flags))
+
+
+def mount(source, target, fstype, flags, data):
+    """mount(2) through libc; raises OSError."""
+    def c_string(text):
+        return None if text is None else text.encode()
+
+    call_libc(libc().mount, c_string(source), c_string(target), c_string(fstype), ctypes.c_ulong(flags),
+              c_string(data))
 
 
 def why(error):

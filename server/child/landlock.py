@@ -13,7 +13,7 @@ try:
 except ImportError:  # Windows
     pwd = resource = None
 
-from .kernel import PR_SET_NO_NEW_PRIVS, libc, prctl
+from .kernel import PR_SET_NO_NEW_PRIVS, SHARED_MEMORY, libc, prctl
 
 LANDLOCK_CREATE_RULESET, LANDLOCK_ADD_RULE, LANDLOCK_RESTRICT_SELF = 444, 445, 446
 
@@ -75,6 +75,8 @@ def confine_with_landlock(config, record):
     try:
         allowed = [(config["work"], write_rights)]
         allowed += [(device, write_rights & _FILE_WRITE) for device in _WRITABLE_DEVICES if os.path.exists(device)]
+        if config.get("_private_shared_memory"):  # the run's own tmpfs (keeper.py), not the host's
+            allowed.append((SHARED_MEMORY, write_rights))
         for path, rights in allowed:
             fd = os.open(path, getattr(os, "O_PATH", 0o10000000) | os.O_CLOEXEC)
             try:
@@ -92,8 +94,9 @@ def confine_with_landlock(config, record):
         return
     finally:
         os.close(ruleset)
-    record.ok("writes", "Landlock ABI %d: writes only beneath the run's folder and to %s"
-              % (abi, ", ".join(_WRITABLE_DEVICES)))
+    shared = ", and its own %s" % SHARED_MEMORY if config.get("_private_shared_memory") else ""
+    record.ok("writes", "Landlock ABI %d: writes only beneath the run's folder and to %s%s"
+              % (abi, ", ".join(_WRITABLE_DEVICES), shared))
     record.ok("other-processes", "Landlock: no ptrace, so no /proc/PID/environ or memory of processes outside the run")
     if abi >= 4:
         record.ok("tcp", "Landlock ABI %d: no TCP connect or bind" % abi)

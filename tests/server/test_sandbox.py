@@ -182,6 +182,29 @@ def test_writes_outside_the_run_folder_are_refused(tmp_path, doctor, outside):
     assert outcome.sandbox["writes"] == "confined"
 
 
+def test_locks_and_shared_memory_work_in_the_runs_own_dev_shm(tmp_path, doctor):
+    """Frameworks create multiprocessing locks (POSIX semaphores) at import; they work,
+    in a /dev/shm of the run's own that the host never sees."""
+    needs(doctor, "writes", "network")
+    token = _token()
+    path = _script(tmp_path, f"""\
+        import multiprocessing, os
+        from multiprocessing import shared_memory
+        lock = multiprocessing.Lock()
+        with lock:
+            block = shared_memory.SharedMemory(create=True, size=4096, name="lw-{token}")
+            block.buf[:2] = b"ok"
+            open("/dev/shm/left-{token}", "w").write("x")  # would outlive the run on the host's /dev/shm
+        print("lock and shared memory ok", sorted(os.listdir("/dev/shm")) == sorted(["lw-{token}", "left-{token}"]))
+        block.close()
+        """)
+    outcome = run_script(path)
+    assert outcome.status == "ok", outcome.failure
+    assert outcome.output.splitlines() == ["lock and shared memory ok True"]
+    if os.path.isdir("/dev/shm"):
+        assert not [name for name in os.listdir("/dev/shm") if token in name]
+
+
 def test_writes_through_a_shell_are_refused(tmp_path, doctor, outside):
     needs(doctor, "writes")
     target = outside / "shell.txt"
