@@ -14,15 +14,17 @@ from latchwatch.server.sandbox.policy import SandboxSettings, unavailable_messag
 from latchwatch.server.sandbox.workers import inspect_sandbox
 
 
-def doctor_command(python: str | None, require: bool, out=sys.stdout, err=sys.stderr) -> int:
+def doctor_command(python: str | None, require: bool, out=sys.stdout, err=sys.stderr,
+                   pass_env: tuple[str, ...] = ()) -> int:
     """Print the report; 2 when ``require`` and a required protection is missing."""
     interpreter = python or sys.executable
-    report, ready, output = inspect_sandbox(interpreter, os.getcwd(), SandboxSettings())
+    report, ready, output = inspect_sandbox(interpreter, os.getcwd(), SandboxSettings(pass_env=pass_env))
     who = "root" if hasattr(os, "geteuid") and os.geteuid() == 0 else "an unprivileged user"
     print("latchwatch doctor: the sandbox of a script run on this machine", file=out)
     print(f"  machine      {platform.system()} {platform.release()} ({platform.machine()}), "
           f"latchwatch running as {who}", file=out)
     print(f"  interpreter  {interpreter}: {_interpreter_state(ready, output)}", file=out)
+    print(f"  environment  {_environment_text(pass_env)}", file=out)
     if report.setup_ms is not None:
         print(f"  set-up       {report.setup_ms:.1f} ms in the child", file=out)
     for line in report.doctor_lines():
@@ -37,6 +39,15 @@ def doctor_command(python: str | None, require: bool, out=sys.stdout, err=sys.st
         print(f"latchwatch: {unavailable_message(missing)}", file=err)
         return 2
     return 0
+
+
+def _environment_text(pass_env: tuple[str, ...]) -> str:
+    """What the scripts see of the environment: the fixed allow-list, and the names the user passes."""
+    fixed = "PATH, HOME, LANG, LANGUAGE, TZ, LC_*, TMPDIR (the run's folder)"
+    if not pass_env:
+        return f"{fixed}; nothing else (pass more with `env` in the project file or --env NAME)"
+    shown = ", ".join(f"{name}{'' if name in os.environ else ' (not set here)'}" for name in pass_env)
+    return f"{fixed}; and, as asked: {shown}"
 
 
 def _interpreter_state(ready: str | None, output: str) -> str:

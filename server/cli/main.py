@@ -24,6 +24,7 @@ from latchwatch.server.report.as_text import render_text
 from latchwatch.server.runs import batch as sweep
 from latchwatch.server.runs import plan
 from latchwatch.server.runs.pipeline import CheckSettings, expand_paths
+from latchwatch.server.sandbox.policy import pass_env_problem
 from latchwatch.server.sandbox.runner import RunnerError
 
 CAUTION = (
@@ -69,6 +70,9 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("--devices", action="store_true", help="add the per-device table to the report")
     c.add_argument("--require-sandbox", action="store_true",
                    help="fail (exit 2) instead of running with fewer protections than `latchwatch doctor` lists")
+    c.add_argument("--env", action="append", default=[], metavar="NAME",
+                   help="let the scripts see this environment variable, e.g. PDK_ROOT (repeatable; "
+                        "added to the project's `env`)")
     c.add_argument("--sweep", metavar="FUNCTION", help="call this function of the one script at each corner")
     c.add_argument("--param", action="append", default=[], metavar="NAME=V1,V2,...",
                    help="values of one parameter of --sweep (repeatable; the full grid is run)")
@@ -99,6 +103,8 @@ def _parser() -> argparse.ArgumentParser:
     dr.add_argument("--python", metavar="PATH", help="interpreter that runs the scripts (default: the project's, "
                                                      "else the one running latchwatch)")
     dr.add_argument("--require-sandbox", action="store_true", help="exit with status 2 when a protection is missing")
+    dr.add_argument("--env", action="append", default=[], metavar="NAME",
+                    help="an environment variable to pass, as `check --env` does (repeatable)")
     return p
 
 
@@ -121,7 +127,18 @@ def _settings(args, config) -> CheckSettings:
         top=args.top, devices=args.devices,
         project_root=config.root or _guess_root(args.paths),
         require_sandbox=args.require_sandbox or config.require_sandbox,
+        pass_env=_pass_env(config.env, args.env),
     )
+
+
+def _pass_env(from_project, from_command_line) -> tuple[str, ...]:
+    """The project's ``env`` names and the ``--env`` ones, each once, each checked."""
+    names = tuple(dict.fromkeys([*from_project, *from_command_line]))
+    for name in from_command_line:
+        problem = pass_env_problem(name)
+        if problem:
+            raise UsageError(f"--env: {problem}")
+    return names
 
 
 def _guess_root(paths) -> Path:
@@ -217,7 +234,8 @@ def _doctor(args) -> int:
     from latchwatch.server.cli.doctor import doctor_command
 
     config = find_project_config(Path.cwd())
-    return doctor_command(args.python or config.python, args.require_sandbox or config.require_sandbox)
+    return doctor_command(args.python or config.python, args.require_sandbox or config.require_sandbox,
+                          pass_env=_pass_env(config.env, args.env))
 
 
 COMMANDS = {"check": _check, "rules": _rules, "tech": _tech, "serve": _serve, "trust": _trust, "doctor": _doctor}

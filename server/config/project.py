@@ -26,6 +26,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from latchwatch.analyzers.model.findings import Severity
+from latchwatch.server.sandbox.policy import pass_env_problem
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -34,7 +35,7 @@ else:  # pragma: no cover - exercised only on Python 3.10
 
 PYPROJECT = "pyproject.toml"
 OWN_FILE = "latchwatch.toml"
-KEYS = ("tech", "include", "exclude", "python", "timeout", "disable", "severity", "sweep", "require-sandbox")
+KEYS = ("tech", "include", "exclude", "python", "timeout", "disable", "severity", "sweep", "require-sandbox", "env")
 SWEEP_KEYS = ("script", "function", "params")
 # Folders expand_includes never descends into: tool caches, virtual environments, VCS.
 SKIPPED_FOLDER = re.compile(r"^(\..*|__pycache__)$")
@@ -71,6 +72,7 @@ class ProjectConfig:
     severity: dict[str, Severity] = field(default_factory=dict)
     sweeps: tuple[SweepSpec, ...] = ()
     require_sandbox: bool = False  # can only tighten: a missing protection becomes an error
+    env: tuple[str, ...] = ()  # environment variables the scripts also see (PDK_ROOT)
 
 
 def _read_toml(path: Path) -> dict:
@@ -228,6 +230,12 @@ def _parse(table: dict, path: Path, prefix: str, known_rules: set[str] | None) -
         if not isinstance(table["require-sandbox"], bool):
             read.expect("require-sandbox", "true or false", table["require-sandbox"])
         values["require_sandbox"] = table["require-sandbox"]
+    if "env" in table:
+        values["env"] = read.strings("env", table["env"])
+        for name in values["env"]:
+            problem = pass_env_problem(name)
+            if problem:
+                read.fail("env", problem)
     return ProjectConfig(root=path.parent, source=path, **values)
 
 

@@ -32,13 +32,14 @@ from latchwatch.server.config.project import (
     severity_problem,
 )
 from latchwatch.server.runs.pipeline import CheckSettings
+from latchwatch.server.sandbox.policy import pass_env_problem
 
 SECTION = "latchwatch"
 RUN_MODES = ("change", "save")
 DEFAULT_DEBOUNCE_MS = 500.0
 DEFAULT_TIMEOUT = 10.0
 KEYS = ("tech", "python", "timeout", "debounce", "runOn", "disable", "severity", "trustedFolders", "ruleDocsUrl",
-        "requireSandbox")
+        "requireSandbox", "env")
 
 
 class SettingsError(Exception):
@@ -58,6 +59,7 @@ class EditorSettings:
     trusted_folders: tuple[str, ...] = ()
     rule_docs_url: str | None = None  # "{rule}" is replaced by the rule id
     require_sandbox: bool = False  # or'ed with the project file's `require-sandbox`: either can tighten
+    env: tuple[str, ...] = ()  # environment variables the scripts also see, added to the project's `env`
 
 
 def section_of(value) -> dict:
@@ -104,6 +106,14 @@ def merge(base: EditorSettings, raw: dict, allow_trust: bool) -> tuple[EditorSet
                 values["severity"] = severity_overrides(value)
             else:
                 bad(key, "a table of rule id = error|warning|info", value)
+        elif key == "env":
+            if isinstance(value, list) and value and all(pass_env_problem(v) is None for v in value):
+                values["env"] = tuple(dict.fromkeys(value))
+            elif isinstance(value, list) and not value:
+                values["env"] = ()
+            else:
+                first = next((pass_env_problem(v) for v in value), None) if isinstance(value, list) else None
+                bad(key, first or "a list of environment variable names, e.g. [\"PDK_ROOT\"]", value)
         elif key == "requireSandbox":
             if isinstance(value, bool):
                 values["require_sandbox"] = value
@@ -178,6 +188,7 @@ def document_settings(path: Path, editor: EditorSettings, workspace_folder: Path
         devices=True,  # the hover and the "2 of 5" counts read the device table
         project_root=root,
         require_sandbox=editor.require_sandbox or project.require_sandbox,
+        pass_env=tuple(dict.fromkeys([*project.env, *editor.env])),
         hosted=True,  # edits re-run the same document: a corner host's fork skips interpreter start and imports
     )
     return DocumentSettings(check, project, root)

@@ -60,7 +60,7 @@ def run_task(task: Task, settings: CheckSettings, source: str | None = None, can
             settings = replace(settings, top=None)  # each previewed function's cells are its own tops
         outcome = run_script(task.path, source=source, python=settings.python, timeout=settings.timeout,
                              project_root=settings.project_root, cancel=cancel,
-                             require_sandbox=settings.require_sandbox, hosted=True,
+                             require_sandbox=settings.require_sandbox, hosted=True, pass_env=settings.pass_env,
                              call=(task.function, task.corner or {}), accept_non_layout=task.preview)
         outcome = replace(outcome, corner=dict(task.corner or {}))
     if outcome.status == "cancelled" or (cancel is not None and cancel.is_set()):

@@ -33,6 +33,7 @@ class CheckSettings:
     devices: bool = False
     project_root: Path | None = None
     require_sandbox: bool = False  # a missing sandbox protection is an error (SandboxUnavailable), not a fallback
+    pass_env: tuple[str, ...] = ()  # environment variables the scripts also see (project `env`, `--env`)
     hosted: bool = False  # runs are forks of corner hosts (server/sandbox/hosts.py): many runs, the same settings
 
 
@@ -65,7 +66,7 @@ def run_path(path: Path, settings: CheckSettings, source: str | None = None, can
                                 cancel=cancel, require_sandbox=settings.require_sandbox)
     return run_script(path, source=source, python=settings.python, timeout=settings.timeout,
                       project_root=settings.project_root, cancel=cancel, require_sandbox=settings.require_sandbox,
-                      hosted=settings.hosted)
+                      hosted=settings.hosted, pass_env=settings.pass_env)
 
 
 def check_run(outcome: RunOutcome, settings: CheckSettings, read_source=None) -> tuple[list[Finding], list, RunSummary]:

@@ -11,6 +11,7 @@ fallback (the runner raises SandboxUnavailable before the script runs).
 from __future__ import annotations
 
 import json
+import re
 import sys
 from dataclasses import dataclass, field
 
@@ -59,11 +60,32 @@ class SandboxSettings:
     open_files_limit: int = 1024
     process_limit: int = 128  # processes and threads of the run
     skip: frozenset[str] = field(default_factory=frozenset)  # SKIPPABLE names: tests and benchmarks
+    pass_env: tuple[str, ...] = ()  # environment variables the user lets through (PDK_ROOT), by name
 
     def __post_init__(self):
         unknown = set(self.skip) - set(SKIPPABLE)
         if unknown:
             raise ValueError(f"unknown sandbox mechanisms {sorted(unknown)}; known: {', '.join(SKIPPABLE)}")
+        for name in self.pass_env:
+            problem = pass_env_problem(name)
+            if problem:
+                raise ValueError(problem)
+
+
+_ENV_NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")
+# Variables that change how the interpreter or the dynamic linker starts: they would run
+# code before the child confines itself, so no setting lets them through.
+REFUSED_ENV_PREFIXES = ("LD_", "PYTHON", "DYLD_")
+
+
+def pass_env_problem(name: object) -> str | None:
+    """Why ``name`` cannot be passed into a run, or None when it can."""
+    if not isinstance(name, str) or not _ENV_NAME.fullmatch(name):
+        return f"an environment variable name (letters, digits, underscores), got {name!r}"
+    if name.upper().startswith(REFUSED_ENV_PREFIXES):
+        return (f"{name} is not passed into a run: variables starting with "
+                f"{', '.join(REFUSED_ENV_PREFIXES)} change how the interpreter starts, before its sandbox")
+    return None
 
 
 def child_config(settings: SandboxSettings, *, work: str, result_fd: int, control_fd: int,

@@ -64,7 +64,7 @@ def run_script(path: str | Path, *, source: str | None = None, python: str | Non
                project_root: Path | None = None, memory_limit: int = 4 << 30,
                cancel: threading.Event | None = None, call: tuple[str, dict] | None = None,
                accept_non_layout: bool = False, require_sandbox: bool = False, hosted: bool = False,
-               skip_protections: tuple[str, ...] = ()) -> RunOutcome:
+               skip_protections: tuple[str, ...] = (), pass_env: tuple[str, ...] = ()) -> RunOutcome:
     """Run one layout script as ``__main__`` in a sandboxed child; never raises for script faults.
 
     ``source`` runs instead of the file's content, compiled under the file's name.
@@ -75,7 +75,8 @@ def run_script(path: str | Path, *, source: str | None = None, python: str | Non
     imported (server/sandbox/hosts.py): for runs that repeat with the same settings (a sweep's
     corners, many scripts, an editor's edits). ``require_sandbox``
     makes a missing protection an error; ``skip_protections`` (sandbox.SKIPPABLE)
-    leaves mechanisms out, as on a machine without them.
+    leaves mechanisms out, as on a machine without them; ``pass_env`` names the
+    environment variables the run also sees (policy.pass_env_problem refuses some).
     Raises RunnerError when the interpreter cannot be started, SandboxUnavailable
     (a RunnerError) when the sandbox is required and incomplete.
     """
@@ -85,7 +86,8 @@ def run_script(path: str | Path, *, source: str | None = None, python: str | Non
     if call is not None:
         function, kwargs = call
         job.update(call=function, kwargs=kwargs, non_layout="ignore" if accept_non_layout else "error")
-    settings = SandboxSettings(require=require_sandbox, memory_limit=memory_limit, skip=frozenset(skip_protections))
+    settings = SandboxSettings(require=require_sandbox, memory_limit=memory_limit, skip=frozenset(skip_protections),
+                               pass_env=tuple(pass_env))
     return _run_job(str(path), job, python, timeout, root, settings, cancel, hosted)
 
 

@@ -42,9 +42,11 @@ class SandboxUnavailable(RunnerError):
     """The sandbox is required, and a protection it needs is not available here."""
 
 
-def child_environment(temp_dir: Path) -> dict[str, str]:
-    """The environment the script sees: locale and paths only, never tokens or keys."""
-    env = {name: value for name, value in os.environ.items() if name in _ENV_NAMES or name.startswith("LC_")}
+def child_environment(temp_dir: Path, pass_env: tuple[str, ...] = ()) -> dict[str, str]:
+    """The environment the script sees: locale and paths, and the variables the user named
+    (``env`` in the project file, ``--env``), never other tokens or keys."""
+    env = {name: value for name, value in os.environ.items()
+           if name in _ENV_NAMES or name.startswith("LC_") or name in pass_env}
     env.setdefault("PATH", os.defpath)
     # One BLAS thread unless the user asks for more: a layout script does little linear
     # algebra, a thread pool costs each child start-up CPU and address space, and a
@@ -98,7 +100,7 @@ class Worker:
         config = sandbox.child_config(
             key.settings, work=str(work), result_fd=result_w, control_fd=control_w,
             job_fd=job_r, cpu_seconds=cpu_seconds(key.timeout), needs_reading=needs_reading)
-        env = child_environment(work)
+        env = child_environment(work, key.settings.pass_env)
         if host_fd is not None:
             config["host_fd"] = host_fd
             env.update(dict.fromkeys(_THREAD_NAMES, "1"))  # a process with threads must not fork

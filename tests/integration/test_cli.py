@@ -177,3 +177,26 @@ def test_an_unreadable_layout_file_says_so_not_that_a_script_raised(tmp_path):
     assert done.returncode == 1
     assert "broken.gds:1:1: error: the layout file could not be read: cannot read broken.gds as GDSII" in done.stdout
     assert "script raised" not in done.stdout
+
+
+ENV_SCRIPT = '''import os
+import gdstk
+print("PDK_ROOT=" + str(os.environ.get("PDK_ROOT")), "TOKEN=" + str(os.environ.get("LW_TEST_TOKEN")))
+'''
+
+
+def test_env_passes_named_variables_and_nothing_else(tmp_path, monkeypatch):
+    (tmp_path / "env.py").write_text(ENV_SCRIPT)
+    monkeypatch.setenv("PDK_ROOT", "/opt/pdks")
+    monkeypatch.setenv("LW_TEST_TOKEN", "secret")
+    plain = latchwatch("check", "--tech", "demo", "env.py", cwd=tmp_path)
+    assert "PDK_ROOT=None TOKEN=None" in plain.stderr + plain.stdout
+    passed = latchwatch("check", "--tech", "demo", "--env", "PDK_ROOT", "env.py", cwd=tmp_path)
+    assert "PDK_ROOT=/opt/pdks TOKEN=None" in passed.stderr + passed.stdout
+    (tmp_path / "latchwatch.toml").write_text('tech = "demo"\nenv = ["PDK_ROOT"]\n')
+    from_project = latchwatch("check", "env.py", cwd=tmp_path)
+    assert "PDK_ROOT=/opt/pdks TOKEN=None" in from_project.stderr + from_project.stdout
+    doctor = latchwatch("doctor", cwd=tmp_path)
+    assert "as asked: PDK_ROOT" in doctor.stdout
+    refused = latchwatch("check", "--env", "LD_PRELOAD", "env.py", cwd=tmp_path)
+    assert refused.returncode == 2 and "--env: LD_PRELOAD is not passed into a run" in refused.stderr

@@ -98,3 +98,16 @@ def test_require_sandbox_must_be_a_boolean():
     kept, problems = merge(EditorSettings(), {"requireSandbox": "yes"}, True)
     assert kept == EditorSettings()
     assert problems == ["setting latchwatch.requireSandbox: expected true or false, got 'yes'; ignored"]
+
+
+def test_env_from_the_editor_adds_to_the_projects(tmp_path):
+    script = make_project(tmp_path / "chip", 'tech = "demo"\nenv = ["PDK_ROOT"]\n')
+    editor, problems = merge(EditorSettings(), {"env": ["PDK", "PDK_ROOT"]}, True)
+    assert problems == []
+    assert document_settings(script, editor, None, TechnologyCache()).check.pass_env == ("PDK_ROOT", "PDK")
+
+
+def test_env_setting_refuses_loader_variables():
+    kept, problems = merge(EditorSettings(), {"env": ["LD_PRELOAD"]}, True)
+    assert kept == EditorSettings()
+    assert problems and "latchwatch.env" in problems[0] and "LD_PRELOAD is not passed into a run" in problems[0]

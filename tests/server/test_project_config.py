@@ -256,3 +256,20 @@ def test_the_command_line_and_the_include_walk_exclude_the_same_files(tmp_path):
     assert walked == {"gen/sub/x.py", "keep/b.py"}
     for name in ("gen/a.py", "gen/sub/x.py", "keep/b.py", "deep/one/two/c.py"):
         assert is_excluded(config, tmp_path / name) == (name not in walked), name
+
+
+def test_env_names_the_variables_scripts_see(tmp_path):
+    source = write(tmp_path / "latchwatch.toml", 'tech = "demo"\nenv = ["PDK_ROOT", "PDK"]\n')
+    assert load_project_config(source).env == ("PDK_ROOT", "PDK")
+
+
+@pytest.mark.parametrize("value, said", [
+    ('["LD_PRELOAD"]', "LD_PRELOAD is not passed into a run"),
+    ('["PYTHONPATH"]', "PYTHONPATH is not passed into a run"),
+    ('["PDK ROOT"]', "an environment variable name"),
+    ('"PDK_ROOT"', "a list of non-empty strings"),
+])
+def test_env_refuses_what_would_run_before_the_sandbox_and_names_the_key(tmp_path, value, said):
+    source = write(tmp_path / "latchwatch.toml", f"env = {value}\n")
+    message = str(load_error(source))
+    assert message.startswith(f"{source}: env: ") and said in message
