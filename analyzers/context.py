@@ -7,6 +7,8 @@ from dataclasses import dataclass
 from functools import cached_property
 from typing import TYPE_CHECKING
 
+import numpy as np
+
 from latchwatch.analyzers.extraction.extract import Extraction, extract
 from latchwatch.analyzers.layout.flatten import FlatLayout
 from latchwatch.analyzers.layout.provenance import Provenance, is_user_file
@@ -69,7 +71,12 @@ class CheckContext:
         anchor = self.provenance.locate_shape(shape)
         seen = {(anchor["file"], anchor["line"])}
         also = []
-        for other in pieces.drawn_shapes(i).tolist():
+        others = pieces.drawn_shapes(i)
+        # A location is a function of (stack, instance): look each up once, however many
+        # shapes a loop drew into one diffusion.
+        flat = self.flat
+        _, first = np.unique(np.c_[flat.stack[others], flat.instance[others]], axis=0, return_index=True)
+        for other in others[np.sort(first)].tolist():
             if other == shape:
                 continue
             part = self.related_shape(other, "also drawn here (the same diffusion)")

@@ -173,3 +173,28 @@ def test_an_sg13g2_nmos_beyond_lu_b_from_its_tie_fails_at_the_line_that_drew_it(
     assert finding["rule"] == "tap-distance" and finding["limit"] == 20.0
     assert finding["value"] == 28.0
     assert finding["line"] == SG13G2.splitlines().index('    box(ACTIV, x, y, x + 2, y + 1)  # no nSD: N+ is Activ outside pSD') + 1
+
+
+# One P+ diffusion drawn by two lines (a PDK cell's source/drain and channel pieces), far
+# from its tap: one finding, on the line that drew most of it, the other line related.
+TWO_LINES = PRELUDE + '''
+box(NWELL, -4, -2, 60, 8)
+box(NPLUS, -3, 0, -1, 4)
+box(ACTIVE, -3, 0, -1, 4)
+box(CONTACT, -2.2, 1.8, -1.8, 2.2)
+box(PPLUS, 40, 0, 56, 4)
+box(ACTIVE, 40, 0, 50, 4)   # the larger piece
+box(ACTIVE, 50, 0, 56, 4)   # the piece beyond it
+'''
+
+
+def test_a_diffusion_drawn_by_two_lines_is_one_finding_with_the_other_line_related(tmp_path):
+    report = check(tmp_path, "two_lines", TWO_LINES)
+    lines = TWO_LINES.splitlines()
+    larger = lines.index("box(ACTIVE, 40, 0, 50, 4)   # the larger piece") + 1
+    beyond = lines.index("box(ACTIVE, 50, 0, 56, 4)   # the piece beyond it") + 1
+    (finding,) = [f for f in report["findings"] if f["rule"] == "tap-distance"]
+    assert finding["line"] == larger
+    assert finding["value"] == 57.0  # hand: the far edge x = 56 to the tap's edge x = -1
+    assert [(r["line"], r["message"]) for r in finding["related"] if r["line"] == beyond] == [
+        (beyond, "also drawn here (the same diffusion)")]
