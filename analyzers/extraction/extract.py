@@ -109,8 +109,7 @@ def merged(pieces: Pieces) -> Pieces:
     # Without the seams' collinear vertices, which would otherwise become grid lines of the sheet model.
     geoms = shapely.simplify(g.union_groups(pieces.geoms, label, n_groups), 0.0)
     # The representative: the piece with the largest area, the first-drawn shape on a tie.
-    order = np.lexsort((pieces.shape, -shapely.area(pieces.geoms), label))
-    starts = np.flatnonzero(np.r_[True, label[order][1:] != label[order][:-1]])
+    order, starts = g.largest_first_by_group(pieces.geoms, label, pieces.shape)
     first = order[starts]
     drawn = np.full(n_groups, None, dtype=object)
     sizes = np.diff(np.r_[starts, n])
@@ -140,10 +139,6 @@ class Extraction:
     pwells: np.ndarray = field(default_factory=lambda: np.empty(0, dtype=object))  # isolated p-wells
     pwell_shapes: list[np.ndarray] = field(default_factory=list)  # drawn shapes of each
 
-def _shapes(flat: FlatLayout, tech: Technology, role: str) -> tuple[np.ndarray, np.ndarray]:
-    return layer_shapes(flat, tech, role)
-
-
 def _merge_touching(geoms: np.ndarray, idx: np.ndarray):
     """Merged regions of touching shapes, and the given indices of each region's members."""
     if len(geoms) == 0:
@@ -157,14 +152,14 @@ def _merge_touching(geoms: np.ndarray, idx: np.ndarray):
 
 
 def _merge_wells(flat: FlatLayout, tech: Technology, role: str = "nwell"):
-    return _merge_touching(*_shapes(flat, tech, role))
+    return _merge_touching(*layer_shapes(flat, tech, role))
 
 
 def _isolated_pwells(flat, tech, deep: np.ndarray, deep_shapes: list[np.ndarray], wells: np.ndarray):
     """(regions, drawn shapes of each): p-wells isolated over a deep n-well (see the top)."""
     if len(deep) == 0:
         return np.empty(0, dtype=object), []
-    drawn, drawn_idx = _shapes(flat, tech, "pwell")
+    drawn, drawn_idx = layer_shapes(flat, tech, "pwell")
     if len(drawn):
         parts, owner = g.clip_to_union(drawn, deep)
         return _merge_touching(parts, drawn_idx[owner])
@@ -186,8 +181,8 @@ def _split_by_pwells(pieces: Pieces, pwells: np.ndarray) -> Pieces:
 
 def _implanted(flat, tech, drawn_role: str, implant_role: str) -> Pieces:
     """Parts of the drawn diffusion shapes covered by an implant."""
-    drawn, drawn_idx = _shapes(flat, tech, drawn_role)
-    implant, _ = _shapes(flat, tech, implant_role)
+    drawn, drawn_idx = layer_shapes(flat, tech, drawn_role)
+    implant, _ = layer_shapes(flat, tech, implant_role)
     parts, owner = g.clip_to_union(drawn, implant)
     return Pieces(parts, drawn_idx[owner], np.full(len(parts), SUBSTRATE, np.int64))
 
@@ -219,8 +214,8 @@ def extract(flat: FlatLayout, tech: Technology) -> Extraction:
     ndiff, ptap = _split_by_pwells(ndiff, pwells), _split_by_pwells(ptap, pwells)
     pdiff, ndiff, ntap, ptap = merged(pdiff), merged(ndiff), merged(ntap), merged(ptap)
 
-    contacts, _ = _shapes(flat, tech, "contact")
-    poly, _ = _shapes(flat, tech, "poly")
+    contacts, _ = layer_shapes(flat, tech, "contact")
+    poly, _ = layer_shapes(flat, tech, "poly")
     return Extraction(
         flat=flat, wells=wells, well_shapes=well_shapes,
         pdiff=pdiff, ndiff=ndiff, ntap=ntap, ptap=ptap,

@@ -27,8 +27,7 @@ def layer_shapes(flat: FlatLayout, tech: Technology, role: str) -> Shapes:
     the technology does not name the role). Derived roles are computed once per layout."""
     pair = tech.layer(role)
     if pair is not None:
-        idx = flat.on_layer(pair)
-        return flat.polygons[idx], idx
+        return _drawn(flat, pair)
     expr = tech.derived.get(role)
     if expr is None:
         return np.empty(0, dtype=object), np.zeros(0, np.int64)
@@ -38,12 +37,16 @@ def layer_shapes(flat: FlatLayout, tech: Technology, role: str) -> Shapes:
     return flat.cache[key]
 
 
+def _drawn(flat: FlatLayout, pair: tuple[int, int]) -> Shapes:
+    idx = flat.on_layer(pair)
+    return flat.polygons[idx], idx
+
+
 def _evaluate(flat: FlatLayout, tech: Technology, expr: d.Expr) -> Shapes:
     if isinstance(expr, d.Ref):
         return layer_shapes(flat, tech, expr.name)
     if isinstance(expr, d.Pair):
-        idx = flat.on_layer((expr.layer, expr.datatype))
-        return flat.polygons[idx], idx
+        return _drawn(flat, (expr.layer, expr.datatype))
     if isinstance(expr, d.Sized):
         return _sized(*_evaluate(flat, tech, expr.operand), expr.kind, expr.distance)
     (a, a_idx), (b, b_idx) = _evaluate(flat, tech, expr.left), _evaluate(flat, tech, expr.right)
@@ -70,6 +73,5 @@ def _sized(geoms: np.ndarray, idx: np.ndarray, kind: str, distance: float) -> Sh
     label = g.components(geoms, touching=True)
     united = g.union_groups(geoms, label, int(label.max()) + 1)
     shrunk, owner = g.explode(shapely.buffer(united, -distance, join_style="mitre"), np.arange(len(united)))
-    order = np.lexsort((-shapely.area(geoms), label))
-    first_of_group = order[np.r_[True, label[order][1:] != label[order][:-1]]]
-    return shrunk, idx[first_of_group][owner]
+    order, starts = g.largest_first_by_group(geoms, label, np.arange(len(geoms)))
+    return shrunk, idx[order[starts]][owner]

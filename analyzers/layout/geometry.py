@@ -74,6 +74,21 @@ def labels_of_pairs(ia: np.ndarray, ib: np.ndarray, n: int) -> np.ndarray:
     return labels
 
 
+def largest_first_by_group(geoms: np.ndarray, label: np.ndarray, tiebreak: np.ndarray):
+    """(order, starts): geometry indices sorted by group label, largest area first within
+    a group (``tiebreak`` ascending on equal areas), and where each group's run begins;
+    ``order[starts]`` is the largest member of each group.
+
+    >>> import shapely
+    >>> order, starts = largest_first_by_group(shapely.box([0, 0, 5], 0, [1, 3, 6], 1), np.array([0, 0, 1]), np.arange(3))
+    >>> order.tolist(), starts.tolist()
+    ([1, 0, 2], [0, 2])
+    """
+    order = np.lexsort((tiebreak, -shapely.area(geoms), label))
+    starts = np.flatnonzero(np.r_[True, label[order][1:] != label[order][:-1]])
+    return order, starts
+
+
 def union_groups(geoms: np.ndarray, group: np.ndarray, n_groups: int) -> np.ndarray:
     """One union per group id 0..n_groups-1; singleton groups are taken as they are."""
     out = np.full(n_groups, None, dtype=object)
