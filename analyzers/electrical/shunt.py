@@ -10,10 +10,10 @@ the other one (analyzers/electrical/sheet.py solves the sheet).
 A body whose grid stays small is solved whole: one factorization for all its devices.
 Larger bodies are solved in a window around each device, reaching WINDOW_REACH times
 the true distance to its WINDOW_TAPS-th nearest tap beyond it (the sheet outside a
-window is cut away, which can only raise the estimate; see _windowed). Windows whose contents are the same up to a
-translation (repeated cells) are solved once: each window's contents are hashed
-after clipping, relative to the device. The cost is then linear in the number of
-distinct windows.
+window is cut away, which can only raise the estimate; see _windowed). Windows whose
+contents are the same up to a translation (repeated cells) are solved once: each
+window's contents are hashed after clipping, relative to the device. The cost is then
+linear in the number of distinct windows.
 """
 
 from __future__ import annotations

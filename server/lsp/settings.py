@@ -107,13 +107,12 @@ def merge(base: EditorSettings, raw: dict, allow_trust: bool) -> tuple[EditorSet
             else:
                 bad(key, "a table of rule id = error|warning|info", value)
         elif key == "env":
-            if isinstance(value, list) and value and all(pass_env_problem(v) is None for v in value):
-                values["env"] = tuple(dict.fromkeys(value))
-            elif isinstance(value, list) and not value:
-                values["env"] = ()
+            problem = (next(filter(None, map(pass_env_problem, value)), None) if isinstance(value, list)
+                       else "a list of environment variable names, e.g. [\"PDK_ROOT\"]")
+            if problem:
+                bad(key, problem, value)
             else:
-                first = next((pass_env_problem(v) for v in value), None) if isinstance(value, list) else None
-                bad(key, first or "a list of environment variable names, e.g. [\"PDK_ROOT\"]", value)
+                values["env"] = tuple(dict.fromkeys(value))
         elif key == "requireSandbox":
             if isinstance(value, bool):
                 values["require_sandbox"] = value
