@@ -125,7 +125,8 @@ def describe_technology(tech: Technology) -> str:
     out += [f"  {role:<11} = {unparse(expr)}" for role, expr in tech.derived.items()]
     if tech.labels:
         out += ["", "labels (conductor: text layer/texttype)"]
-        out += [f"  {role:<11} {pair[0]}/{pair[1]}" for role, pair in tech.labels.items()]
+        out += [f"  {role:<11} " + ", ".join(f"{layer}/{texttype}" for layer, texttype in pairs)
+                for role, pairs in tech.labels.items()]
     if tech.connectivity:
         out += ["", "connectivity (lower, cut, upper)"]
         out += [f"  {lower} - {cut} - {upper}" for lower, cut, upper in tech.connectivity]

@@ -4,7 +4,8 @@ import copy
 
 import pytest
 
-from latchwatch.analyzers.technology.model import Electrical, SpacingLimit, TechnologyError, technology_from_mapping
+from latchwatch.analyzers.technology.model import Electrical, TechnologyError, technology_from_mapping
+from latchwatch.analyzers.technology.rule_tables import SpacingLimit
 
 SOURCE = "tech.toml"
 
@@ -307,3 +308,13 @@ def test_override_merges_tables_and_replaces_lists():
 def test_override_errors_name_the_overriding_file():
     err = error_for({"rules": {"tap-distance": {"limit": -1.0}}}, base=base_technology())
     assert err.file == SOURCE and err.key == "rules.tap-distance.limit"
+
+
+def test_a_conductor_may_have_several_text_layers():
+    # SKY130 (skywater-pdk docs/rules gds_layers.csv) gives li1 a label purpose 67/5 and a
+    # pin purpose 67/16 that both carry text; a role takes one pair or a list of pairs.
+    tech = technology_from_mapping(minimal(labels={"metal1": [[7, 5], [7, 16]], "poly": [3, 5]}), SOURCE)
+    assert tech.labels["metal1"] == ((7, 5), (7, 16)) and tech.labels["poly"] == ((3, 5),)
+    assert technology_from_mapping(tech.to_mapping(), SOURCE) == tech
+    err = error_for(minimal(labels={"metal1": [[7, 5], [7]]}))
+    assert err.key == "labels.metal1[1]"
