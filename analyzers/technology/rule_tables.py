@@ -97,6 +97,7 @@ def _numbers(check, value: Any, key: str, names: tuple[str, ...]) -> dict[str, f
 
 
 def spacing_table(check, value: Any, key: str) -> tuple[SpacingLimit, ...]:
+    """A by_spacing list checked row by row, widest row first."""
     if not isinstance(value, list):
         raise check.fail(key, "a list of {min_spacing, limit} tables", value)
     rows: list[SpacingLimit] = []

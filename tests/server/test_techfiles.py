@@ -306,7 +306,7 @@ def test_tech_check_command(tmp_path):
     good = write(tmp_path, "good.toml", 'extends = "demo"\nname = "good"\n')
     out, err = io.StringIO(), io.StringIO()
     assert tech_check_command(str(good), out, err) == 0
-    assert out.getvalue() == f"{good}: ok: technology 'good', 12 layers, 3 rule tables\n"
+    assert out.getvalue() == f"{good}: ok: technology 'good', 12 layers, 4 rule tables\n"
     assert err.getvalue() == ""
     bad = write(tmp_path, "bad.toml", 'extends = "demo"\n[layers]\nnwel = [1, 0]\n')
     out, err = io.StringIO(), io.StringIO()
