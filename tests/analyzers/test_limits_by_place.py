@@ -140,3 +140,25 @@ def test_sky130_low_tap_density_area_near_a_pad_keeps_6_um(sky130):
     [f] = findings(sky_nmos(10.0, marked=True, pad_at=30.0), sky130, "ndiff")
     assert f.limit == 6.0
     assert findings(sky_nmos(10.0, marked=True, pad_at=60.0), sky130, "ndiff") == []
+
+
+def sky_ntap_with_li1_label(text, texttype):
+    """A SKY130 n-tap (tap and nsdm in nwell) contacted through licon1 to li1, with a text
+    ``text`` on li1's label (67/5) or pin (67/16) purpose over the li1."""
+    c = CellBuilder("T").rect((64, 20), -2, -2, 6, 4).rect(TAP, 0, 0, 2, 2).rect(NSDM, 0, 0, 2, 2)
+    c.rect(LICON1, 0.8, 0.8, 1.1, 1.1).rect((67, 20), 0.5, 0.5, 1.5, 1.5)
+    return c.label(text, (67, texttype), 1.0, 1.0)
+
+
+@pytest.mark.parametrize("texttype", [5, 16])
+def test_sky130_li1_label_and_pin_text_name_the_net(sky130, texttype):
+    # gds_layers.csv: li1 label 67/5 and li1 pin 67/16 both carry text. The preset names
+    # no supply patterns (the documentation publishes none), so tap-supply reports the
+    # n-tap's net by the name it read; a text on a purpose the preset does not read
+    # (67/99) names nothing and gives no finding.
+    def supply_findings(t):
+        cell = sky_ntap_with_li1_label("VDD", t)
+        return check_outcome(outcome(layout(cell)), sky130, CheckOptions(), rules=(RULES_BY_ID["tap-supply"],)).findings
+    [f] = supply_findings(texttype)
+    assert "on net VDD" in f.message
+    assert supply_findings(99) == []

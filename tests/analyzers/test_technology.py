@@ -318,3 +318,30 @@ def test_a_conductor_may_have_several_text_layers():
     assert technology_from_mapping(tech.to_mapping(), SOURCE) == tech
     err = error_for(minimal(labels={"metal1": [[7, 5], [7]]}))
     assert err.key == "labels.metal1[1]"
+
+
+def test_place_dependent_tap_distance_keys_round_trip():
+    data = minimal(rules={"tap-distance": {"limit": 20.0, "spacing_within": 50.0,
+                                           "by_spacing": [{"min_spacing": 0.0, "limit": 15.0}],
+                                           "near_pad_p": {"within": 15.0, "limit": 2.0},
+                                           "near_pad_n": {"within": 10.0, "limit": 5.0},
+                                           "relaxed": {"limit": 15.0, "pad_clearance": 50.0}},
+                          "tap-contact-distance": {"limit": 6.0}})
+    data["layers"]["low_tap_density"] = [81, 14]
+    tech = technology_from_mapping(data, SOURCE)
+    table = tech.rules["tap-distance"]
+    assert table["near_pad_p"].within == 15.0 and table["near_pad_n"].limit == 5.0
+    assert table["relaxed"].pad_clearance == 50.0
+    assert technology_from_mapping(tech.to_mapping(), SOURCE) == tech
+
+
+def test_place_dependent_key_errors_name_the_key():
+    err = error_for(minimal(rules={"tap-distance": {"near_pad_p": {"within": 15.0}}}))
+    assert err.key == "rules.tap-distance.near_pad_p.limit"
+    err = error_for(minimal(rules={"tap-distance": {"near_pad_n": {"within": -1.0, "limit": 5.0}}}))
+    assert err.key == "rules.tap-distance.near_pad_n.within"
+    err = error_for(minimal(rules={"tap-distance": {"near_pad_n": {"within": 1.0, "limit": 5.0, "far": 2}}}))
+    assert err.key == "rules.tap-distance.near_pad_n.far"
+    # The relaxed area is the low_tap_density layer: without it the key means nothing.
+    err = error_for(minimal(rules={"tap-distance": {"relaxed": {"limit": 15.0, "pad_clearance": 50.0}}}))
+    assert err.key == "rules.tap-distance.relaxed" and "low_tap_density" in err.expected
