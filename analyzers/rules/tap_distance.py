@@ -82,8 +82,11 @@ RULE = Rule(
             "farthest point lies farther than the technology's limit from the nearest contacted tap of the "
             "same body (the same n-well for P+, the substrate's p-taps for N+, or for N+ in a p-well isolated "
             "by a deep n-well that p-well's own p-taps). The limit is "
-            "[rules.tap-distance] limit, limit_p / limit_n, or a by_spacing table keyed by the spacing from "
-            "the diffusion to the opposite well. The distance is the maximum over the whole diffusion, "
+            "[rules.tap-distance] limit, limit_p / limit_n, or a by_spacing row chosen by the smallest "
+            "well-to-diffusion spacing within spacing_within of the device; near_pad_p / near_pad_n tighten "
+            "it near pad-connected diffusion of the other type, and relaxed loosens it in a marked "
+            "low-tap-density area far from pads (docs/technology.md says how each applies; the finding's "
+            "limit_basis names which did). The distance is the maximum over the whole diffusion, "
             "computed to 1 nm (a branch and bound on the distance function); the message names the farthest "
             "point and the related location the nearest tap."
         ),
