@@ -3,6 +3,8 @@ between the taps (analyzers/electrical/sheet.py potential_field).
 
 The window is the one the shunt estimate would give the device (shunt.py): WINDOW_REACH
 times its tap reach around it, inside its body's region, with that body's contacted taps.
+The grid is uniform and finer than the estimate's adaptive one (PICTURE_CELLS across the
+window, or the technology's sheet_grid when finer), so the map shows the field, not the grid.
 """
 
 from __future__ import annotations
@@ -15,6 +17,8 @@ import shapely
 from latchwatch.analyzers.electrical.sheet import PotentialField, SheetProblem, potential_field
 from latchwatch.analyzers.electrical.shunt import WINDOW_REACH, body_regions, shunt_estimates, tap_reach
 from latchwatch.analyzers.extraction.extract import Pieces
+
+PICTURE_CELLS = 120
 
 
 @dataclass
@@ -51,5 +55,10 @@ def device_potential(ctx, kind: str, piece: int) -> DevicePotential | None:
     inside = shapely.intersects(tap_geoms, window)
     problem = SheetProblem(box, np.array([shapely.intersection(region, window)], dtype=object), exclude,
                            tap_geoms[inside], pieces.geoms[piece:piece + 1], float(estimate.sheet[piece]),
-                           ctx.tech.electrical.sheet_grid)
+                           _grid(box, ctx.tech.electrical.sheet_grid))
     return DevicePotential(kind, piece, box, potential_field(problem), tap_geoms[inside])
+
+
+def _grid(box, sheet_grid: float | None) -> float:
+    side = max(box[2] - box[0], box[3] - box[1]) / PICTURE_CELLS
+    return side if sheet_grid is None else min(side, sheet_grid)

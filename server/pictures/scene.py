@@ -95,6 +95,7 @@ def capture(ctx, findings: list[Finding]) -> Drawing:
             geoms = getattr(ex, attribute).geoms
         if len(geoms):
             layers.append(_layer(key, name, key, geoms))
+    layers.sort(key=lambda item: item.role in CUT_ROLES)  # cuts on top, over the hatched taps
     extent = tuple(float(v) for v in shapely.total_bounds(flat.polygons)) if len(flat.polygons) else (0, 0, 1, 1)
     return Drawing(flat.top_name, extent, layers, build_maps(ctx, findings, extent),
                    {finding_key(f) for f in findings})
@@ -103,6 +104,9 @@ def capture(ctx, findings: list[Finding]) -> Drawing:
 # Bottom to top: bodies, implants, diffusion, poly, cuts, metals, then anything else.
 DRAWN_ORDER = ("deep_nwell", "pwell", "nwell", "nplus", "pplus", "active", "tap", "poly", "contact",
                "metal1", "via1", "metal2", "via2", "metal3", "pad")
+
+
+CUT_ROLES = ("contact", "via1", "via2")
 
 
 def _drawn_order(role: str | None) -> int:
