@@ -181,7 +181,11 @@ def check_all(paths: list[Path], settings: CheckSettings, sweeps: Iterable[Sweep
         results = execute(plan, settings, jobs=jobs, on_result=on_result)
     finally:
         progress.close()
-    runs = [r for per_script in results for r in per_script if r is not None]
+    return report_of([r for per_script in results for r in per_script if r is not None], settings)
+
+
+def report_of(runs: list[RunResult], settings: CheckSettings) -> Report:
+    """The report of finished runs, in their order (with their drawings when settings.draw was set)."""
     devices = [d for r in runs for d in r.devices]
     return Report(technology=settings.tech.name, runs=tuple(r.summary for r in runs),
                   findings=tuple(f for r in runs for f in r.findings),
