@@ -22,7 +22,7 @@ from latchwatch.server.report.model import Report, corner_label, for_display
 
 STATIC_SHAPES = 20_000  # up to this many shapes a drawing is static SVG
 DETAIL_SHAPES = 60_000  # the script draws the shapes in view when at most this many are
-MARGIN = 0.04  # of the extent, around the initial view
+MARGIN = 0.08  # of the extent, around the initial view
 
 
 def _asset(name: str) -> str:
