@@ -57,7 +57,7 @@ def png_data_uri(rgba: np.ndarray) -> str:
         return struct.pack(">I", len(data)) + kind + data + struct.pack(">I", zlib.crc32(kind + data) & 0xFFFFFFFF)
 
     png = (b"\x89PNG\r\n\x1a\n" + chunk(b"IHDR", struct.pack(">IIBBBBB", w, h, 8, 6, 0, 0, 0))
-           + chunk(b"IDAT", zlib.compress(raw, 9)) + chunk(b"IEND", b""))
+           + chunk(b"IDAT", zlib.compress(raw, 6)) + chunk(b"IEND", b""))
     return "data:image/png;base64," + base64.b64encode(png).decode("ascii")
 
 
@@ -105,7 +105,7 @@ def pack_rects(rects: np.ndarray) -> str:
     rows = np.c_[q[:, 0], -q[:, 3], q[:, 2] - q[:, 0], q[:, 3] - q[:, 1]]
     rows = rows[np.lexsort((rows[:, 0], rows[:, 1]))]
     deltas = np.diff(rows, axis=0, prepend=np.zeros((1, 4), np.int64)).astype(np.int32)
-    return base64.b64encode(zlib.compress(deltas.tobytes(), 9)).decode("ascii")
+    return base64.b64encode(zlib.compress(deltas.tobytes(), 6)).decode("ascii")
 
 
 def pack_polygons(polygons: np.ndarray) -> str:
@@ -116,4 +116,4 @@ def pack_polygons(polygons: np.ndarray) -> str:
         xy[:, 1] = -xy[:, 1]
         words.append(np.r_[len(xy), xy.ravel()])
     data = np.concatenate(words).astype(np.int32).tobytes() if words else b""
-    return base64.b64encode(zlib.compress(data, 9)).decode("ascii")
+    return base64.b64encode(zlib.compress(data, 6)).decode("ascii")

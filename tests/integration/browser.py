@@ -17,17 +17,27 @@ WIDTH, HEIGHT = 1400, 900
 VIEW_LEFT, VIEW_TOP = 340, 40
 
 
-def screenshot(page: Path, png: Path, fragment: str = "", width: int = WIDTH, height: int = HEIGHT) -> Path:
-    """Render ``page`` (with ``#fragment``) in headless Chromium into ``png``."""
+def _chromium(page: Path, fragment: str, width: int, height: int, *action: str) -> str:
     if CHROMIUM is None:
         raise RuntimeError("chromium is not installed (Debian: apt-get install chromium)")
     url = Path(page).resolve().as_uri() + (f"#{fragment}" if fragment else "")
     with tempfile.TemporaryDirectory() as profile:
-        subprocess.run([CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--hide-scrollbars",
-                        "--force-device-scale-factor=1", f"--user-data-dir={profile}",
-                        f"--window-size={width},{height}", "--virtual-time-budget=4000",
-                        f"--screenshot={png}", url], capture_output=True, timeout=120, check=True)
+        run = subprocess.run([CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--hide-scrollbars",
+                              "--force-device-scale-factor=1", f"--user-data-dir={profile}",
+                              f"--window-size={width},{height}", "--virtual-time-budget=6000", *action, url],
+                             capture_output=True, text=True, timeout=180, check=True)
+    return run.stdout
+
+
+def screenshot(page: Path, png: Path, fragment: str = "", width: int = WIDTH, height: int = HEIGHT) -> Path:
+    """Render ``page`` (with ``#fragment``) in headless Chromium into ``png``."""
+    _chromium(page, fragment, width, height, f"--screenshot={png}")
     return png
+
+
+def rendered_dom(page: Path, fragment: str = "", width: int = WIDTH, height: int = HEIGHT) -> str:
+    """The page's DOM after its script ran, as HTML text."""
+    return _chromium(page, fragment, width, height, "--dump-dom")
 
 
 def read_png(path: Path) -> np.ndarray:

@@ -4,6 +4,7 @@ are drawn, and a layer toggle changes pixels. Chromium is Debian's (.ci/run inst
 
 from __future__ import annotations
 
+import re
 import subprocess
 from html.parser import HTMLParser
 from pathlib import Path
@@ -11,7 +12,7 @@ from pathlib import Path
 import gdstk
 import numpy as np
 import pytest
-from browser import CHROMIUM, read_png, screenshot, to_pixel
+from browser import CHROMIUM, read_png, rendered_dom, screenshot, to_pixel
 from test_examples import latchwatch
 
 from builders import GENERATOR
@@ -124,3 +125,34 @@ def test_corners_share_one_page_with_a_selector(tmp_path):
     assert len(options) == 2 and len(tags.all("svg", "scene")) == 2
     text = page.read_text(encoding="utf-8")
     assert "fingers=4" in text and "fingers=16" in text
+
+
+@needs_chromium
+def test_large_drawing_draws_the_shapes_in_view_when_zoomed_in(tmp_path):
+    # The far diffusion with poly squares (0.4 um, pitch 1 um) over it, and a 160 x 160 block of
+    # them far away: more shapes than a drawing writes as static SVG (page.STATIC_SHAPES).
+    lib = gdstk.Library()
+    cell = lib.new_cell("TOP")
+    for a, b, layer in FAR_GDS:
+        cell.add(gdstk.rectangle(a, b, layer=layer))
+    near = [(x, y) for x in range(-5, 40) for y in range(-5, 10)]
+    block = [(200 + i, j) for i in range(160) for j in range(160)]
+    for x, y in near + block:
+        cell.add(gdstk.rectangle((x, y), (x + 0.4, y + 0.4), layer=3))
+    lib.write_gds(str(tmp_path / "many.gds"))
+    page = tmp_path / "many.html"
+    tags = write_page(["many.gds"], page, tmp_path)
+    assert tags.all("image", "overview") and not any(a.get("d") for a in tags.all("path", "detail"))
+    (item,) = tags.all("li", "item")
+    # Clicking a finding zooms to its box grown by 35 % of its larger side plus 0.5 um (page.js zoomTo).
+    x0, y0, x1, y1 = map(float, item["data-box"].split())
+    pad = max(x1 - x0, y1 - y0) * 0.35 + 0.5
+    view = (x0 - pad, -y1 - pad, x1 - x0 + 2 * pad, y1 - y0 + 2 * pad)
+    dom = rendered_dom(page, "finding=0")
+    (scene,) = Tags(dom).all("svg", "scene")
+    assert tuple(map(float, scene["viewbox"].split())) == pytest.approx(view)
+    (poly,) = re.findall(r'<g class="layer" data-layer="3/0"[^>]*>(?:(?!</g>).)*?<path class="detail" d="([^"]*)"', dom, re.S)
+    # One subpath per square touching the view (x from view[0], y negated in SVG).
+    touching = sum(1 for x, y in near + block if x <= view[0] + view[2] and x + 0.4 >= view[0]
+                   and -(y + 0.4) <= view[1] + view[3] and -y >= view[1])
+    assert poly.count("M") == touching
