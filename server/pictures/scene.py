@@ -54,6 +54,7 @@ class Drawing:
 
 
 def finding_key(finding: Finding) -> tuple:
+    """What matches a report's finding to the drawing it came from (unchanged by display paths and severities)."""
     return (finding.rule, finding.message, finding.location)
 
 
