@@ -80,8 +80,9 @@ def capture(ctx, findings: list[Finding]) -> Drawing:
     flat, tech = ctx.flat, ctx.tech
     roles = {pair: role for role, pair in tech.layers.items()}
     layers = []
-    pairs = np.unique(np.c_[flat.layer, flat.datatype], axis=0) if len(flat.polygons) else np.zeros((0, 2), int)
-    for layer, datatype in pairs.tolist():
+    # One int per (layer, datatype), both 16-bit in GDSII: np.unique on it sorts plain integers.
+    keys = np.unique(flat.layer.astype(np.int64) * 65536 + flat.datatype)
+    for layer, datatype in zip((keys // 65536).tolist(), (keys % 65536).tolist(), strict=True):
         role = roles.get((layer, datatype))
         shown = f"{role} ({layer}/{datatype})" if role else f"layer {layer}/{datatype}"
         layers.append(_layer(f"{layer}/{datatype}", shown, role, flat.polygons[flat.on_layer((layer, datatype))]))
