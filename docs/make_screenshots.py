@@ -1,7 +1,8 @@
 """Regenerate the README's screenshot of the page: `python docs/make_screenshots.py`.
 
 Runs `latchwatch check examples/sparse_tap_row.py --tech demo --html ...` and renders the
-page in headless Chromium (Debian's `chromium`) into docs/page-sparse-tap-row.png.
+page in headless Chromium (Debian's `chromium`) into docs/page-sparse-tap-row.png; the
+same for examples/pad_driver_open_ring.py with the sheet potential map shown.
 """
 
 from __future__ import annotations
@@ -17,7 +18,10 @@ sys.path.insert(0, str(ROOT / "tests" / "integration"))
 
 from browser import screenshot  # noqa: E402  (the tests' Chromium helper, one definition)
 
-SHOTS = {"page-sparse-tap-row.png": ("examples/sparse_tap_row.py", "")}
+SHOTS = {
+    "page-sparse-tap-row.png": ("examples/sparse_tap_row.py", ""),
+    "page-pad-driver-open-ring.png": ("examples/pad_driver_open_ring.py", "hide=m-tapdist&show=m-sheet0"),
+}
 
 
 def main() -> None:

@@ -180,8 +180,8 @@ def _check(args) -> int:
     if page is not None:
         from latchwatch.server.pictures.page import write_page
 
-        progress_note = write_page(report, page)
-        print(f"latchwatch: page written to {progress_note}", file=sys.stderr)
+        written = write_page(report, page)
+        print(f"latchwatch: page written to {written}", file=sys.stderr)
     threshold = FAIL_LEVELS[args.fail_on]
     failed = threshold is not None and any(f.severity >= threshold for f in report.findings)
     return 1 if failed else 0

@@ -126,8 +126,8 @@ def sheet_potential_maps(ctx, findings: list[Finding], extent) -> list[MapImage]
         j = np.clip(np.searchsorted(mesh.y, xy[:, 1]) - 1, 0, len(mesh.y) - 2)
         values = potential[j, i]
         colour = ramp(np.nan_to_num(values), POTENTIAL_RAMP)
-        # Faint where the sheet sits at the taps' 0 V, so the geometry beneath stays readable.
-        alpha = np.where(np.isnan(values), 0, 40 + (ALPHA - 40) * np.clip(np.nan_to_num(values) * 2, 0, 1))
+        # Clear where the sheet sits at the taps' 0 V, so the geometry beneath stays readable.
+        alpha = np.where(np.isnan(values), 0, ALPHA * np.clip(np.nan_to_num(values) * 3, 0, 1))
         alpha = alpha.astype(np.uint8)
         shares = solved.field.tap_current
         centres = shapely.get_coordinates(shapely.point_on_surface(solved.taps)) if len(solved.taps) else np.zeros((0, 2))
