@@ -89,8 +89,7 @@
 
   // --- layers, drawings, findings -------------------------------------------------------
   function setLayer(svg, key, on) {
-    var g = svg.querySelector('g[data-layer="' + key + '"]');
-    if (g) g.classList.toggle("off", !on);
+    svg.querySelectorAll('g[data-layer="' + key + '"]').forEach(function (g) { g.classList.toggle("off", !on); });
     var panel = document.querySelector('.panel[data-scene="' + svg.dataset.scene + '"]');
     var box = panel && panel.querySelector('input[data-layer="' + key + '"]');
     if (box) box.checked = on;

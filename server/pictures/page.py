@@ -59,12 +59,14 @@ def _layer_group(n: int, index: int, layer, static: bool, extent, packed: dict) 
             f'preserveAspectRatio="none"/><path class="detail" d=""/></g>')
 
 
-def _map_group(m) -> str:
+def _map_group(m) -> tuple[str, str]:
+    """(the map's image, its labels): the labels go above the layers, under the same toggle."""
     x0, y0, x1, y1 = m.box
     labels = "".join(f'<text class="maplabel" x="{x}" y="{-y}">{_esc(t)}</text>' for x, y, t in m.labels)
     hidden = "" if m.key == "m-tapdist" else " off"
-    return (f'<g class="layer map{hidden}" data-layer="{m.key}"><image href="{s.png_data_uri(m.rgba)}" x="{x0}" '
-            f'y="{-y1}" width="{x1 - x0}" height="{y1 - y0}" preserveAspectRatio="none" opacity="0.8"/>{labels}</g>')
+    image = (f'<g class="layer map{hidden}" data-layer="{m.key}"><image href="{s.png_data_uri(m.rgba)}" x="{x0}" '
+             f'y="{-y1}" width="{x1 - x0}" height="{y1 - y0}" preserveAspectRatio="none" opacity="0.8"/></g>')
+    return image, f'<g class="layer{hidden}" data-layer="{m.key}">{labels}</g>' if labels else ""
 
 
 def _finding_group(k: int, f: Finding, px: float) -> str:
@@ -116,7 +118,8 @@ def _scene(n: int, drawing: Drawing, findings: list[Finding], label: str, packed
     px = initial_view(drawing.extent)[2] / 1000
     mine: dict = {}
     groups = [_layer_group(n, i, layer, static, drawing.extent, mine) for i, layer in enumerate(drawing.layers)]
-    maps = [_map_group(m) for m in drawing.maps]
+    pairs = [_map_group(m) for m in drawing.maps]
+    maps, map_labels = [image for image, _ in pairs], [labels for _, labels in pairs]
     marks = [_finding_group(k, f, px) for k, f in enumerate(findings)]
     if mine:
         packed[str(n)] = mine
@@ -125,7 +128,7 @@ def _scene(n: int, drawing: Drawing, findings: list[Finding], label: str, packed
     svg = (f'<svg class="scene{hidden}" id="scene-{n}" data-scene="{n}" viewBox="{view}" data-home="{view}" '
            f'preserveAspectRatio="xMidYMid meet" xmlns="http://www.w3.org/2000/svg">{_defs(n, px)}'
            f'{"".join(groups[:_bodies(drawing)])}{"".join(maps)}{"".join(groups[_bodies(drawing):])}'
-           f'<g class="findings">{"".join(marks)}</g></svg>')
+           f'{"".join(map_labels)}<g class="findings">{"".join(marks)}</g></svg>')
     toggles = "".join(
         f'<label><input type="checkbox" data-layer="{_esc(key)}"{"" if off else " checked"}> '
         f'<i class="swatch" style="background:{_swatch(role, i)}"></i>{_esc(name)}</label>'
