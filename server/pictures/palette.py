@@ -24,6 +24,7 @@ ROLE_STYLE = {
     "x-ntap": ("url(#hatch-n)", 1.0, "#1f57a8"),
     "x-ptap": ("url(#hatch-p)", 1.0, "#b4531a"),
     "x-bare": ("url(#hatch-bare)", 1.0, "#6a6a6a"),
+    "x-pad": ("none", 0.0, "#00897b"),  # drawn as a thick outline (page.css)
 }
 # Layers the technology does not name, in turn.
 SPARE_STYLES = (("#8fb3a0", 0.3, "#4f7362"), ("#b38fa9", 0.3, "#734f69"), ("#a9b38f", 0.3, "#69734f"),

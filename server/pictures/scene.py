@@ -10,6 +10,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import shapely
 
+from latchwatch.analyzers.extraction.nets import pad_connected
 from latchwatch.analyzers.layout.geometry import axis_aligned_rectangles
 from latchwatch.analyzers.model.findings import Finding
 from latchwatch.server.pictures.maps import MapImage, build_maps
@@ -21,6 +22,7 @@ EXTRACTED = (
     ("x-ntap", "n-tap, contacted (extracted)", "ntap"),
     ("x-ptap", "p-tap, contacted (extracted)", "ptap"),
     ("x-bare", "tap without contact (extracted)", None),
+    ("x-pad", "pad-connected device (extracted)", "pad"),
 )
 
 
@@ -91,6 +93,9 @@ def capture(ctx, findings: list[Finding]) -> Drawing:
     for key, name, attribute in EXTRACTED:
         if attribute is None:
             geoms = np.r_[ex.ntap.geoms[~ex.ntap_contacted], ex.ptap.geoms[~ex.ptap_contacted]]
+        elif attribute == "pad":
+            pad = pad_connected(ctx)
+            geoms = np.r_[ex.pdiff.geoms[pad["p"]], ex.ndiff.geoms[pad["n"]]]
         elif attribute in ("ntap", "ptap"):
             geoms = getattr(ex, attribute).geoms[getattr(ex, f"{attribute}_contacted")]
         else:
