@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import os
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass, replace
 from typing import TYPE_CHECKING
 
@@ -65,8 +65,11 @@ def top_cells(outcome: RunOutcome, top: str | None) -> list[int]:
 
 def check_outcome(outcome: RunOutcome, tech: Technology, options: CheckOptions = DEFAULT_OPTIONS, *,
                   rules: tuple[Rule, ...] = RULES, severity: dict[str, Severity] | None = None,
-                  want_devices: bool = False) -> CheckResult:
-    """Every chosen rule on one run: run rules once, layout rules on each checked top cell."""
+                  want_devices: bool = False,
+                  on_top: Callable[[CheckContext, list[Finding]], None] | None = None) -> CheckResult:
+    """Every chosen rule on one run: run rules once, layout rules on each checked top cell.
+    ``on_top`` sees each checked top's context (its flat layout and extraction) with the
+    findings of its layout rules, before the context is dropped (pictures use it)."""
     findings: list[Finding] = []
     devices: list[Device] | None = [] if want_devices else None
     run_rules = tuple(rule for rule in rules if rule.scope is Scope.RUN)
@@ -81,8 +84,10 @@ def check_outcome(outcome: RunOutcome, tech: Technology, options: CheckOptions =
             flat = flatten(layout, top)
             shapes += len(flat.polygons)
             ctx = CheckContext(outcome, tech, options, flat)
-            for rule in layout_rules:
-                findings.extend(_checked(rule, ctx, layout.cells[top].name))
+            found = [f for rule in layout_rules for f in _checked(rule, ctx, layout.cells[top].name)]
+            findings.extend(found)
+            if on_top is not None:
+                on_top(ctx, found)
             if want_devices:
                 devices.extend(device_table(ctx))
     if severity:

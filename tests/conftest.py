@@ -18,6 +18,7 @@ FAST_SERVER_FILES = {
     "test_documents.py", "test_lsp_convert.py", "test_lsp_settings.py", "test_project_config.py",
     "test_report_json.py", "test_report_sarif.py", "test_report_text.py", "test_suppression.py",
     "test_techfiles.py", "test_wire.py", "test_layering.py", "test_report_model.py", "test_docstrings.py",
+    "test_pictures.py",
 }
 
 

@@ -334,12 +334,67 @@ def solve(problem: SheetProblem) -> SheetResult:
     return SheetResult(resistance, n, iterations)
 
 
-def equipotential_resistance(lu, n: int, dev: np.ndarray, nodes: np.ndarray, w: np.ndarray):
+@dataclass
+class PotentialField:
+    """The solved potential of one device at 1 V over the grid, taps at 0 V, and where its current goes."""
+    mesh: Mesh
+    potential: np.ndarray  # (ny, nx) volts; nan off the sheet; 1 on the device, 0 on taps
+    tap_current: np.ndarray  # per tap of the problem, the fraction of the device's current it collects
+    resistance: float
+
+
+def potential_field(problem: SheetProblem, device: int = 0) -> PotentialField:
+    """The potential of device ``device`` held at 1 V (the others float as sheet) and the
+    share of its current each tap collects: the same grid, network and equipotential
+    solution as ``solve``, kept instead of reduced to a resistance."""
+    mesh, _layer = make_mesh(problem)
+    network = build_network(mesh, problem)
+    label = paint(mesh, problem.devices[device:device + 1], np.array([0]))
+    dev, nodes, w, shorted = _outlines(mesh, network, label, 1)
+    potential = np.full(mesh.shape, np.nan)
+    potential[network.tap] = 0.0
+    shares = np.zeros(len(problem.taps))
+    n = network.matrix.shape[0]
+    if n == 0 or len(dev) == 0 or shorted[0]:
+        return PotentialField(mesh, potential, shares, 0.0 if shorted[0] else np.inf)
+    lu = splu(network.matrix, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0, options={"SymmetricMode": True})
+    _, bound, _ = equipotential_resistance(lu, n, dev, nodes, w, keep_q=True)
+    q = bound[1]
+    current = np.zeros(n)
+    np.add.at(current, nodes, w * q)  # the injected currents I = W q; their potential is ~1 V on the outline
+    volts = lu.solve(current)
+    potential[network.node >= 0] = volts[network.node[network.node >= 0]]
+    potential[label >= 0] = np.where(network.node[label >= 0] >= 0, potential[label >= 0], 1.0)
+    tap_label = paint(mesh, problem.taps, np.arange(len(problem.taps)))
+    shares = _tap_currents(mesh, network, volts, tap_label, problem.sheet, len(problem.taps))
+    total = shares.sum()
+    return PotentialField(mesh, potential, shares / total if total > 0 else shares, float(bound[0][0]))
+
+
+def _tap_currents(mesh: Mesh, network: _Network, volts: np.ndarray, tap_label: np.ndarray, rs: float,
+                  n_taps: int) -> np.ndarray:
+    """Current into each tap: over every face between a free cell and a tap cell, the
+    cell's potential times that link's conductance (the one build_network grounds)."""
+    out = np.zeros(n_taps)
+    dx, dy = np.diff(mesh.x), np.diff(mesh.y)
+    node = network.node
+    for a, b, face, half in ((np.s_[:, :-1], np.s_[:, 1:], dy[:, None], dx[None, :-1]),
+                             (np.s_[:, 1:], np.s_[:, :-1], dy[:, None], dx[None, 1:]),
+                             (np.s_[:-1, :], np.s_[1:, :], dx[None, :], dy[:-1, None]),
+                             (np.s_[1:, :], np.s_[:-1, :], dx[None, :], dy[1:, None])):
+        touch = (node[a] >= 0) & network.tap[b] & (tap_label[b] >= 0)
+        g = np.broadcast_to(face / (rs * half / 2), touch.shape)[touch]
+        np.add.at(out, tap_label[b][touch], g * volts[node[a][touch]])
+    return out
+
+
+def equipotential_resistance(lu, n: int, dev: np.ndarray, nodes: np.ndarray, w: np.ndarray, keep_q: bool = False):
     """Conjugate gradients on (W Z W) q = w for all devices at once, where Z maps the
     currents injected at a device's outline nodes to their potentials (one solve of
     the factorized matrix ``lu``) and W holds the outline weights. I = W q is the
     current distribution; 1 / (w . q) is its Thomson bound on the resistance.
-    Returns (devices, resistance bound, iterations of the slowest)."""
+    Returns (devices, resistance bound, iterations of the slowest); with ``keep_q`` the
+    bound is the pair (bound, q), q per outline entry."""
     devices = np.unique(dev)
     seg = np.searchsorted(devices, dev)
     k = len(devices)
@@ -383,4 +438,4 @@ def equipotential_resistance(lu, n: int, dev: np.ndarray, nodes: np.ndarray, w: 
         p = r + beta[seg] * p
         rr = rr_new
         live &= ~settled & (pap > 0)
-    return devices, bound, iterations
+    return devices, (bound, q) if keep_q else bound, iterations

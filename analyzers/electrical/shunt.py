@@ -82,7 +82,7 @@ def _estimate_kind(ctx, kind: str, prune: bool) -> KindShunt:
     tapped = np.isin(pieces.body, taps.body) & ~np.isnan(sheet)
     if not tapped.any():
         return KindShunt(ohm, required, pad, taps, sheet, elec.vbe_on)
-    regions = _regions(ex, kind)
+    regions = body_regions(ex, kind)
     if prune:
         bound = np.full(n, np.inf)
         bound[tapped] = channel_bound(pieces.select(tapped), taps, sheet[tapped], regions)
@@ -178,7 +178,7 @@ def substrate_box(ex) -> tuple[float, float, float, float]:
     return (float(x0 - m), float(y0 - m), float(x1 + m), float(y1 + m))
 
 
-def _regions(ex, kind: str):
+def body_regions(ex, kind: str):
     """body -> (region polygon, polygons cut out of it, bounding box). Merged wells keep
     the vertices where their drawn shapes met; simplify(0) drops those."""
     empty = np.empty(0, dtype=object)

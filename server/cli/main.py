@@ -61,6 +61,8 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("--tech", metavar="NAME|FILE", help="built-in technology name or a technology TOML file")
     c.add_argument("--format", choices=sorted(RENDERERS), default="text")
     c.add_argument("--output", type=Path, metavar="FILE", help="write the report there instead of stdout")
+    c.add_argument("--html", type=Path, metavar="FILE",
+                   help="also write the page: the layout, its findings and maps, one self-contained HTML file")
     c.add_argument("--select", metavar="RULE[,RULE]", help="only these rules")
     c.add_argument("--ignore", metavar="RULE[,RULE]", help="all rules but these")
     c.add_argument("--fail-on", choices=list(FAIL_LEVELS), default="warning")
@@ -163,6 +165,11 @@ def _check(args) -> int:
     # Several scripts: each runs in a fork of a corner host that imported gdstk once
     # (measured in DEVELOPERS.md); one script runs in a fresh child.
     settings = replace(settings, hosted=sum(p.suffix.lower() == ".py" for p in paths) > 1)
+    page = args.html or config.html
+    if page is not None:
+        from latchwatch.server.pictures.scene import capture
+
+        settings = replace(settings, draw=capture)
     report = sweep.check_all(paths, settings, _sweeps(args, config, paths), jobs=args.jobs, corners=args.corners,
                              progress=sweep.ProgressBar(sys.stderr), unlisted=not args.paths)
     text = RENDERERS[args.format](report)
@@ -170,6 +177,11 @@ def _check(args) -> int:
         args.output.write_text(text if text.endswith("\n") else text + "\n", encoding="utf-8")
     else:
         sys.stdout.write(text if text.endswith("\n") else text + "\n")
+    if page is not None:
+        from latchwatch.server.pictures.page import write_page
+
+        written = write_page(report, page)
+        print(f"latchwatch: page written to {written}", file=sys.stderr)
     threshold = FAIL_LEVELS[args.fail_on]
     failed = threshold is not None and any(f.severity >= threshold for f in report.findings)
     return 1 if failed else 0

@@ -35,7 +35,8 @@ else:  # pragma: no cover - exercised only on Python 3.10
 
 PYPROJECT = "pyproject.toml"
 OWN_FILE = "latchwatch.toml"
-KEYS = ("tech", "include", "exclude", "python", "timeout", "disable", "severity", "sweep", "require-sandbox", "env")
+KEYS = ("tech", "include", "exclude", "python", "timeout", "disable", "severity", "sweep", "require-sandbox", "env",
+        "html")
 SWEEP_KEYS = ("script", "function", "params")
 # Folders expand_includes never descends into: tool caches, virtual environments, VCS.
 SKIPPED_FOLDER = re.compile(r"^(\..*|__pycache__)$")
@@ -73,6 +74,7 @@ class ProjectConfig:
     sweeps: tuple[SweepSpec, ...] = ()
     require_sandbox: bool = False  # can only tighten: a missing protection becomes an error
     env: tuple[str, ...] = ()  # environment variables the scripts also see (PDK_ROOT)
+    html: Path | None = None  # `latchwatch check` also writes the page there (resolved)
 
 
 def _read_toml(path: Path) -> dict:
@@ -236,6 +238,11 @@ def _parse(table: dict, path: Path, prefix: str, known_rules: set[str] | None) -
             problem = pass_env_problem(name)
             if problem:
                 read.fail("env", problem)
+    if "html" in table:
+        page = read.string("html", table["html"])
+        if not page.lower().endswith((".html", ".htm")):
+            read.expect("html", "a path of an .html file (the page `latchwatch check` writes)", page)
+        values["html"] = Path(read.path_value(page))
     return ProjectConfig(root=path.parent, source=path, **values)
 
 

@@ -31,6 +31,7 @@ from latchwatch.analyzers.rules import RULES_BY_ID
 from latchwatch.analyzers.technology.model import TechnologyError
 from latchwatch.server.config.project import ConfigError
 from latchwatch.server.config.trust import TrustStoreError, is_trusted
+from latchwatch.server.lsp import actions
 from latchwatch.server.lsp import convert as convert
 from latchwatch.server.lsp.documents import RunScheduler
 from latchwatch.server.lsp.progress import Progress
@@ -48,7 +49,6 @@ from latchwatch.server.lsp.settings import (
 from latchwatch.server.runs import batch as sweep
 from latchwatch.server.runs import plan
 from latchwatch.server.runs.pipeline import read_text_or_none
-from latchwatch.server.runs.suppression import add_suppression
 from latchwatch.server.sandbox.runner import RunnerError
 
 logger = logging.getLogger("latchwatch.lsp")
@@ -398,7 +398,11 @@ def create_server() -> LatchwatchServer:
     @server.feature(types.TEXT_DOCUMENT_CODE_ACTION,
                     types.CodeActionOptions(code_action_kinds=[types.CodeActionKind.QuickFix]))
     def code_action(ls: LatchwatchServer, params: types.CodeActionParams):
-        return suppression_actions(ls, params)
+        return actions.suppression_actions(ls, params) + actions.page_actions(ls, params)
+
+    @server.command(actions.SHOW_PAGE)
+    async def show_page(ls: LatchwatchServer, args):
+        return await actions.show_page(ls, args)
 
     @server.feature(types.SHUTDOWN)
     def shutdown(ls: LatchwatchServer, *args):
@@ -440,39 +444,6 @@ def hover_at(ls: LatchwatchServer, uri: str, line: int):
     if formats and types.MarkupKind.Markdown not in formats:
         return types.Hover(contents=types.MarkupContent(kind=types.MarkupKind.PlainText, value=text.replace("**", "")))
     return types.Hover(contents=types.MarkupContent(kind=types.MarkupKind.Markdown, value=text))
-
-
-def suppression_actions(ls: LatchwatchServer, params: types.CodeActionParams) -> list[types.CodeAction]:
-    """Per latchwatch diagnostic in range: suppress its rule on its line; per line: suppress
-    every latchwatch finding there (docs/suppression.md)."""
-    uri = params.text_document.uri
-    document = ls.workspace.get_text_document(uri)
-    lines = document.lines
-    wanted = [d for d in (params.context.diagnostics or []) if d.source == convert.SOURCE]
-    if not wanted:  # some clients send no context: take ours on the requested lines
-        first, last = params.range.start.line, params.range.end.line
-        wanted = [d for d in ls.diagnostics_of(uri) if first <= d.range.start.line <= last]
-    actions, every_done = [], set()
-    for diagnostic in wanted:
-        line, rule = diagnostic.range.start.line, diagnostic.code
-        if rule not in RULES_BY_ID or line >= len(lines):
-            continue
-        for chosen, title in ((rule, f"Suppress {rule} on this line"),
-                              (None, "Suppress every latchwatch finding on this line")):
-            if chosen is None and line in every_done:
-                continue
-            every_done.add(line) if chosen is None else None
-            try:
-                new_text = add_suppression(lines[line], chosen)
-            except ValueError as error:
-                ls.log(f"no suppression for line {line + 1}: {error}")
-                break
-            end = types.Position(line, convert.line_length(lines[line].rstrip("\r\n"), ls.encoding))
-            edit = types.TextEdit(range=types.Range(types.Position(line, 0), end), new_text=new_text.rstrip("\r\n"))
-            actions.append(types.CodeAction(
-                title=title, kind=types.CodeActionKind.QuickFix, diagnostics=[diagnostic],
-                edit=types.WorkspaceEdit(changes={uri: [edit]}), is_preferred=chosen is not None))
-    return actions
 
 
 def serve(tcp: str | None = None) -> int:

@@ -36,10 +36,11 @@ from latchwatch.server.sandbox.policy import pass_env_problem
 
 SECTION = "latchwatch"
 RUN_MODES = ("change", "save")
+STRING_KEYS = {"tech": "tech", "python": "python", "ruleDocsUrl": "rule_docs_url", "pagePath": "page_path"}
 DEFAULT_DEBOUNCE_MS = 500.0
 DEFAULT_TIMEOUT = 10.0
 KEYS = ("tech", "python", "timeout", "debounce", "runOn", "disable", "severity", "trustedFolders", "ruleDocsUrl",
-        "requireSandbox", "env")
+        "requireSandbox", "env", "pagePath")
 
 
 class SettingsError(Exception):
@@ -60,6 +61,7 @@ class EditorSettings:
     rule_docs_url: str | None = None  # "{rule}" is replaced by the rule id
     require_sandbox: bool = False  # or'ed with the project file's `require-sandbox`: either can tighten
     env: tuple[str, ...] = ()  # environment variables the scripts also see, added to the project's `env`
+    page_path: str | None = None  # where the show-page command writes; None: the project's `html`, else a cache file
 
 
 def section_of(value) -> dict:
@@ -81,9 +83,9 @@ def merge(base: EditorSettings, raw: dict, allow_trust: bool) -> tuple[EditorSet
     for key, value in raw.items():
         if value is None:
             continue
-        if key in ("tech", "python", "ruleDocsUrl"):
+        if key in STRING_KEYS:
             if isinstance(value, str) and value.strip():
-                values[{"tech": "tech", "python": "python", "ruleDocsUrl": "rule_docs_url"}[key]] = value.strip()
+                values[STRING_KEYS[key]] = value.strip()
             else:
                 bad(key, "a non-empty string", value)
         elif key in ("timeout", "debounce"):

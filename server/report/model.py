@@ -33,6 +33,8 @@ class Report:
     findings: tuple[Finding, ...]
     devices: tuple[Device, ...] | None  # None unless the device table was asked for
     rules: tuple[Rule, ...]
+    # Per run (aligned with ``runs``), the drawings of its checked tops when pictures were asked for.
+    drawings: tuple[tuple, ...] = ()
 
     def summary(self) -> dict:
         counts = {severity.label: 0 for severity in sorted(Severity, reverse=True)}

@@ -36,6 +36,7 @@ class RunResult:
     findings: list[Finding]
     devices: list[Device]
     output: str
+    drawings: list = field(default_factory=list)  # with settings.draw: one per checked top
 
 
 class _Either:
@@ -65,11 +66,11 @@ def run_task(task: Task, settings: CheckSettings, source: str | None = None, can
         outcome = replace(outcome, corner=dict(task.corner or {}))
     if outcome.status == "cancelled" or (cancel is not None and cancel.is_set()):
         return None
-    findings, devices, summary = check_run(outcome, settings, read_source=read_source)
+    findings, devices, summary, drawings = check_run(outcome, settings, read_source=read_source)
     if task.function is not None:
         summary = replace(summary, function=task.function)
     cells = len(outcome.layout.cells) if outcome.layout is not None else 0
-    return RunResult(task, outcome.status, cells, summary, findings, devices, outcome.output)
+    return RunResult(task, outcome.status, cells, summary, findings, devices, outcome.output, drawings)
 
 
 def _wants_preview(result: RunResult, text: str | None) -> list[str]:
@@ -180,11 +181,16 @@ def check_all(paths: list[Path], settings: CheckSettings, sweeps: Iterable[Sweep
         results = execute(plan, settings, jobs=jobs, on_result=on_result)
     finally:
         progress.close()
-    runs = [r for per_script in results for r in per_script if r is not None]
+    return report_of([r for per_script in results for r in per_script if r is not None], settings)
+
+
+def report_of(runs: list[RunResult], settings: CheckSettings) -> Report:
+    """The report of finished runs, in their order (with their drawings when settings.draw was set)."""
     devices = [d for r in runs for d in r.devices]
     return Report(technology=settings.tech.name, runs=tuple(r.summary for r in runs),
                   findings=tuple(f for r in runs for f in r.findings),
-                  devices=tuple(devices) if settings.devices else None, rules=RULES)
+                  devices=tuple(devices) if settings.devices else None, rules=RULES,
+                  drawings=tuple(tuple(r.drawings) for r in runs))
 
 
 class ProgressBar:

@@ -35,6 +35,8 @@ class CheckSettings:
     require_sandbox: bool = False  # a missing sandbox protection is an error (SandboxUnavailable), not a fallback
     pass_env: tuple[str, ...] = ()  # environment variables the scripts also see (project `env`, `--env`)
     hosted: bool = False  # runs are forks of corner hosts (server/sandbox/hosts.py): many runs, the same settings
+    # Turns each checked top (its CheckContext and findings) into a drawing kept with the run (server/pictures/).
+    draw: Callable | None = field(default=None, compare=False)
 
 
 def is_checkable(path: Path) -> bool:
@@ -69,20 +71,24 @@ def run_path(path: Path, settings: CheckSettings, source: str | None = None, can
                       hosted=settings.hosted, pass_env=settings.pass_env)
 
 
-def check_run(outcome: RunOutcome, settings: CheckSettings, read_source=None) -> tuple[list[Finding], list, RunSummary]:
-    """The findings, devices and summary of one run under the settings (suppression comments applied)."""
+def check_run(outcome: RunOutcome, settings: CheckSettings, read_source=None
+              ) -> tuple[list[Finding], list, RunSummary, list]:
+    """The findings, devices, summary and drawings (with ``settings.draw``) of one run
+    under the settings (suppression comments applied)."""
     rules = select_rules(settings.select or None, settings.ignore, settings.disable)
     options = CheckOptions(
         project_root=str(settings.project_root) if settings.project_root else None,
         top=settings.top, exact_devices=settings.devices,
     )
+    drawings: list = []
+    on_top = None if settings.draw is None else (lambda ctx, found: drawings.append(settings.draw(ctx, found)))
     result = check_outcome(outcome, settings.tech, options, rules=rules, severity=settings.severity,
-                           want_devices=settings.devices)
+                           want_devices=settings.devices, on_top=on_top)
     findings = apply_suppressions(result.findings, read_source or read_text_or_none)
     summary = RunSummary(script=outcome.script, corner=outcome.corner, status=outcome.status,
                          seconds=round(outcome.seconds, 3), cells=result.cells, shapes=result.shapes,
                          sandbox=outcome.sandbox)
-    return findings, result.devices or [], summary
+    return findings, result.devices or [], summary, drawings
 
 
 def read_text_or_none(file: str | Path) -> str | None:

@@ -259,7 +259,7 @@ def test_channel_bound_is_above_the_estimate(demo, seed):
     # the estimate lies within its documented 6% above the true R, so never above bound * 1.06.
     ctx = scattered_context(demo, seed)
     est = shunt_estimates(ctx, exact=True)
-    regions = shunt._regions(ctx.extraction, "p"), shunt._regions(ctx.extraction, "n")
+    regions = shunt.body_regions(ctx.extraction, "p"), shunt.body_regions(ctx.extraction, "n")
     for (kind, pieces), region in zip((("p", ctx.extraction.pdiff), ("n", ctx.extraction.ndiff)), regions, strict=False):
         bound = shunt.channel_bound(pieces, est[kind].taps, est[kind].sheet, region)
         finite = np.isfinite(bound)
