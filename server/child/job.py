@@ -191,7 +191,8 @@ def run(options):
         return failure, []
     try:
         # A call: the returned cells are the tops, other cells are left out.
-        return capture.collect(script, returned)
+        return capture.collect(script, returned, module=module.__dict__,
+                               source_text=source.decode("utf-8", "replace"))
     except MemoryError as error:
         return _exception_failure(error, options.memory), []
     except Exception as error:
@@ -223,7 +224,7 @@ NOT_A_LAYOUT = "returned %s, not a gdstk.Cell or Library, a klayout.db.Cell or L
 def _call_generator(module, options):
     """Call ``options.call`` of the imported script with ``options.kwargs``.
 
-    Returns ((gdstk cells, unit, klayout cells), None), or (None, failure header). The
+    Returns ((gdstk cells, unit, klayout cells, function name), None), or (None, failure header). The
     returned cells (a Cell, a Library's or Layout's cells, a kfactory KCell, or the
     cells of a list of them) are what gets collected, with the cells they reference;
     cells created but not returned are not.
@@ -248,9 +249,9 @@ def _call_generator(module, options):
             cells = None
             break
     if cells is not None:
-        return (cells, unit, klayout_cells), None
+        return (cells, unit, klayout_cells, options.call), None
     if options.non_layout == "ignore":
-        return ([], None, []), None
+        return ([], None, [], options.call), None
     code = getattr(function, "__code__", None)
     frames = [[code.co_filename, code.co_firstlineno, code.co_name, None, None, None]] if code else []
     arguments = ", ".join("%s=%r" % item for item in options.kwargs.items())

@@ -1,0 +1,119 @@
+"""What the script itself says its layout is: the cells it writes, shows or assigns at module level.
+
+The capture backends note each write of a layout file as it happens (``note_written``,
+called from the patched gdstk ``Library.write_gds``/``write_oas`` and KLayout
+``Cell.write``/``Layout.write``); a write made inside a ``show`` or ``plot`` (kfactory's
+``show`` writes a file for the viewer) counts as showing. After the run, the module's
+names are read: a cell bound to a module-level name is assigned, and a module-level
+``X.show()``/``X.plot()``/``show(X)`` call shows the cell bound to ``X``. The parent picks
+the tops from these (analyzers/layout/tops.py); this module only reports them, with
+the file's imports of layout libraries. Standard library only, Python 3.8 and later.
+"""
+
+from __future__ import annotations
+
+import ast
+import os
+import sys
+
+from .stacks import HARNESS_FILES
+
+# Layout libraries a script may import, latchwatch's captured ones and others; the
+# parent decides which it captures (analyzers/rules/no_geometry.py).
+LAYOUT_LIBRARIES = ("gdstk", "klayout", "pya", "gdsfactory", "kfactory", "phidl", "gdspy", "nazca", "gdshelpers",
+                    "picwriter")
+SHOW_NAMES = ("show", "plot")
+EVENT_DEPTH = 64  # frames kept of a write's stack: rare events, so the whole way out to the script
+
+
+def note_written(log, targets, filename):
+    """Log a write of ``targets`` to ``filename`` with the caller's stack (writes in a show are shows).
+
+    ``targets``: ("gdstk", cell) and ("klayout", layout, cell index or None for all its cells)."""
+    frames = []
+    frame = sys._getframe(1)
+    while frame is not None and len(frames) < EVENT_DEPTH:
+        code = frame.f_code
+        if code.co_filename not in HARNESS_FILES:
+            frames.append((code, frame.f_lasti))
+        frame = frame.f_back
+    how = "shown" if any(code.co_name in SHOW_NAMES for code, _lasti in frames) else "written"
+    detail = os.path.basename(os.fspath(filename)) if isinstance(filename, (str, os.PathLike)) else ""
+    log.append((how, targets, detail, frames))
+
+
+def file_argument(args, kwargs, keyword):
+    """The file name a write was given, positionally or as ``keyword``."""
+    return args[0] if args else kwargs.get(keyword)
+
+
+class ModuleScan:
+    """One parse of the script: module-level assignment lines, show/plot calls, layout imports."""
+
+    def __init__(self, source_text):
+        self.assigned = {}  # name -> line of its last module-level assignment
+        self.shown = []  # (name, line) of module-level show/plot calls
+        self.imports = set()
+        try:
+            tree = ast.parse(source_text)
+        except (SyntaxError, ValueError):
+            return
+        self._visit_block(tree.body)
+        for node in ast.walk(tree):  # imports anywhere, functions included
+            if isinstance(node, ast.Import):
+                self.imports.update(alias.name.split(".")[0] for alias in node.names)
+            elif isinstance(node, ast.ImportFrom) and node.module and not node.level:
+                self.imports.add(node.module.split(".")[0])
+
+    def _visit_block(self, body):
+        for node in body:
+            if isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef, ast.ClassDef)):
+                continue
+            if isinstance(node, (ast.Assign, ast.AnnAssign, ast.AugAssign)):
+                targets = node.targets if isinstance(node, ast.Assign) else [node.target]
+                for target in targets:
+                    for name in ast.walk(target):
+                        if isinstance(name, ast.Name):
+                            self.assigned[name.id] = node.lineno
+            for child in ast.walk(node) if isinstance(node, ast.Expr) else ():
+                self._note_show(child)
+            for field in ("body", "orelse", "finalbody", "handlers"):  # if, for, while, with, try
+                block = getattr(node, field, None)
+                if isinstance(block, list):
+                    self._visit_block(block)
+
+    def _note_show(self, node):
+        if not isinstance(node, ast.Call):
+            return
+        function = node.func
+        if isinstance(function, ast.Attribute) and function.attr in SHOW_NAMES:
+            if isinstance(function.value, ast.Name):  # c.show()
+                self.shown.append((function.value.id, node.lineno))
+                return
+        called = function.attr if isinstance(function, ast.Attribute) else getattr(function, "id", None)
+        if called in SHOW_NAMES and node.args and isinstance(node.args[0], ast.Name):  # gf.show(c), show(c)
+            self.shown.append((node.args[0].id, node.lineno))
+
+
+def module_events(scan, namespace, targets_of):
+    """(how, targets, detail, line) of the module's shown and assigned cells, shown first.
+
+    ``targets_of(value)`` gives the targets a value stands for, or None for a value that is no cell."""
+    events = []
+    for name, line in scan.shown:
+        targets = targets_of(namespace.get(name))
+        if targets:
+            events.append(("shown", targets, name, line))
+    for name, value in namespace.items():
+        if name.startswith("__"):
+            continue
+        targets = targets_of(value)
+        if targets:
+            events.append(("assigned", targets, name, scan.assigned.get(name)))
+    return events
+
+
+def imported_libraries(scan, preloaded):
+    """The layout libraries the script imported: in its own import statements, or loaded while it ran."""
+    loaded = {name.split(".")[0] for name in sys.modules} - preloaded
+    return sorted(name for name in LAYOUT_LIBRARIES if name in scan.imports or name in loaded)
