@@ -135,6 +135,9 @@ class Capture:
         ``returned`` is (gdstk cells, gdstk unit or None, klayout cells, function name);
         ``module`` the script's namespace and ``source_text`` its text, read for the cells it names.
         """
+        if self.klayout.install_error is not None:
+            error = self.klayout.install_error
+            raise RuntimeError("the capture of klayout could not be installed: %s: %s" % (type(error).__name__, error))
         tables = StackTables()
         recorder = self.gdstk
         if returned is not None:

@@ -50,6 +50,7 @@ class KlayoutRecorder(StackRecorder):
         self.instances = []
         self.bulk = []  # subject: (layout, cell index) of a cell a flatten, a copy or a whole container filled
         self.installed = False
+        self.install_error = None  # why the capture could not be installed on the script's klayout
 
     @property
     def used(self):
@@ -244,7 +245,10 @@ class ImportWatch:
         return None
 
     def _loaded(self, module):
-        install(self.recorder, module)
+        try:
+            install(self.recorder, module)
+        except Exception as error:  # the script runs on; its collection reports the failed capture
+            self.recorder.install_error = error
 
     def start(self):
         """Watch from now on; install at once when klayout is already loaded (a host imported it)."""

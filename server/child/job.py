@@ -196,8 +196,8 @@ def run(options):
     except MemoryError as error:
         return _exception_failure(error, options.memory), []
     except Exception as error:
-        return failure_header("error", type(error).__name__,
-                              "latchwatch could not read the script's layout: %s" % (error,)), []
+        return failure_header("error", type(error).__name__, "%s: %s" % (type(error).__name__, error),
+                              stage="capture"), []
 
 
 def read_layout_file(options, control):
