@@ -38,6 +38,8 @@ def note_written(log, targets, filename):
             frames.append((code, frame.f_lasti))
         frame = frame.f_back
     how = "shown" if any(code.co_name in SHOW_NAMES for code, _lasti in frames) else "written"
+    if how == "shown":  # kfactory's show writes the shown cell, and whole library layouts beside it for the viewer
+        targets = [target for target in targets if not (target[0] == "klayout" and target[2] is None)]
     detail = os.path.basename(os.fspath(filename)) if isinstance(filename, (str, os.PathLike)) else ""
     log.append((how, targets, detail, frames))
 

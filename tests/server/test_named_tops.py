@@ -119,6 +119,23 @@ def test_a_cell_shown_at_module_level_beats_the_assigned_ones(tmp_path):
     assert tops == [("VIEWED", "shown by the script", 15)]
 
 
+def test_a_show_names_the_cell_it_writes_not_the_library_layouts_written_beside_it(tmp_path):
+    # kfactory's show writes the cell for the viewer with Cell.write, and every other layout whole.
+    _run, tops, _ = checked(tmp_path, """\
+        import klayout.db as kdb
+
+        library = kdb.Layout()
+        library.create_cell("LIBCELL").shapes(library.layer(2, 0)).insert(kdb.Box(0, 0, 10, 10))
+        def show(cell):
+            cell.write("view.oas")
+            library.write("library.oas")
+        layout = kdb.Layout()
+        layout.create_cell("CHIP").shapes(layout.layer(2, 0)).insert(kdb.Box(0, 0, 10, 10))
+        show(layout.cell("CHIP"))
+        """)
+    assert tops == [("CHIP", "shown by the script", 6)]
+
+
 def test_gdstk_library_write_names_its_cells_not_a_stray_one(tmp_path):
     pytest.importorskip("gdstk")
     _run, tops, _ = checked(tmp_path, """\
