@@ -117,7 +117,7 @@ class Capture:
     """The backends of one script run, installed; collects what they logged."""
 
     def __init__(self, depth):
-        self.preloaded = {name.split(".")[0] for name in sys.modules}
+        self.preloaded = {name.split(".")[0] for name in list(sys.modules)}
         self.written = []  # the files the script wrote, logged by both backends (child/naming.py)
         self.gdstk = None
         if gdstk is not None:

@@ -106,7 +106,7 @@ def module_events(scan, namespace, targets_of):
         targets = targets_of(namespace.get(name))
         if targets:
             events.append(("shown", targets, name, line))
-    for name, value in namespace.items():
+    for name, value in list(namespace.items()):  # a daemon thread of the script may still bind names
         if name.startswith("__"):
             continue
         targets = targets_of(value)
@@ -117,5 +117,5 @@ def module_events(scan, namespace, targets_of):
 
 def imported_libraries(scan, preloaded):
     """The layout libraries the script imported: in its own import statements, or loaded while it ran."""
-    loaded = {name.split(".")[0] for name in sys.modules} - preloaded
+    loaded = {name.split(".")[0] for name in list(sys.modules)} - preloaded  # a daemon thread may import
     return sorted(name for name in LAYOUT_LIBRARIES if name in scan.imports or name in loaded)
