@@ -5,6 +5,7 @@ gdsfactory 9 cases need an interpreter with gdsfactory, LATCHWATCH_GF9_PYTHON or
 /tmp/gf9venv/bin/python, and are skipped without one.
 """
 
+import importlib.util
 import os
 import textwrap
 from pathlib import Path
@@ -224,3 +225,24 @@ def test_gdsfactory_show_of_a_cached_cell_function_names_it(tmp_path):
             chip().show()
         """, python=GF9_PYTHON)
     assert tops == [("chip", "shown by the script", 13)]
+
+
+@needs_gdsfactory
+def test_a_gds_gdsfactory_wrote_is_checked_from_its_top_not_its_context_cell(tmp_path):
+    import subprocess
+
+    script = tmp_path / "write.py"
+    script.write_text(textwrap.dedent("""\
+        import gdsfactory as gf
+        gf.gpdk.PDK.activate()
+        top = gf.Component("top")
+        top << gf.components.straight(length=3)
+        top.write_gds("top.gds")
+        """), encoding="utf-8")
+    subprocess.run([GF9_PYTHON, str(script)], cwd=tmp_path, check=True, capture_output=True, timeout=120)
+    outcome = read_layout_file(tmp_path / "top.gds", "gds")
+    names = [cell.name for cell in outcome.layout.cells]
+    result = check_outcome(outcome, DEMO, rules=select_rules(["no-geometry"]))
+    assert [(t.name, t.reason) for t in result.tops] == [("top", "not referenced by another cell")]
+    if importlib.util.find_spec("gdstk") is not None:  # gdstk reads the context cell as a cell (KLayout consumes it)
+        assert "$$$CONTEXT_INFO$$$" in names
