@@ -1,7 +1,7 @@
 """Which cells of a captured layout are checked as tops, and why.
 
-The layout a script produced is what it names: the cells a called function returned,
-else the cells it wrote to a file or showed, else the cells bound to module-level
+The layout a script produced is what it names: the cells a called function (or the
+script's main()-style entry) returned, else the cells it wrote to a file or showed, else the cells bound to module-level
 names; of those, the ones no other named cell references (a named cell inside another
 is checked as part of it). A script that names nothing is checked from every cell no
 other cell references. Metadata cells (KLayout's context information) are never tops,

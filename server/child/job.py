@@ -23,7 +23,7 @@ import json
 import os
 import sys
 
-from . import backends
+from . import backends, naming
 from .stacks import STACK_DEPTH, StackTables, traceback_frames
 from .wire_format import failure_header, write_payload
 
@@ -166,7 +166,7 @@ def run(options):
         faulthandler.dump_traceback_later(options.timeout, exit=True,
                                           file=options.control_fd if options.control_fd is not None else sys.stderr)
     try:
-        code = compile(source, script, "exec", dont_inherit=True)
+        code = _compiled(source, script, module.__dict__)
         exec(code, module.__dict__)
         if options.call is not None:
             returned, failure = _call_generator(module, options)
@@ -198,6 +198,17 @@ def run(options):
     except Exception as error:
         return failure_header("error", type(error).__name__, "%s: %s" % (type(error).__name__, error),
                               stage="capture"), []
+
+
+def _compiled(source, script, namespace):
+    """The script's code, its main()-style calls passed through the hook that keeps their returns."""
+    import ast
+
+    tree = naming.with_entry_returns(ast.parse(source, script))
+    if tree is None:
+        return compile(source, script, "exec", dont_inherit=True)
+    namespace[naming.RETURN_HOOK] = naming.EntryReturns()
+    return compile(tree, script, "exec", dont_inherit=True)
 
 
 def read_layout_file(options, control):

@@ -88,13 +88,58 @@ class ModuleScan:
         if not isinstance(node, ast.Call):
             return
         function = node.func
-        if isinstance(function, ast.Attribute) and function.attr in SHOW_NAMES:
-            if isinstance(function.value, ast.Name):  # c.show()
-                self.shown.append((function.value.id, node.lineno))
-                return
         called = function.attr if isinstance(function, ast.Attribute) else getattr(function, "id", None)
-        if called in SHOW_NAMES and node.args and isinstance(node.args[0], ast.Name):  # gf.show(c), show(c)
+        if called not in SHOW_NAMES:
+            return
+        # c.show(), gf.show(c), show(c): the names that hold no cell (gf) drop out later
+        if isinstance(function, ast.Attribute) and isinstance(function.value, ast.Name):
+            self.shown.append((function.value.id, node.lineno))
+        if node.args and isinstance(node.args[0], ast.Name):
             self.shown.append((node.args[0].id, node.lineno))
+
+
+RETURN_HOOK = "__latchwatch_entry_returned__"  # bound in the script's namespace while it runs
+
+
+def _is_main_guard(node):
+    """``if __name__ == "__main__":``"""
+    test = getattr(node, "test", None)
+    return (isinstance(node, ast.If) and isinstance(test, ast.Compare) and isinstance(test.left, ast.Name)
+            and test.left.id == "__name__" and len(test.comparators) == 1
+            and isinstance(test.comparators[0], ast.Constant) and test.comparators[0].value == "__main__")
+
+
+def with_entry_returns(tree):
+    """The module ``tree`` with its main()-style calls passed through RETURN_HOOK, so the cells they
+    return are seen; None when it has none. Lines and columns stay.
+
+    A main()-style call is a statement that calls one of the module's own functions and drops the
+    value: ``main()`` anywhere at module level, any such call under ``if __name__ == "__main__":``.
+    Helpers called at module level (``place(top, leaf)``) are no entries, whatever they return."""
+    defined = {node.name for node in tree.body if isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef))}
+    found = []
+
+    def is_entry(value, guarded):
+        return (isinstance(value, ast.Call) and isinstance(value.func, ast.Name) and value.func.id in defined
+                and (guarded or value.func.id == "main"))
+
+    def visit(body, guarded):
+        for node in body:
+            value = getattr(node, "value", None) if isinstance(node, ast.Expr) else None
+            if is_entry(value, guarded):
+                hook = ast.Call(func=ast.Name(id=RETURN_HOOK, ctx=ast.Load()),
+                                args=[value, ast.Constant(value=value.func.id), ast.Constant(value=node.lineno)],
+                                keywords=[])
+                node.value = ast.fix_missing_locations(ast.copy_location(hook, value))
+                found.append(node)
+            elif not isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef, ast.ClassDef)):
+                for field in ("body", "orelse", "finalbody", "handlers"):
+                    block = getattr(node, field, None)
+                    if isinstance(block, list):
+                        visit(block, guarded or (field == "body" and _is_main_guard(node)))
+
+    visit(tree.body, False)
+    return tree if found else None
 
 
 def module_events(scan, namespace, targets_of):
@@ -102,17 +147,33 @@ def module_events(scan, namespace, targets_of):
 
     ``targets_of(value)`` gives the targets a value stands for, or None for a value that is no cell."""
     events = []
+    for value, function, line in namespace.get(RETURN_HOOK, EntryReturns()).values:
+        for item in value if isinstance(value, (list, tuple)) else [value]:
+            targets = targets_of(item)
+            if targets:
+                events.append(("returned", targets, function, line))
     for name, line in scan.shown:
         targets = targets_of(namespace.get(name))
         if targets:
             events.append(("shown", targets, name, line))
     for name, value in list(namespace.items()):  # a daemon thread of the script may still bind names
-        if name.startswith("__"):
+        if name.startswith("__"):  # RETURN_HOOK among them
             continue
         targets = targets_of(value)
         if targets:
             events.append(("assigned", targets, name, scan.assigned.get(name)))
     return events
+
+
+class EntryReturns:
+    """RETURN_HOOK: keeps what each wrapped module-level call returned, and returns it unchanged."""
+
+    def __init__(self):
+        self.values = []  # (value, function name, line)
+
+    def __call__(self, value, function, line):
+        self.values.append((value, function, line))
+        return value
 
 
 def imported_libraries(scan, preloaded):

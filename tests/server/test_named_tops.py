@@ -137,6 +137,45 @@ def test_a_show_names_the_cell_it_writes_not_the_library_layouts_written_beside_
     assert tops == [("CHIP", "shown by the script", 6)]
 
 
+def test_the_cell_a_main_entry_returns_beats_the_cached_ones_beside_it(tmp_path):
+    _run, tops, _ = checked(tmp_path, """\
+        import klayout.db as kdb
+
+        def place(layout, name):
+            cell = layout.create_cell(name)
+            cell.shapes(layout.layer(2, 0)).insert(kdb.Box(0, 0, 10, 10))
+            return cell
+
+        def main():
+            layout = kdb.Layout()
+            place(layout, "CACHED")
+            top = layout.create_cell("TOP")
+            top.insert(kdb.CellInstArray(place(layout, "LEAF").cell_index(), kdb.Trans()))
+            return top
+
+        if __name__ == "__main__":
+            main()
+        """)
+    assert tops == [("TOP", "returned by main()", 16)]
+
+
+def test_a_helper_called_at_module_level_is_no_entry(tmp_path):
+    _run, tops, _ = checked(tmp_path, """\
+        import klayout.db as kdb
+
+        LAYOUT = kdb.Layout()
+        def place(name):
+            cell = LAYOUT.create_cell(name)
+            cell.shapes(LAYOUT.layer(2, 0)).insert(kdb.Box(0, 0, 10, 10))
+            return cell
+
+        place("A")
+        place("B")
+        """)
+    assert [(name, reason) for name, reason, _line in tops] == [("A", "not referenced by another cell"),
+                                                                ("B", "not referenced by another cell")]
+
+
 def test_gdstk_library_write_names_its_cells_not_a_stray_one(tmp_path):
     pytest.importorskip("gdstk")
     _run, tops, _ = checked(tmp_path, """\
