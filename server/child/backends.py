@@ -108,9 +108,9 @@ def _assigned_targets(value):
         if kdb is None or isinstance(value, kdb.Layout):  # a whole layout names no cell of it
             return None
         cells = klayout_cells_of(value)
-    except Exception:  # a value whose attribute lookup fails is no cell
+        return [("klayout", cell.layout(), cell.cell_index()) for cell in cells] if cells else None
+    except Exception:  # a value whose attribute lookup fails (or a cell since destroyed) is no cell
         return None
-    return [("klayout", cell.layout(), cell.cell_index()) for cell in cells] if cells else None
 
 
 class Capture:

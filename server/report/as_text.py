@@ -107,14 +107,19 @@ def top_phrase(top: CheckedTop) -> str:
     return f"{top.name} ({top.reason}{line})"
 
 
+TOPS_SHOWN = 10  # cells named on a run's ``checked`` line (a layout file may have hundreds); JSON lists all
+
+
 def checked_lines(runs) -> list[str]:
-    """One ``checked SCRIPT: CELL (why), ...`` line per run that was checked; the line
+    """One ``checked SCRIPT: CELL (why); ...`` line per run that was checked; the line
     starts with a word, not a path, so editors do not take it for a finding."""
     lines = []
     for run in runs:
         if run.tops:
             corner = f" [{run.function}: {corner_label(run.corner)}]" if run.function else ""
-            lines.append(f"checked {run.script}{corner}: " + "; ".join(top_phrase(t) for t in run.tops))
+            shown = "; ".join(top_phrase(t) for t in run.tops[:TOPS_SHOWN])
+            more = f"; and {len(run.tops) - TOPS_SHOWN} more" if len(run.tops) > TOPS_SHOWN else ""
+            lines.append(f"checked {run.script}{corner}: {shown}{more}")
     return lines
 
 
