@@ -10,6 +10,7 @@ from typing import TYPE_CHECKING
 from latchwatch.analyzers.context import CheckContext, CheckOptions
 from latchwatch.analyzers.extraction.devices import device_table
 from latchwatch.analyzers.layout.flatten import HierarchyError, flatten
+from latchwatch.analyzers.layout.tops import CheckedTop, choose_tops, option_top
 from latchwatch.analyzers.model.captured import METADATA_CELLS
 from latchwatch.analyzers.model.findings import Device, Finding, Severity
 from latchwatch.analyzers.rules import RULES, Rule, Scope
@@ -36,6 +37,7 @@ class CheckResult:
     devices: list[Device] | None
     cells: int
     shapes: int  # shapes checked, after flattening every top cell
+    tops: list[CheckedTop]  # the cells checked as tops, and why
 
 
 def select_rules(select: Iterable[str] | None = None, ignore: Iterable[str] = (),
@@ -46,11 +48,11 @@ def select_rules(select: Iterable[str] | None = None, ignore: Iterable[str] = ()
     return tuple(r for r in RULES if (chosen is None or r.id in chosen) and r.id not in dropped)
 
 
-def top_cells(outcome: RunOutcome, top: str | None) -> list[int]:
-    """Indices of the cells to check: the one named by --top, else every cell no other cell references."""
+def checked_tops(outcome: RunOutcome, top: str | None, project_root: str | None = None) -> list[CheckedTop]:
+    """The cells to check: the one named by --top, else the layout the script named (analyzers/layout/tops.py)."""
     layout = outcome.layout
     if top is None:
-        tops = layout.top_cells()
+        tops = choose_tops(layout, project_root)
         if not tops and any(cell.name not in METADATA_CELLS for cell in layout.cells):
             names = ", ".join(sorted(c.name for c in layout.cells if c.name not in METADATA_CELLS))
             raise HierarchyError(f"{outcome.script}: every cell is referenced by another, so none is a top: "
@@ -60,7 +62,7 @@ def top_cells(outcome: RunOutcome, top: str | None) -> list[int]:
     if index is None:
         names = ", ".join(sorted(c.name for c in layout.cells)) or "none"
         raise TopCellError(f"{outcome.script}: no cell named {top!r} (cells: {names})")
-    return [index]
+    return [option_top(layout, index)]
 
 
 def check_outcome(outcome: RunOutcome, tech: Technology, options: CheckOptions = DEFAULT_OPTIONS, *,
@@ -79,22 +81,22 @@ def check_outcome(outcome: RunOutcome, tech: Technology, options: CheckOptions =
         findings.extend(_checked(rule, ctx))
     layout = outcome.layout
     shapes = 0
-    if outcome.status == "ok" and layout is not None:
-        for top in top_cells(outcome, options.top):
-            flat = flatten(layout, top)
-            shapes += len(flat.polygons)
-            ctx = CheckContext(outcome, tech, options, flat)
-            found = [f for rule in layout_rules for f in _checked(rule, ctx, layout.cells[top].name)]
-            findings.extend(found)
-            if on_top is not None:
-                on_top(ctx, found)
-            if want_devices:
-                devices.extend(device_table(ctx))
+    tops = checked_tops(outcome, options.top, options.project_root) if outcome.status == "ok" and layout is not None else []
+    for top in tops:
+        flat = flatten(layout, top.cell)
+        shapes += len(flat.polygons)
+        ctx = CheckContext(outcome, tech, options, flat)
+        found = [f for rule in layout_rules for f in _checked(rule, ctx, top.name)]
+        findings.extend(found)
+        if on_top is not None:
+            on_top(ctx, found)
+        if want_devices:
+            devices.extend(device_table(ctx))
     if severity:
         findings = [f.with_severity(severity[f.rule]) if f.rule in severity else f for f in findings]
     return CheckResult(
         findings=sorted(_unique(findings), key=Finding.sort_key), devices=devices,
-        cells=len(layout.cells) if layout else 0, shapes=shapes,
+        cells=len(layout.cells) if layout else 0, shapes=shapes, tops=tops,
     )
 
 

@@ -16,6 +16,8 @@ from latchwatch.analyzers.model.findings import Frame
 
 # Cells that carry a layout tool's metadata, not geometry (KLayout's context information).
 METADATA_CELLS = frozenset({"$$$CONTEXT_INFO$$$"})
+# How a script names a cell as its layout, strongest first (analyzers/layout/tops.py).
+NAMING_KINDS = ("returned", "written", "shown", "assigned")
 
 
 def _i32(n=0):
@@ -63,6 +65,20 @@ class CapturedCell:
         return len(self.ref_cell)
 
 
+@dataclass(frozen=True)
+class NamedCell:
+    """A cell the script itself named as its layout: returned by the called function, written to a
+    file, shown, or bound to a module-level name."""
+    cell: int  # index into CapturedLayout.cells
+    how: str  # one of NAMING_KINDS
+    detail: str = ""  # the function, the file name (no folder) or the variable
+    stack: int = -1  # the stack of the call or line that named it, -1 when unknown
+
+    def __post_init__(self):
+        if self.how not in NAMING_KINDS:
+            raise ValueError(f"NamedCell.how must be one of {', '.join(NAMING_KINDS)}, got {self.how!r}")
+
+
 @dataclass
 class CapturedLayout:
     """Cells plus the interned provenance of every object in them."""
@@ -74,6 +90,8 @@ class CapturedLayout:
     source: str = ""
     unit: float = 1e-6  # metres per user unit
     precision: float = 1e-9  # metres: the database grid coordinates are snapped to after transforms
+    named: list[NamedCell] = field(default_factory=list)  # in the order the script named them
+    imports: tuple[str, ...] = ()  # the layout libraries the script imported (child/naming.py LAYOUT_LIBRARIES)
 
     def stack_frames(self, stack_id: int) -> tuple[Frame, ...]:
         if stack_id < 0 or stack_id >= len(self.stacks):

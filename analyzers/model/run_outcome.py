@@ -29,8 +29,11 @@ class ScriptFailure:
     # Innermost first: for an error, the traceback; for a timeout, the stack the
     # script was executing when it was stopped. Every frame, user or not.
     frames: tuple[Frame, ...] = ()
+    stage: str = "script"  # "capture": the script ran, latchwatch's capture of its layout failed
 
     def __post_init__(self):
+        if self.stage not in ("script", "capture"):
+            raise ValueError(f"ScriptFailure.stage must be script or capture, got {self.stage!r}")
         if self.kind not in FAILURE_KINDS:
             raise ValueError(f"ScriptFailure.kind must be one of {', '.join(FAILURE_KINDS)}, got {self.kind!r}")
 

@@ -8,6 +8,8 @@ from latchwatch.analyzers.rules.base import Rule, RuleDoc, Scope
 
 MESSAGE = "script raised {exc_type}: {message}"
 MESSAGE_LAYOUT = "the layout file could not be read: {message}"
+MESSAGE_CAPTURE = ("the script ran, but latchwatch failed to capture its layout ({message}); nothing was checked. "
+                   "This is a fault in latchwatch: please report it with the script")
 
 
 def check(ctx):
@@ -15,7 +17,9 @@ def check(ctx):
     failure = ctx.outcome.failure
     if failure is None or failure.kind != "error":
         return
-    if is_layout_file(ctx.outcome.script or ""):
+    if failure.stage == "capture":
+        text = MESSAGE_CAPTURE.format(message=failure.message or "no message")
+    elif is_layout_file(ctx.outcome.script or ""):
         text = MESSAGE_LAYOUT.format(message=failure.message or "(no message)")
     else:
         text = MESSAGE.format(exc_type=failure.exc_type or "an error", message=failure.message or "(no message)")
@@ -30,7 +34,9 @@ RULE = Rule(
         flags=(
             "A layout script that ended with an exception (including a syntax error, or SystemExit with a "
             "non-zero status). The finding is anchored at the innermost frame of the traceback that lies in "
-            "your project and carries the exception type and message; the outer frames are listed as call sites."
+            "your project and carries the exception type and message; the outer frames are listed as call sites. "
+            "Also a script that ran but whose layout latchwatch failed to capture (a fault of latchwatch, "
+            "reported on the script's first line), so that a failed capture never passes for a clean layout."
         ),
         why=(
             "A generator that fails for some parameter produces no layout, so none of its latch-up defences "

@@ -11,7 +11,9 @@ from __future__ import annotations
 
 import importlib.util
 import sys
+import types
 
+from . import naming
 from .capture_klayout import DATABASE_MODULE, ImportWatch, KlayoutRecorder
 from .stacks import StackTables
 from .wire_format import layout_header
@@ -92,42 +94,99 @@ def klayout_cells_of(item):
     return None
 
 
+def _assigned_targets(value):
+    """The cells a module-level value is (a cell or a framework's wrapper of one), or None."""
+    if isinstance(value, (type, types.ModuleType, types.FunctionType, types.BuiltinFunctionType)):
+        return None
+    try:
+        if is_gdstk_cell(value):
+            return [("gdstk", value)]
+        wrapped = getattr(value, "_cell", None)  # gdsfactory 7's Component wraps a gdstk cell
+        if is_gdstk_cell(wrapped):
+            return [("gdstk", wrapped)]
+        kdb = klayout_module()
+        if kdb is None or isinstance(value, kdb.Layout):  # a whole layout names no cell of it
+            return None
+        cells = klayout_cells_of(value)
+        return [("klayout", cell.layout(), cell.cell_index()) for cell in cells] if cells else None
+    except Exception:  # a value whose attribute lookup fails (or a cell since destroyed) is no cell
+        return None
+
+
 class Capture:
     """The backends of one script run, installed; collects what they logged."""
 
     def __init__(self, depth):
+        self.preloaded = {name.split(".")[0] for name in list(sys.modules)}
+        self.written = []  # the files the script wrote, logged by both backends (child/naming.py)
         self.gdstk = None
         if gdstk is not None:
             self.gdstk = capture_gdstk.Recorder(depth)
+            self.gdstk.written = self.written
             capture_gdstk.install(self.gdstk)
         self.klayout = KlayoutRecorder(depth)
+        self.klayout.written = self.written
         if KLAYOUT_INSTALLED:
             ImportWatch(self.klayout).start()
 
-    def collect(self, source, returned=None):
+    def collect(self, source, returned=None, module=None, source_text=""):
         """Header and arrays of the run: every cell created, or (``returned``) the cells a call returned.
 
-        ``returned`` is (gdstk cells, gdstk unit or None, klayout cells).
+        ``returned`` is (gdstk cells, gdstk unit or None, klayout cells, function name);
+        ``module`` the script's namespace and ``source_text`` its text, read for the cells it names.
         """
+        if self.klayout.install_error is not None:
+            error = self.klayout.install_error
+            raise RuntimeError("the capture of klayout could not be installed: %s: %s" % (type(error).__name__, error))
         tables = StackTables()
         recorder = self.gdstk
         if returned is not None:
-            cells, unit, klayout_tops = returned
+            cells, unit, klayout_tops, function = returned
             unit = unit or 1e-6
         else:
             cells = collect_gdstk.captured_cells(recorder) if recorder is not None else []
             unit = recorder.libraries[0].unit if recorder is not None and recorder.libraries else 1e-6
             klayout_tops = None
+        gdstk_positions, klayout_positions = {}, {}
         if cells:
-            header, arrays = collect_gdstk.collect(cells, recorder, unit=unit, source=source, tables=tables)
+            header, arrays = collect_gdstk.collect(cells, recorder, unit=unit, source=source, tables=tables,
+                                                   positions=gdstk_positions)
         else:
             header, arrays = layout_header(unit, source, [], tables), []
         kdb = klayout_module()
         if kdb is not None and (self.klayout.used or klayout_tops):
             from .collect_klayout import add_layouts
 
-            add_layouts(header, arrays, tables, self.klayout, kdb, tops=klayout_tops)
+            add_layouts(header, arrays, tables, self.klayout, kdb, tops=klayout_tops, positions=klayout_positions)
+        scan = naming.ModuleScan(source_text)
+        events = [(how, targets, detail, tables.stack_id([tables.frame_id(code, lasti) for code, lasti in frames]))
+                  for how, targets, detail, frames in self.written]
+        if module is not None:
+            events.extend((how, targets, detail, tables.stack_id([tables.line_frame(source, line)]) if line else -1)
+                          for how, targets, detail, line in naming.module_events(scan, module, _assigned_targets))
+        if returned is not None:
+            events[:0] = [("returned", [("gdstk", cell) for cell in cells]
+                           + [("klayout", cell.layout(), cell.cell_index()) for cell in klayout_tops], function, -1)]
+        header["named"] = _named_entries(events, gdstk_positions, klayout_positions)
+        header["imports"] = naming.imported_libraries(scan, self.preloaded)
+        header["stacks"] = [list(s) for s in tables.stacks]
         return header, arrays
+
+
+def _named_entries(events, gdstk_positions, klayout_positions):
+    """[header cell index, how, detail, stack id] of each collected cell an event names, in event order."""
+    entries = []
+    for how, targets, detail, stack in events:
+        for target in targets:
+            if target[0] == "gdstk":
+                indices = [gdstk_positions.get(id(target[1]))]
+            elif target[2] is None:  # a whole layout written
+                key = id(target[1])
+                indices = sorted(index for (layout, _cell), index in klayout_positions.items() if layout == key)
+            else:
+                indices = [klayout_positions.get((id(target[1]), target[2]))]
+            entries.extend([index, how, detail, stack] for index in indices if index is not None)
+    return entries
 
 
 class LayoutFile:

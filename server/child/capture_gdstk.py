@@ -10,6 +10,7 @@ import sys
 
 import gdstk
 
+from .naming import file_argument, note_written
 from .recording import StackRecorder
 from .stacks import STACK_DEPTH
 
@@ -119,6 +120,18 @@ def install(recorder):
             cell = Cell(name)
             self.add(cell)
             return cell
+
+        def write_gds(self, *args, **kwargs):
+            result = BaseLibrary.write_gds(self, *args, **kwargs)
+            note_written(recorder.written, [("gdstk", cell) for cell in self.cells],
+                         file_argument(args, kwargs, "outfile"))
+            return result
+
+        def write_oas(self, *args, **kwargs):
+            result = BaseLibrary.write_oas(self, *args, **kwargs)
+            note_written(recorder.written, [("gdstk", cell) for cell in self.cells],
+                         file_argument(args, kwargs, "outfile"))
+            return result
 
     for cls in (Cell, Library):
         cls.__module__ = "gdstk"

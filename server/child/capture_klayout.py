@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import sys
 
+from .naming import file_argument, note_written
 from .recording import StackRecorder
 from .stacks import STACK_DEPTH
 
@@ -49,6 +50,7 @@ class KlayoutRecorder(StackRecorder):
         self.instances = []
         self.bulk = []  # subject: (layout, cell index) of a cell a flatten, a copy or a whole container filled
         self.installed = False
+        self.install_error = None  # why the capture could not be installed on the script's klayout
 
     @property
     def used(self):
@@ -142,6 +144,7 @@ def install(recorder, kdb):
         if base is not None:
             setattr(kdb.Cell, name, _logging(base, recorder, lambda cell, _result: (
                 bulk_log, (cell.layout(), cell.cell_index()))))
+    _install_write_log(recorder, kdb)
     base_init = kdb.Layout.__init__
     layouts = recorder.layouts
 
@@ -151,6 +154,59 @@ def install(recorder, kdb):
 
     layout_init.__doc__ = base_init.__doc__
     kdb.Layout.__init__ = layout_init
+
+
+# SaveLayoutOptions methods that change which cells a write selects: each maps the
+# selection so far and the cell index to the new one (None: every cell).
+SELECTIONS = {
+    "select_all_cells": lambda chosen, *_args: None,
+    "clear_cells": lambda chosen, *_args: (),
+    "select_cell": lambda chosen, index, *_args: (index,),
+    "select_this_cell": lambda chosen, index, *_args: (index,),
+    "add_cell": lambda chosen, index, *_args: (chosen or ()) + (index,),
+    "add_this_cell": lambda chosen, index, *_args: (chosen or ()) + (index,),
+}
+
+
+def _install_write_log(recorder, kdb):
+    """Log ``Cell.write`` (the cell) and ``Layout.write`` (the cells its options select, else all)."""
+    options_type = kdb.SaveLayoutOptions
+    for name, change in SELECTIONS.items():
+        base = getattr(options_type, name, None)
+        if base is not None:
+            setattr(options_type, name, _selecting(base, change))
+    written = recorder.written
+    cell_write, layout_write = kdb.Cell.write, kdb.Layout.write
+
+    def write_cell(self, *args, **kwargs):
+        result = cell_write(self, *args, **kwargs)
+        note_written(written, [("klayout", self.layout(), self.cell_index())], file_argument(args, kwargs, "file_name"))
+        return result
+
+    def write_layout(self, *args, **kwargs):
+        result = layout_write(self, *args, **kwargs)
+        options = [a for a in list(args) + list(kwargs.values()) if isinstance(a, options_type)]
+        chosen = getattr(options[0], "_lw_cells", None) if options else None
+        targets = [("klayout", self, None)] if chosen is None else [("klayout", self, i) for i in chosen]
+        note_written(written, targets, file_argument(args, kwargs, "filename"))
+        return result
+
+    for function, base in ((write_cell, cell_write), (write_layout, layout_write)):
+        function.__name__, function.__doc__ = base.__name__, base.__doc__
+    kdb.Cell.write, kdb.Layout.write = write_cell, write_layout
+
+
+def _selecting(base, change):
+    def select(self, *args, **kwargs):
+        result = base(self, *args, **kwargs)
+        try:
+            self._lw_cells = change(getattr(self, "_lw_cells", None), *args)
+        except (AttributeError, TypeError):  # an options object that takes no attribute: a write counts as all cells
+            pass
+        return result
+
+    select.__name__, select.__doc__ = base.__name__, base.__doc__
+    return select
 
 
 class _InstallingLoader:
@@ -189,7 +245,10 @@ class ImportWatch:
         return None
 
     def _loaded(self, module):
-        install(self.recorder, module)
+        try:
+            install(self.recorder, module)
+        except Exception as error:  # the script runs on; its collection reports the failed capture
+            self.recorder.install_error = error
 
     def start(self):
         """Watch from now on; install at once when klayout is already loaded (a host imported it)."""

@@ -241,10 +241,11 @@ class _CellList:
         return self.add(target)
 
 
-def collect(cells, recorder=None, unit=1e-6, source="", tables=None):
+def collect(cells, recorder=None, unit=1e-6, source="", tables=None, positions=None):
     """Header and arrays for the given cells and every cell they reference.
 
     ``tables`` interns the stacks; pass the run's own to add another backend's cells after these.
+    ``positions``, a dict, receives each collected cell's index in the header (by ``id(cell)``).
     """
     tables = StackTables() if tables is None else tables
     logs = _Logs(recorder, tables) if recorder is not None else None
@@ -281,6 +282,8 @@ def collect(cells, recorder=None, unit=1e-6, source="", tables=None):
                       points=put(points), poly_stack=put(stacks))
         _collect_labels(cell.labels, stacks_for, entry, fields, put)
         _collect_references(cell.references, stacks_for, order, fields, put)
+    if positions is not None:
+        positions.update((key, index) for key, index in order._index.items() if not isinstance(key, tuple))
     return layout_header(unit, source, header_cells, tables), arrays
 
 

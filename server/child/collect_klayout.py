@@ -94,12 +94,13 @@ class _Capture:
             self.cell_fallback[(_layout_key(layout), cell_index)] = stacks.of(record)
 
 
-def add_layouts(header, arrays, tables, recorder, kdb, tops=None, layouts=None):
+def add_layouts(header, arrays, tables, recorder, kdb, tops=None, layouts=None, positions=None):
     """Append KLayout cells to a layout header and its arrays (in place); returns both.
 
     By default every cell of every layout the script made that has cells; with ``tops`` (the
     cells a generator returned) those and the cells they call; with ``layouts`` (a
-    file read) every cell of those.
+    file read) every cell of those. ``positions``, a dict, receives each cell's index in
+    the header by (``id(layout)``, cell index).
     """
     capture = _Capture(recorder, tables, kdb)
     if tops is not None:
@@ -112,6 +113,8 @@ def add_layouts(header, arrays, tables, recorder, kdb, tops=None, layouts=None):
         for cell in cells:
             index[(_layout_key(layout), cell.cell_index())] = len(entries) + len(index)
     had_cells = bool(entries)
+    if positions is not None:
+        positions.update(index)
 
     def put(array):
         arrays.append(array)

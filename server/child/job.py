@@ -23,7 +23,7 @@ import json
 import os
 import sys
 
-from . import backends
+from . import backends, naming
 from .stacks import STACK_DEPTH, StackTables, traceback_frames
 from .wire_format import failure_header, write_payload
 
@@ -166,7 +166,7 @@ def run(options):
         faulthandler.dump_traceback_later(options.timeout, exit=True,
                                           file=options.control_fd if options.control_fd is not None else sys.stderr)
     try:
-        code = compile(source, script, "exec", dont_inherit=True)
+        code = _compiled(source, script, module.__dict__)
         exec(code, module.__dict__)
         if options.call is not None:
             returned, failure = _call_generator(module, options)
@@ -191,12 +191,24 @@ def run(options):
         return failure, []
     try:
         # A call: the returned cells are the tops, other cells are left out.
-        return capture.collect(script, returned)
+        return capture.collect(script, returned, module=module.__dict__,
+                               source_text=source.decode("utf-8", "replace"))
     except MemoryError as error:
         return _exception_failure(error, options.memory), []
     except Exception as error:
-        return failure_header("error", type(error).__name__,
-                              "latchwatch could not read the script's layout: %s" % (error,)), []
+        return failure_header("error", type(error).__name__, "%s: %s" % (type(error).__name__, error),
+                              stage="capture"), []
+
+
+def _compiled(source, script, namespace):
+    """The script's code, its main()-style calls passed through the hook that keeps their returns."""
+    import ast
+
+    tree = naming.with_entry_returns(ast.parse(source, script))
+    if tree is None:
+        return compile(source, script, "exec", dont_inherit=True)
+    namespace[naming.RETURN_HOOK] = naming.EntryReturns()
+    return compile(tree, script, "exec", dont_inherit=True)
 
 
 def read_layout_file(options, control):
@@ -223,7 +235,7 @@ NOT_A_LAYOUT = "returned %s, not a gdstk.Cell or Library, a klayout.db.Cell or L
 def _call_generator(module, options):
     """Call ``options.call`` of the imported script with ``options.kwargs``.
 
-    Returns ((gdstk cells, unit, klayout cells), None), or (None, failure header). The
+    Returns ((gdstk cells, unit, klayout cells, function name), None), or (None, failure header). The
     returned cells (a Cell, a Library's or Layout's cells, a kfactory KCell, or the
     cells of a list of them) are what gets collected, with the cells they reference;
     cells created but not returned are not.
@@ -248,9 +260,9 @@ def _call_generator(module, options):
             cells = None
             break
     if cells is not None:
-        return (cells, unit, klayout_cells), None
+        return (cells, unit, klayout_cells, options.call), None
     if options.non_layout == "ignore":
-        return ([], None, []), None
+        return ([], None, [], options.call), None
     code = getattr(function, "__code__", None)
     frames = [[code.co_filename, code.co_firstlineno, code.co_name, None, None, None]] if code else []
     arguments = ", ".join("%s=%r" % item for item in options.kwargs.items())

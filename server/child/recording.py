@@ -25,6 +25,7 @@ class StackRecorder:
         self.chain_index = {}
         self.chain_of_frame = {}
         self.sweep_at = 4096
+        self.written = []  # the layout files the script wrote (child/naming.py note_written), shared by the backends
 
     def chain_id(self, frame):
         """Chain id for the frames from ``frame`` outwards (slow path, cached)."""

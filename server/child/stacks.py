@@ -47,6 +47,15 @@ class StackTables:
             self._position_frames[key] = fid
         return fid
 
+    def line_frame(self, file, line, function="<module>"):
+        """The interned frame id of a line known from the source, not from a running frame."""
+        frame = (file, line, function, None, None, None)
+        fid = self._frame_index.get(frame)
+        if fid is None:
+            fid = self._frame_index[frame] = len(self.frames)
+            self.frames.append(list(frame))
+        return fid
+
     def stack_id(self, frame_ids):
         """The interned stack id of a sequence of frame ids, innermost first."""
         frame_ids = tuple(frame_ids)

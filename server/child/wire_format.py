@@ -77,12 +77,14 @@ def layout_header(unit, source, cells, tables):
     }
 
 
-def failure_header(kind, exc_type, message, frames=()):
-    """The payload header of a run that produced no layout."""
+def failure_header(kind, exc_type, message, frames=(), stage="script"):
+    """The payload header of a run that produced no layout; ``stage`` "capture" when latchwatch's
+    capture of a script that ran failed, not the script."""
     return {
         "version": WIRE_VERSION,
         "status": kind,
         "exc_type": exc_type,
         "message": message,
         "frames": [list(f) for f in frames],
+        "stage": stage,
     }

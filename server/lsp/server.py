@@ -46,6 +46,7 @@ from latchwatch.server.lsp.settings import (
     section_of,
     trust_root,
 )
+from latchwatch.server.report.as_text import checked_lines
 from latchwatch.server.runs import batch as sweep
 from latchwatch.server.runs import plan
 from latchwatch.server.runs.pipeline import read_text_or_none
@@ -221,9 +222,11 @@ class LatchwatchServer(LanguageServer):
                 self.runs, check_document, path, text, settings, cancel, buffers, sweeps, progress.runs_done)
         if done is None or cancel.is_set() or self.versions.get(uri) != version:
             return  # superseded: a newer version runs, or the document closed
-        runs, output = done
+        runs, output, checked = done
         if output:
             self.log(f"{path}: script output:\n{output.rstrip()}")
+        for line in checked:  # which cells were checked as tops, and why
+            self.log(line)
         findings = [f for r in runs for f in r.findings]
         devices = [d for r in runs for d in r.devices]
         self.publish_run(uri, version, DocumentResult(version, "", str(path), settings, findings, devices, runs),
@@ -289,7 +292,8 @@ def check_document(path: Path, text: str, settings: DocumentSettings, cancel: th
     """The runs of one document in a worker thread (its configured corners, its
     previewed functions, or the plain run), through the shared pipeline, with unsaved
     buffers as the source of the document and of the suppression comments. Returns
-    (RunFindings per run, the script output), or None when cancelled."""
+    (RunFindings per run, the script output, the ``checked ...`` lines naming each run's
+    top cells and why), or None when cancelled."""
     if cancel.is_set():
         return None
     results = sweep.check_script(path, settings.check, sweeps, source=text, cancel=cancel,
@@ -299,7 +303,7 @@ def check_document(path: Path, text: str, settings: DocumentSettings, cancel: th
         return None
     runs = [convert.RunFindings(r.task.function, r.task.corner, tuple(r.findings), tuple(r.devices)) for r in results]
     output = "\n".join(_labelled_output(r) for r in results if r.output)
-    return runs, output
+    return runs, output, checked_lines(r.summary for r in results)
 
 
 def _labelled_output(result) -> str:

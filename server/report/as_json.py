@@ -8,6 +8,7 @@ import math
 from pathlib import Path
 
 import latchwatch
+from latchwatch.analyzers.layout.tops import CheckedTop
 from latchwatch.analyzers.model.findings import Device, Finding, Frame, Placement, Related
 from latchwatch.server.report.model import Report, RunSummary, for_display
 
@@ -88,6 +89,11 @@ def finding_to_dict(finding: Finding) -> dict:
     }
 
 
+def top_to_dict(top: CheckedTop) -> dict:
+    """A checked top cell as a JSON object: its name, why it was chosen, the line that named it."""
+    return {"cell": top.name, "how": top.how, "reason": top.reason, "file": top.file, "line": top.line}
+
+
 def run_to_dict(run: RunSummary) -> dict:
     """A run's summary as a JSON object."""
     entry = {
@@ -99,6 +105,7 @@ def run_to_dict(run: RunSummary) -> dict:
         "shapes": run.shapes,
         "sandbox": plain(run.sandbox),
     }
+    entry["tops"] = [top_to_dict(top) for top in run.tops]  # added compatibly: the cells checked, and why
     if run.function is not None:
         # An added key (docs/report-json.md extended compatibly): which function a corner called.
         entry["function"] = run.function

@@ -14,8 +14,9 @@ from __future__ import annotations
 from pathlib import Path
 
 from latchwatch.analyzers.electrical.shunt import si
+from latchwatch.analyzers.layout.tops import CheckedTop
 from latchwatch.analyzers.model.findings import Device, Finding
-from latchwatch.server.report.model import Report, for_display
+from latchwatch.server.report.model import Report, corner_label, for_display
 
 PROGRAM = "latchwatch"
 
@@ -100,11 +101,34 @@ def _device_fields(device: Device) -> list[str]:
     return fields
 
 
+def top_phrase(top: CheckedTop) -> str:
+    """``top (written by the script to top.gds, line 9)``: a checked cell and why."""
+    line = f", line {top.line}" if top.line is not None else ""
+    return f"{top.name} ({top.reason}{line})"
+
+
+TOPS_SHOWN = 10  # cells named on a run's ``checked`` line (a layout file may have hundreds); JSON lists all
+
+
+def checked_lines(runs) -> list[str]:
+    """One ``checked SCRIPT: CELL (why); ...`` line per run that was checked; the line
+    starts with a word, not a path, so editors do not take it for a finding."""
+    lines = []
+    for run in runs:
+        if run.tops:
+            corner = f" [{run.function}: {corner_label(run.corner)}]" if run.function else ""
+            shown = "; ".join(top_phrase(t) for t in run.tops[:TOPS_SHOWN])
+            more = f"; and {len(run.tops) - TOPS_SHOWN} more" if len(run.tops) > TOPS_SHOWN else ""
+            lines.append(f"checked {run.script}{corner}: {shown}{more}")
+    return lines
+
+
 def render_text(report: Report, *, base: Path | None = None) -> str:
     """``base``: paths inside it print relative to it (default: the working directory)."""
     shown = for_display(report, base)
     lines = [format_finding(finding) for finding in shown.findings]
     if shown.devices is not None:
         lines += device_lines(shown.devices)
+    lines += checked_lines(shown.runs)
     lines.append(summary_line(shown))
     return "\n".join(lines) + "\n"

@@ -7,6 +7,7 @@ import os
 from dataclasses import dataclass, replace
 from pathlib import Path
 
+from latchwatch.analyzers.layout.tops import CheckedTop
 from latchwatch.analyzers.model.findings import Device, Finding, Severity
 from latchwatch.analyzers.rules.base import Rule
 
@@ -23,6 +24,7 @@ class RunSummary:
     shapes: int
     sandbox: dict  # as the sandbox reports it, e.g. {"network": "blocked", ...}
     function: str | None = None  # the generator function a corner or preview called
+    tops: tuple[CheckedTop, ...] = ()  # the cells checked as tops, and why
 
 
 @dataclass(frozen=True)
@@ -73,7 +75,9 @@ def for_display(report: Report, base: Path | None = None) -> Report:
     it, findings in docs/report-json.md order (sorted after the paths are shortened, so the
     order is the one the reader sees)."""
     findings = sorted((_localize_finding(f, base) for f in report.findings), key=Finding.sort_key)
-    runs = tuple(replace(r, script=display_path(r.script, base)) for r in report.runs)
+    runs = tuple(replace(r, script=display_path(r.script, base),
+                         tops=tuple(replace(t, file=display_path(t.file, base)) for t in r.tops))
+                 for r in report.runs)
     devices = None
     if report.devices is not None:
         devices = tuple(replace(d, file=display_path(d.file, base)) for d in report.devices)

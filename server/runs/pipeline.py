@@ -87,7 +87,7 @@ def check_run(outcome: RunOutcome, settings: CheckSettings, read_source=None
     findings = apply_suppressions(result.findings, read_source or read_text_or_none)
     summary = RunSummary(script=outcome.script, corner=outcome.corner, status=outcome.status,
                          seconds=round(outcome.seconds, 3), cells=result.cells, shapes=result.shapes,
-                         sandbox=outcome.sandbox)
+                         sandbox=outcome.sandbox, tops=tuple(result.tops))
     return findings, result.devices or [], summary, drawings
 
 

@@ -325,7 +325,8 @@ class _ChildRun:
                 else:
                     failure = ScriptFailure(kind=_kind(header.get("status")), exc_type=header.get("exc_type"),
                                             message=str(header.get("message", "")),
-                                            frames=tuple(wire.frame_from_row(r) for r in header.get("frames", [])))
+                                            frames=tuple(wire.frame_from_row(r) for r in header.get("frames", [])),
+                                            stage="capture" if header.get("stage") == "capture" else "script")
             except wire.WireError as error:
                 failure = ScriptFailure("error", None, f"latchwatch could not read the script's result: {error}")
         status = "ok" if failure is None else failure.kind

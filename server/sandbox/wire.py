@@ -14,7 +14,7 @@ import struct
 
 import numpy as np
 
-from latchwatch.analyzers.model.captured import CapturedCell, CapturedLayout
+from latchwatch.analyzers.model.captured import NAMING_KINDS, CapturedCell, CapturedLayout, NamedCell
 from latchwatch.analyzers.model.findings import Frame
 from latchwatch.server.child.wire_format import DTYPES, FIELDS, MAGIC, WIRE_VERSION, encode_payload
 
@@ -96,7 +96,25 @@ def layout_from_parts(header: dict, arrays: list[np.ndarray]) -> CapturedLayout:
             raise WireError(f"stack {stack} names a frame outside the table of {len(frames)}")
     return CapturedLayout(cells=cells, frames=frames, stacks=stacks,
                           source=str(header.get("source", "")), unit=float(header.get("unit", 1e-6)),
-                          precision=float(header.get("precision", 1e-9)))
+                          precision=float(header.get("precision", 1e-9)),
+                          named=_named_cells(header.get("named", []), len(cells), len(stacks)),
+                          imports=tuple(str(name) for name in header.get("imports", [])))
+
+
+def _named_cells(rows, cell_count: int, stack_count: int) -> list[NamedCell]:
+    """The header's ``named`` rows ([cell index, how, detail, stack id]) as records, each checked."""
+    named = []
+    for row in rows:
+        try:
+            cell, how, detail, stack = row
+            cell, stack = int(cell), int(stack)
+        except (TypeError, ValueError):
+            raise WireError(f"named cell {row!r}: expected [cell index, how, detail, stack id]") from None
+        if not 0 <= cell < cell_count or not -1 <= stack < stack_count or how not in NAMING_KINDS:
+            raise WireError(f"named cell {row!r}: cell outside 0..{cell_count - 1}, stack outside "
+                            f"-1..{stack_count - 1} or how not one of {', '.join(NAMING_KINDS)}")
+        named.append(NamedCell(cell, how, str(detail), stack))
+    return named
 
 
 def _check_cell(cell: CapturedCell, number: int, cell_count: int) -> None:

@@ -200,3 +200,16 @@ def test_env_passes_named_variables_and_nothing_else(tmp_path, monkeypatch):
     assert "as asked: PDK_ROOT" in doctor.stdout
     refused = latchwatch("check", "--env", "LD_PRELOAD", "env.py", cwd=tmp_path)
     assert refused.returncode == 2 and "--env: LD_PRELOAD is not passed into a run" in refused.stderr
+
+
+def test_the_report_names_the_checked_tops_and_why(project):
+    (project / "two.py").write_text(
+        "import klayout.db as kdb\nlayout = kdb.Layout()\n"
+        "for name in ('A', 'B'):\n    layout.create_cell(name).shapes(layout.layer(2, 0)).insert(kdb.Box(0, 0, 9, 9))\n"
+        "layout.cell('B').write('b.gds')\n")
+    text = latchwatch("check", "--tech", "demo", "two.py", "far.py", cwd=project).stdout.splitlines()
+    assert "checked two.py: B (written by the script to b.gds, line 5)" in text
+    assert "checked far.py: TOP (assigned to cell at module level, line 3)" in text
+    runs = json.loads(latchwatch("check", "--tech", "demo", "--format", "json", "two.py", cwd=project).stdout)["runs"]
+    assert runs[0]["tops"] == [{"cell": "B", "how": "written", "reason": "written by the script to b.gds",
+                                "file": "two.py", "line": 5}]

@@ -14,7 +14,7 @@ CATALOGUE = {
     "tap-supply": Severity.WARNING, "io-guard-ring": Severity.ERROR, "io-spacing": Severity.WARNING,
     "isolation-tie": Severity.ERROR, "shunt-resistance": Severity.WARNING, "script-error": Severity.ERROR,
     "script-timeout": Severity.ERROR, "script-limit": Severity.ERROR, "invalid-geometry": Severity.WARNING,
-    "no-geometry": Severity.INFO,
+    "no-geometry": Severity.WARNING,
 }
 
 

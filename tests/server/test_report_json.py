@@ -61,6 +61,8 @@ def test_design_example_is_reproduced_key_for_key_in_order(tmp_path):
     expected = dict(CONTRACT_EXAMPLE, tool={"name": "latchwatch", "version": latchwatch.__version__})
     # The devices table gained "net" and "corner" after the design's example (backward-compatible keys, last).
     expected["devices"] = [dict(row, net=None, corner=None) for row in CONTRACT_EXAMPLE["devices"]]
+    # Runs gained "tops" (the cells checked, and why) after it, last as well.
+    expected["runs"] = [dict(row, tops=[]) for row in CONTRACT_EXAMPLE["runs"]]
     summary = document.pop("summary")
     assert document == expected
     # Key order is part of the contract (docs/report-json.md lists it); dict equality ignores it.

@@ -121,3 +121,21 @@ def test_summary_with_no_findings_and_with_corners(tmp_path):
     info = Finding("no-geometry", Severity.INFO, "empty", file="f.py", line=1)
     assert lines_of(render_text(report(info, runs=runs[:1]), base=tmp_path))[-1] == "1 info in 1 file"
     assert render_text(Report("demo", (), (), None, ()), base=tmp_path) == "no findings\n"
+
+
+def test_the_checked_line_names_each_top_and_why_capped_and_matches_no_finding_form(tmp_path):
+    from dataclasses import replace
+
+    from latchwatch.analyzers.layout.tops import CheckedTop
+
+    written = CheckedTop(0, "TOP", "written", "top.gds", str(tmp_path / "gen.py"), 9)
+    many = tuple(CheckedTop(i, f"C{i}", "unreferenced") for i in range(12))
+    runs = [replace(run(str(tmp_path / "gen.py")), tops=(written,)), replace(run(str(tmp_path / "lib.gds")), tops=many),
+            replace(run(str(tmp_path / "sweep.py"), corner={"n": 2}), function="cell", tops=(
+                CheckedTop(0, "CELL", "returned", "cell"),))]
+    lines = lines_of(render_text(report(runs=runs), base=tmp_path))
+    assert lines[0] == "checked gen.py: TOP (written by the script to top.gds, line 9)"
+    assert lines[1] == ("checked lib.gds: " + "; ".join(f"C{i} (not referenced by another cell)" for i in range(10))
+                        + "; and 2 more")
+    assert lines[2] == "checked sweep.py [cell: n=2]: CELL (returned by cell())"
+    assert not any(GNU_LINE.match(line) or re.match(r"^[^:\s]+: (error|warning|info): ", line) for line in lines[:3])
