@@ -87,6 +87,8 @@ def drop_privileges(config, record, plan):
         os.setgid(gid)
         os.setuid(uid)
     _drop_capabilities()
+    if not os.access(os.environ.get("HOME", "/"), os.W_OK):
+        os.environ["HOME"] = config["work"]  # root's home is not nobody's: caches go to the run's folder
     opened = ("; opened for it in the run's mount namespace: %s (nothing else beneath them is visible)"
               % ", ".join(plan["opened"])) if plan["opened"] else ""
     record.ok("privileges", "runs as %s (uid %d, gid %d: real, effective, saved and file ids), without "
