@@ -24,7 +24,6 @@ from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.rules import RULES_BY_ID
 from latchwatch.analyzers.technology.model import Technology
 from latchwatch.server.config import techfiles
-from latchwatch.server.config.trust import is_trusted
 from latchwatch.server.config.project import (
     ConfigError,
     ProjectConfig,
@@ -32,6 +31,7 @@ from latchwatch.server.config.project import (
     severity_overrides,
     severity_problem,
 )
+from latchwatch.server.config.trust import is_trusted
 from latchwatch.server.runs.pipeline import CheckSettings
 from latchwatch.server.sandbox.policy import pass_env_problem
 
