@@ -167,33 +167,35 @@ def test_a_unix_socket_outside_cannot_be_reached_but_locks_pools_and_pairs_work(
     address, server = root_socket
     path = _script(tmp_path, f"""\
         import asyncio, ctypes, multiprocessing, socket
-        for kind in (socket.SOCK_STREAM, socket.SOCK_DGRAM):
+        def main():
+            for kind in (socket.SOCK_STREAM, socket.SOCK_DGRAM):
+                try:
+                    client = socket.socket(socket.AF_UNIX, kind)
+                    client.connect({str(address)!r})
+                    print("connected")
+                except OSError as error:
+                    print("refused", error.errno)
             try:
-                client = socket.socket(socket.AF_UNIX, kind)
-                client.connect({str(address)!r})
-                print("connected")
+                socket.socketpair(socket.AF_UNIX, socket.SOCK_DGRAM)  # could be pointed at any named socket
+                print("datagram pair")
             except OSError as error:
                 print("refused", error.errno)
-        try:
-            socket.socketpair(socket.AF_UNIX, socket.SOCK_DGRAM)  # could be pointed at any named socket
-            print("datagram pair")
-        except OSError as error:
-            print("refused", error.errno)
-        left, right = socket.socketpair()
-        left.sendall(b"ok")
-        asyncio.run(asyncio.sleep(0))  # the event loop's self-pipe is a stream pair
-        print("pair", right.recv(2).decode())
-        libc = ctypes.CDLL(None, use_errno=True)
-        if {syscalls.machine()!r} == "x86_64":  # an x32 getpid(): another ABI, refused outright
-            print("x32", libc.syscall(0x40000000 | 39), ctypes.get_errno())
-        else:
-            print("x32 -1 1")
-        with multiprocessing.Lock():
-            pass
-        if __name__ == "__main__":  # spawn runs this file again in each worker
+            left, right = socket.socketpair()
+            left.sendall(b"ok")
+            asyncio.run(asyncio.sleep(0))  # the event loop's self-pipe is a stream pair
+            print("pair", right.recv(2).decode())
+            libc = ctypes.CDLL(None, use_errno=True)
+            if {syscalls.machine()!r} == "x86_64":  # an x32 getpid(): another ABI, refused outright
+                print("x32", libc.syscall(0x40000000 | 39), ctypes.get_errno())
+            else:
+                print("x32 -1 1")
+            with multiprocessing.Lock():
+                pass
             for method in ("fork", "spawn"):
                 with multiprocessing.get_context(method).Pool(2) as pool:
                     print(method, pool.map(abs, [-1, -2]), flush=True)
+        if __name__ == "__main__":  # spawn runs this file again in each worker
+            main()
         """)
     skip = ("identity",) if identity == "identity off" else ()
     outcome = run_script(path, skip_protections=skip, timeout=60)
