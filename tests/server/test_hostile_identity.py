@@ -14,6 +14,7 @@ import socket
 import stat
 import subprocess
 import sys
+import tempfile
 import textwrap
 import time
 from pathlib import Path
@@ -30,7 +31,7 @@ linux_root = pytest.mark.skipif(not sys.platform.startswith("linux") or os.geteu
                                 reason="the identity cases need root on Linux")
 
 
-@pytest.fixture(autouse=True, params=[False, True], ids=["fresh-child", "corner-host"])
+@pytest.fixture(params=[False, True], ids=["fresh-child", "corner-host"])
 def run_script(request):
     return functools.partial(runner.run_script, hosted=request.param)
 
@@ -266,7 +267,8 @@ def test_killing_latchwatch_check_leaves_no_run_and_its_folder_is_swept(tmp_path
     while not processes_with(token) and time.monotonic() < deadline:
         time.sleep(0.1)
     assert processes_with(token), "the script never started"
-    left = [f for f in os.listdir("/tmp") if f.startswith(f"{folders.PREFIX}{check.pid}.")]
+    temporary = tempfile.gettempdir()
+    left = [f for f in os.listdir(temporary) if f.startswith(f"{folders.PREFIX}{check.pid}.")]
     check.send_signal(how)
     check.wait(timeout=10)
     deadline = time.monotonic() + 10
@@ -275,7 +277,7 @@ def test_killing_latchwatch_check_leaves_no_run_and_its_folder_is_swept(tmp_path
     assert processes_with(token) == []
     assert left, "the run's folder is named after its latchwatch process"
     folders.sweep_dead_folders()
-    assert not [f for f in left if os.path.exists(os.path.join("/tmp", f))]
+    assert not [f for f in left if os.path.exists(os.path.join(temporary, f))]
 
 
 def test_the_sweep_removes_only_real_folders_of_dead_owners(tmp_path):
