@@ -90,6 +90,7 @@ def without_token(message: dict) -> dict:
 
 
 def framed(message: dict) -> bytes:
+    """``message`` with its Content-Length header, as on the wire."""
     body = json.dumps(message).encode("utf-8")
     return b"Content-Length: %d\r\n\r\n" % len(body) + body
 
