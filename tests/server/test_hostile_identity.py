@@ -111,6 +111,20 @@ def test_a_script_folder_nobody_cannot_read_is_refused_not_run_as_root(tmp_path,
     assert "never runs with root's file access" in outcome.failure.message
 
 
+@linux_root
+def test_doctor_and_a_required_sandbox_fail_where_the_run_would_keep_root(tmp_path):
+    private = tmp_path / "private"
+    private.mkdir(mode=0o700)
+    doctor = subprocess.run([sys.executable, "-m", "latchwatch", "doctor", "--require-sandbox"], cwd=private,
+                            capture_output=True, text=True, timeout=120)
+    assert doctor.returncode == 2
+    assert "scripts do NOT run as an unprivileged user: nobody (uid" in doctor.stdout
+    assert f"cannot read {private}" in doctor.stderr
+    fine = subprocess.run([sys.executable, "-m", "latchwatch", "doctor"], cwd=tmp_path, capture_output=True,
+                          text=True, timeout=120)
+    assert fine.returncode == 0 and "identity     scripts run as nobody (uid" in fine.stdout
+
+
 # -- the system-call filter ----------------------------------------------------------------------
 
 
