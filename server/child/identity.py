@@ -33,7 +33,7 @@ def open_identity(config, record):
     try:
         opened, unreadable = open_for(config, uid, gid)
     except OSError as error:
-        opened, unreadable = [], "%s (opening its folders failed: %s)" % (config["work"], why(error))
+        opened, unreadable = [], "the folders it needs (opening them for nobody failed: %s)" % why(error)
     config["_identity"] = {"uid": uid, "gid": gid, "opened": opened, "unreadable": unreadable}
 
 
