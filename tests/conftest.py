@@ -6,9 +6,13 @@ contributor runs between edits (well under a minute on two cores); the whole sui
 runs before a commit and in CI.
 """
 
+import os
+import shutil
+import tempfile
 from pathlib import Path
 
 import pytest
+from _pytest.tmpdir import TempPathFactory
 
 TESTS = Path(__file__).resolve().parent
 FAST_FOLDERS = ("analyzers", "rules")
@@ -33,3 +37,28 @@ def pytest_collection_modifyitems(config, items):
             continue
         if parts[0] in FAST_FOLDERS or (parts[0] == "server" and parts[-1] in FAST_SERVER_FILES):
             item.add_marker(pytest.mark.fast)
+
+
+def pytest_configure(config):
+    """As root, the tests' temporary folders are made readable to other users: a run takes
+    the identity of nobody and is refused where nobody cannot read the script's folder
+    (docs/sandbox.md), and pytest makes its folders for the owner alone. They live in a
+    folder of this session's own, since other sessions tighten a shared /tmp/pytest-of-root."""
+    if not hasattr(os, "geteuid") or os.geteuid() != 0:
+        return
+    if config.option.basetemp is None:
+        session_folder = Path(tempfile.mkdtemp(prefix="latchwatch-tests-"))
+        session_folder.chmod(0o755)
+        config.option.basetemp = str(session_folder / "tmp")
+        config.add_cleanup(lambda: shutil.rmtree(session_folder, ignore_errors=True))
+    original = TempPathFactory.mktemp
+
+    def readable_mktemp(self, basename, numbered=True):
+        path = original(self, basename, numbered)
+        for folder in (path, *path.parents):
+            if folder == self.getbasetemp().parent:
+                break
+            folder.chmod(0o755)
+        return path
+
+    TempPathFactory.mktemp = readable_mktemp

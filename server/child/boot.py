@@ -16,10 +16,16 @@ Three processes result on Linux:
   run's own (the keeper maps nobody into it), then forks the worker and reaps orphans.
   When the worker ends the init ends, and the kernel ends every process left in the
   namespace.
-- the worker gives up root's privileges (child/identity.py), sets the resource limits
-  (child/limits.py), confines writes (and TCP) with Landlock (child/landlock.py) and
-  loads child/job.py, which imports the layout library and waits for its job; in a
-  corner host it forks one child per job instead (child/host.py).
+- the worker becomes nobody when the keeper was root (child/identity.py; the keeper
+  opened the folders the run reads for nobody, child/opening.py, or the run is
+  refused), sets the resource limits (child/limits.py), confines writes (and TCP)
+  with Landlock (child/landlock.py), filters system calls (child/syscalls.py), and
+  only then execs the user's interpreter when one is named; in it (or in this one)
+  child/job.py imports the layout library and waits for its job; in a corner host it
+  forks one child per job instead (child/host.py).
+
+The keeper, the init and the worker up to the exec run in latchwatch's own
+interpreter: no program a user or a project named runs before it is confined.
 
 Elsewhere (macOS, Windows) the one process applies what exists and runs the job.
 
@@ -43,15 +49,17 @@ except ImportError:  # Windows
     pwd = resource = None
 
 from .host import serve_jobs
-from .identity import NOBODY, drop_privileges
+from .identity import Refused, drop_privileges, open_identity
 from .keeper import be_init, become_subreaper, enter_namespaces, keep
 from .kernel import PR_SET_PDEATHSIG, Record, prctl, report_sandbox, why
 from .landlock import confine_with_landlock
 from .limits import apply_limits
+from .syscalls import filter_syscalls
 
 
 def run_worker(config, record, plan, started, forked):
-    """Confine this process, report the sandbox, then serve the job (or a host's jobs). Never returns."""
+    """Confine this process, report the sandbox, then serve the job (or a host's jobs),
+    in the named interpreter when there is one (exec'd once everything is in force). Never returns."""
     try:
         own_user_namespace = drop_privileges(config, record, plan)
         if forked and sys.platform.startswith("linux"):
@@ -59,11 +67,35 @@ def run_worker(config, record, plan, started, forked):
             prctl(PR_SET_PDEATHSIG, signal.SIGKILL)
         apply_limits(config, record, own_user_namespace)
         confine_with_landlock(config, record)
-    except (OSError, AttributeError, ValueError) as error:  # an unexpected refusal: run nothing, say why
-        record.no("set-up", "the sandbox could not be set up: %s" % why(error))
+        filter_syscalls(config, record)
+    except (Refused, OSError, AttributeError, ValueError) as error:  # an unexpected refusal: run nothing, say why
+        record.no("set-up", str(error) if isinstance(error, Refused) else
+                  "the sandbox could not be set up: %s" % why(error))
         report_sandbox(config, record, started)
         os._exit(70)
     report_sandbox(config, record, started)
+    _hand_over(config, record)
+    _serve(config, record)
+
+
+def _hand_over(config, record):
+    """Exec the named interpreter (``--python``, the project's ``python``) on this
+    package, confined as it is: namespaces, ids, limits, Landlock and the seccomp filter
+    are inherited across exec, so that program never runs outside the sandbox."""
+    python = config.get("python")
+    if not python or python == sys.executable:
+        return
+    resumed = dict(config, _resume=record.as_dict())
+    start = os.path.join(os.path.dirname(os.path.abspath(__file__)), "start.py")
+    try:
+        os.execv(python, [python, "-I", start, json.dumps(resumed)])
+    except OSError as error:
+        os.write(2, ("latchwatch: cannot start the interpreter %s in the sandbox: %s\n"
+                     % (python, why(error))).encode("utf-8", "replace"))
+        os._exit(127)
+
+
+def _serve(config, record):
     sys.dont_write_bytecode = True  # nothing is written outside the run's folder, with or without Landlock
     from . import job  # imports numpy and the layout library, now that the worker is confined
 
@@ -78,9 +110,14 @@ def main(argv=None):
     argv = sys.argv if argv is None else argv
     config = json.loads(argv[1])
     record = Record()
+    if "_resume" in config:  # the named interpreter, exec'd by a confined worker (_hand_over)
+        record.in_force, record.missing = config["_resume"]["in_force"], config["_resume"]["missing"]
+        _serve(config, record)
+        return
     record.ok("stdin", "empty (/dev/null)")
     pid_namespace, config["_keeper_user_namespace"] = enter_namespaces(config, record)
     config["_pid_namespace"] = pid_namespace
+    open_identity(config, record)  # as root, before anything a user named has run
     if pid_namespace:
         record.ok("leftovers", "PID namespace: every process of the run ends with it")
     elif not (hasattr(os, "fork") and become_subreaper(record)):
@@ -96,7 +133,8 @@ def main(argv=None):
             keeper_pipes, init_pipes = (request_r, reply_w), (request_w, reply_r)
     child = os.fork()
     if child == 0:
-        for fd in (keeper_pipes or ()) + ((status_r,) if status_r is not None else ()):
+        for fd in (keeper_pipes or ()) + tuple(fd for fd in (status_r, config.pop("lifeline_fd", None))
+                                               if fd is not None):
             os.close(fd)
         if pid_namespace:
             be_init(config, record, init_pipes, status_w, started, run_worker)
@@ -107,10 +145,6 @@ def main(argv=None):
         os.close(fd)
     map_request = None
     if keeper_pipes:
-        try:
-            entry = pwd.getpwnam(NOBODY)
-            map_request = keeper_pipes + (entry.pw_uid, entry.pw_gid)
-        except KeyError:
-            for fd in keeper_pipes:
-                os.close(fd)
-    keep(child, pid_namespace, map_request, status_r)
+        identity = config["_identity"]
+        map_request = keeper_pipes + (identity["uid"], identity["gid"])
+    keep(child, pid_namespace, map_request, status_r, config.get("lifeline_fd"))

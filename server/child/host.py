@@ -112,6 +112,8 @@ def _become_job(config, record, output_w, started):
     os.chdir(config["work"])
     for name in ("TMPDIR", "TMP", "TEMP"):
         os.environ[name] = config["work"]
+    if os.environ.get("HOME") == os.path.dirname(config["work"]):  # root's runs: HOME was the host's folder
+        os.environ["HOME"] = config["work"]
     if "tempfile" in sys.modules:
         sys.modules["tempfile"].tempdir = None
     job_record = Record()

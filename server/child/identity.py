@@ -13,15 +13,28 @@ try:
 except ImportError:  # Windows
     pwd = resource = None
 
-from .kernel import CLONE_NEWUSER, PR_SET_SECUREBITS, call_libc, libc, prctl, unshare
-
-SECBIT_NOROOT_AND_LOCK = 0x3  # exec never grants root's capabilities, and that cannot change
-
+from .kernel import CLONE_NEWUSER, call_libc, libc, unshare, why
+from .opening import NOBODY, nobody_ids, open_for
 
 CAPABILITY_VERSION_3 = 0x20080522
 
 
-NOBODY = "nobody"
+class Refused(Exception):
+    """The run cannot take an unprivileged identity: nothing runs (never root's file access)."""
+
+
+def open_identity(config, record):
+    """Root only, in the keeper, before any user-named program runs: nobody's ids, and the
+    folders the run needs opened for nobody (child/opening.py). Stored in the config."""
+    if not hasattr(os, "geteuid") or os.geteuid() != 0 or "identity" in set(config.get("skip", ())):
+        return
+    uid, gid = nobody_ids()
+    os.chown(config["work"], uid, gid)  # the run's folder is the one place it may write
+    try:
+        opened, unreadable = open_for(config, uid, gid)
+    except OSError as error:
+        opened, unreadable = [], "the folders it needs (opening them for nobody failed: %s)" % why(error)
+    config["_identity"] = {"uid": uid, "gid": gid, "opened": opened, "unreadable": unreadable}
 
 
 def plan_identity(config, record, ask_for_maps):
@@ -29,24 +42,21 @@ def plan_identity(config, record, ask_for_maps):
     run's own when the keeper can map nobody into it. None when not root."""
     if not hasattr(os, "geteuid") or os.geteuid() != 0 or "identity" in set(config.get("skip", ())):
         return None
-    try:
-        entry = pwd.getpwnam(NOBODY)
-    except (AttributeError, KeyError):
-        return {"no_user": True}
-    uid, gid = entry.pw_uid, entry.pw_gid
-    unreadable = _unreadable_as(uid, gid, list(config.get("needs_reading", ())))
-    if unreadable is None:
-        os.chown(config["work"], uid, gid)  # the run's folder is the one place it may write
+    if "_identity" not in config:
+        open_identity(config, record)
+    plan = dict(config["_identity"])
     os.setgroups([])
-    in_user_namespace = ask_for_maps is not None and ask_for_maps(uid, gid)
-    return {"uid": uid, "gid": gid, "unreadable": unreadable, "user_namespace": in_user_namespace}
+    plan["user_namespace"] = (plan["unreadable"] is None and ask_for_maps is not None
+                              and ask_for_maps(plan["uid"], plan["gid"]))
+    return plan
 
 
 def drop_privileges(config, record, plan):
-    """Root gives up its privileges; anyone gives up the capabilities a user namespace granted.
+    """Root becomes nobody (real, effective, saved and file ids) or the run is refused;
+    anyone gives up the capabilities a user namespace granted.
 
     Returns True when the run's processes are counted in a user namespace of their own
-    (so the process limit counts this run alone)."""
+    (so the process limit counts this run alone). Raises Refused."""
     own_namespace = config.get("_keeper_user_namespace", False)
     if not hasattr(os, "geteuid"):
         record.no("privileges", "no user ids on %s" % sys.platform)
@@ -63,72 +73,28 @@ def drop_privileges(config, record, plan):
                                          "user unless Landlock stops it")
             return own_namespace
         plan = plan_identity(config, record, None)
-    if plan.get("no_user"):
-        _drop_capabilities()
-        record.ok("other-processes", "no capabilities: root's processes (the tool's own) cannot be read")
-        record.no("privileges", "running as root and there is no user %r to drop to; capabilities dropped" % NOBODY)
-        return False
     uid, gid, unreadable = plan["uid"], plan["gid"], plan["unreadable"]
-    if unreadable is None:
-        if hasattr(os, "setresuid"):
-            os.setresgid(gid, gid, gid)
-            os.setresuid(uid, uid, uid)
-        else:  # macOS: as root, setuid sets the real, effective and saved ids alike
-            os.setgid(gid)
-            os.setuid(uid)
-        _drop_capabilities()
-        record.ok("privileges", "runs as %s (uid %d, gid %d), without capabilities" % (NOBODY, uid, gid))
-        record.ok("other-processes", "as %s without capabilities: the tool's own processes cannot be read" % NOBODY)
-        return plan["user_namespace"]
-    if plan["user_namespace"]:
-        # The tool's files are not readable by nobody (an interpreter under /root, say):
-        # keep root's file ownership but no capability, with the real uid of nobody so
-        # the process limit applies; execs never regain root's capabilities.
-        prctl(PR_SET_SECUREBITS, SECBIT_NOROOT_AND_LOCK)
-        os.setresuid(uid, -1, -1)
-        _drop_capabilities()
-        record.ok("privileges", "root's file access without capabilities, real user %s, in a user namespace "
-                                "(%s cannot read %s)" % (NOBODY, NOBODY, unreadable))
-        record.ok("other-processes", "no capabilities: root's processes (the tool's own) cannot be read")
-        return True
+    if unreadable is not None:
+        reason = ("%s (uid %d) cannot read %s, and a script never runs with root's file access: make it "
+                  "readable to other users (chmod o+rx on its folders), use an interpreter they can read, or run "
+                  "latchwatch as an unprivileged user" % (NOBODY, uid, unreadable))
+        record.no("privileges", reason)
+        raise Refused(reason)
+    if hasattr(os, "setresuid"):
+        os.setresgid(gid, gid, gid)
+        os.setresuid(uid, uid, uid)
+    else:  # macOS: as root, setuid sets the real, effective and saved ids alike
+        os.setgid(gid)
+        os.setuid(uid)
     _drop_capabilities()
-    record.ok("other-processes", "no capabilities: root's processes (the tool's own) cannot be read")
-    record.no("privileges", "running as root: %s cannot read %s and there is no user namespace; capabilities "
-                            "dropped, but root's process limit cannot be enforced" % (NOBODY, unreadable))
-    return False
-
-
-def _unreadable_as(uid, gid, paths):
-    """The first path the given user cannot read (and enter, for folders), or None."""
-    wanted = [os.path.dirname(os.__file__), sys.prefix, sys.base_prefix, os.path.dirname(os.path.abspath(__file__))]
-    wanted += _library_folders() + list(paths)
-    # Existence is judged as root: as the other user a path under /root does not exist.
-    checks = [(path, os.R_OK | (os.X_OK if os.path.isdir(path) else 0)) for path in wanted
-              if path and os.path.exists(path)]
-    os.setegid(gid)
-    os.seteuid(uid)
-    try:
-        for path, mode in checks:
-            if not os.access(path, mode, effective_ids=True):
-                return path
-        return None
-    finally:
-        os.seteuid(0)
-        os.setegid(0)
-
-
-def _library_folders():
-    import importlib.util
-
-    folders = []
-    for name in ("numpy", "gdstk"):
-        try:
-            spec = importlib.util.find_spec(name)
-        except (ImportError, ValueError):
-            spec = None
-        if spec is not None and spec.origin:
-            folders.append(os.path.dirname(spec.origin))
-    return folders
+    if not os.access(os.environ.get("HOME", "/"), os.W_OK):
+        os.environ["HOME"] = config["work"]  # root's home is not nobody's: caches go to the run's folder
+    opened = ("; opened for it in the run's mount namespace: %s (nothing else beneath them is visible)"
+              % ", ".join(plan["opened"])) if plan["opened"] else ""
+    record.ok("privileges", "runs as %s (uid %d, gid %d: real, effective, saved and file ids), without "
+                            "capabilities%s" % (NOBODY, uid, gid, opened))
+    record.ok("other-processes", "as %s without capabilities: the tool's own processes cannot be read" % NOBODY)
+    return plan["user_namespace"]
 
 
 def _drop_capabilities():

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import os
+import select
 import signal
 import sys
 import time
@@ -17,14 +18,11 @@ except ImportError:  # Windows
 from .identity import MapRequest, plan_identity
 from .kernel import (
     CLONE_NEWNET,
-    CLONE_NEWNS,
     CLONE_NEWPID,
     CLONE_NEWUSER,
     MS_NODEV,
     MS_NOEXEC,
     MS_NOSUID,
-    MS_PRIVATE,
-    MS_REC,
     PR_SET_CHILD_SUBREAPER,
     PR_SET_PDEATHSIG,
     SHARED_MEMORY,
@@ -35,6 +33,7 @@ from .kernel import (
     why,
     write_text,
 )
+from .opening import enter_mount_namespace
 
 
 def enter_namespaces(config, record):
@@ -65,20 +64,18 @@ def enter_namespaces(config, record):
         record.no("network", reason)
         return False, False
     record.ok("network", "fresh network namespace: no interface but a loopback that is down")
-    config["_private_shared_memory"] = _private_shared_memory()
+    config["_private_shared_memory"] = _private_shared_memory(config)
     return True, user_namespace
 
 
-def _private_shared_memory():
+def _private_shared_memory(config):
     """A mount namespace with a fresh tmpfs on /dev/shm, so that the run's POSIX
     semaphores and shared memory (multiprocessing's locks) work and vanish with it,
     and the write confinement can allow them without opening the host's /dev/shm.
     False where the kernel refuses; the run then has no shared memory to write."""
-    if not os.path.isdir(SHARED_MEMORY):
+    if not os.path.isdir(SHARED_MEMORY) or not enter_mount_namespace(config):
         return False
     try:
-        unshare(CLONE_NEWNS)
-        mount(None, "/", None, MS_REC | MS_PRIVATE, None)  # nothing mounted here reaches the host
         mount("latchwatch-shm", SHARED_MEMORY, "tmpfs", MS_NOSUID | MS_NODEV | MS_NOEXEC, "size=64m,mode=1777")
     except OSError:
         return False
@@ -98,9 +95,12 @@ def become_subreaper(record):
     return True
 
 
-def keep(child, pid_namespace, map_request, status_r):
+def keep(child, pid_namespace, map_request, status_r, lifeline_fd=None):
     """Wait for the child (the namespace's init, or the worker itself), end what the run
-    left, exit with the worker's status. Never returns."""
+    left, exit with the worker's status. Never returns.
+
+    ``lifeline_fd`` is the read end of a pipe whose write end only latchwatch holds:
+    at its end of file latchwatch is gone (killed, even by SIGKILL), and so is the run."""
 
     def stop(signum, frame):
         kill_quietly(child, signal.SIGKILL)  # in a PID namespace, the kernel then ends every process in it
@@ -112,7 +112,7 @@ def keep(child, pid_namespace, map_request, status_r):
     if map_request is not None:
         _serve_map_request(child, *map_request)
     try:
-        _pid, status = os.waitpid(child, 0)
+        _pid, status = _wait_watching(child, lifeline_fd, lambda: stop(None, None))
     except ChildProcessError:
         status = 0
     if status_r is not None:  # the init passes on how the worker ended
@@ -122,6 +122,33 @@ def keep(child, pid_namespace, map_request, status_r):
     if not pid_namespace:
         sweep_leftovers()
     exit_like(status)
+
+
+def _wait_watching(child, lifeline_fd, orphaned):
+    """waitpid(child), calling ``orphaned`` once if the lifeline ends first."""
+    pidfd = None
+    if lifeline_fd is not None and hasattr(os, "pidfd_open"):
+        try:
+            pidfd = os.pidfd_open(child)
+        except OSError:
+            pidfd = None
+    if pidfd is None:
+        if lifeline_fd is not None:
+            prctl(PR_SET_PDEATHSIG, signal.SIGTERM)  # second best: latchwatch's thread that started us
+        return os.waitpid(child, 0)
+    watched = [pidfd, lifeline_fd]
+    while lifeline_fd in watched:
+        try:
+            ready, _, _ = select.select(watched, [], [])
+        except InterruptedError:
+            continue
+        if pidfd in ready:
+            break
+        if lifeline_fd in ready and not os.read(lifeline_fd, 1):
+            watched.remove(lifeline_fd)
+            orphaned()
+    os.close(pidfd)
+    return os.waitpid(child, 0)
 
 
 def _serve_map_request(child, request_r, reply_w, uid, gid):

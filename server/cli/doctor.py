@@ -24,6 +24,7 @@ def doctor_command(python: str | None, require: bool, out=sys.stdout, err=sys.st
     print(f"  machine      {platform.system()} {platform.release()} ({platform.machine()}), "
           f"latchwatch running as {who}", file=out)
     print(f"  interpreter  {interpreter}: {_interpreter_state(ready, output)}", file=out)
+    print(f"  identity     {_identity_text(report)}", file=out)
     print(f"  environment  {_environment_text(pass_env)}", file=out)
     if report.setup_ms is not None:
         print(f"  set-up       {report.setup_ms:.1f} ms in the child", file=out)
@@ -39,6 +40,13 @@ def doctor_command(python: str | None, require: bool, out=sys.stdout, err=sys.st
         print(f"latchwatch: {unavailable_message(missing)}", file=err)
         return 2
     return 0
+
+
+def _identity_text(report) -> str:
+    """Who a script runs as, from the child's own report: never claimed, only reported."""
+    if "privileges" in report.in_force:
+        return "scripts run as " + report.in_force["privileges"].removeprefix("runs as ")
+    return "scripts do NOT run as an unprivileged user: " + report.missing.get("privileges", "not reported")
 
 
 def _environment_text(pass_env: tuple[str, ...]) -> str:

@@ -461,5 +461,6 @@ def serve(tcp: str | None = None) -> int:
     if not host or not port.isdigit():
         print(f"latchwatch: --tcp: expected HOST:PORT, got {tcp!r}", file=sys.stderr)
         return 2
-    server.start_tcp(host, int(port))
-    return 0
+    from latchwatch.server.lsp.tcp import serve_with_token
+
+    return serve_with_token(server, host, int(port))

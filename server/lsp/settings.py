@@ -31,6 +31,7 @@ from latchwatch.server.config.project import (
     severity_overrides,
     severity_problem,
 )
+from latchwatch.server.config.trust import is_trusted
 from latchwatch.server.runs.pipeline import CheckSettings
 from latchwatch.server.sandbox.policy import pass_env_problem
 
@@ -180,6 +181,12 @@ def document_settings(path: Path, editor: EditorSettings, workspace_folder: Path
             f"no technology for {path.name}: set `tech` in latchwatch.toml or [tool.latchwatch] of "
             f"pyproject.toml, or the editor setting {SECTION}.tech "
             f"(built-in: {', '.join(techfiles.builtin_names())})")
+    if project.python and not editor.python and not is_trusted(project.source, editor.trusted_folders):
+        # Trust is per folder: a trusted subfolder never runs the program an untrusted parent names.
+        raise SettingsError(
+            f"{project.source}: its `python` ({project.python}) is not used, because {project.root} is not "
+            f"trusted (only a folder below it is); trust it with `latchwatch trust {project.root}`, or set the "
+            f"editor setting {SECTION}.python")
     check = CheckSettings(
         tech=techs.load(tech_ref, base),
         python=editor.python or project.python,

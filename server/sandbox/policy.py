@@ -33,6 +33,7 @@ PROTECTIONS = (
     ("open-files", "open-files limit"),
     ("processes", "process limit"),
     ("core", "core dumps"),
+    ("syscalls", "changing modes, owners, times and attributes of files outside; Unix sockets"),
     ("tcp", "TCP connections (second line of defence)"),
     ("signals", "signals to processes outside the run"),
     ("other-processes", "reading other processes' environment and memory"),
@@ -45,9 +46,9 @@ PROTECTIONS = (
 )
 TITLES = dict(PROTECTIONS)
 REQUIRED = ("network", "writes", "privileges", "leftovers", "cpu", "memory", "file-size", "open-files",
-            "processes", "core")
+            "processes", "core", "syscalls")
 CHILD_LIMITS = ("cpu", "memory", "file-size", "open-files", "processes")
-SKIPPABLE = ("namespaces", "landlock", "identity")  # mechanisms a run can be told not to try
+SKIPPABLE = ("namespaces", "landlock", "identity", "seccomp")  # mechanisms a run can be told not to try
 
 
 @dataclass(frozen=True)
@@ -89,10 +90,14 @@ def pass_env_problem(name: object) -> str | None:
 
 
 def child_config(settings: SandboxSettings, *, work: str, result_fd: int, control_fd: int,
-                 job_fd: int, cpu_seconds: int, needs_reading: list[str]) -> dict:
-    """The JSON object server/child/start.py is started with."""
+                 job_fd: int, cpu_seconds: int, needs_reading: list[str], python: str | None,
+                 lifeline_fd: int | None) -> dict:
+    """The JSON object server/child/start.py is started with. ``python`` is the
+    interpreter the confined worker execs (None: latchwatch's own runs the job);
+    ``lifeline_fd`` ends when latchwatch does."""
     return {
         "work": work, "result_fd": result_fd, "control_fd": control_fd, "job_fd": job_fd,
+        "python": python, "lifeline_fd": lifeline_fd,
         "memory": settings.memory_limit, "cpu": cpu_seconds, "file_size": settings.file_size_limit,
         "open_files": settings.open_files_limit, "processes": settings.process_limit,
         "needs_reading": needs_reading, "skip": sorted(settings.skip),
@@ -160,6 +165,7 @@ class SandboxReport:
             "leftovers": ("pid namespace" if leftovers.startswith("PID") else "subreaper" if leftovers
                           else "process group"),
             "core_dumps": "off" if "core" in self.in_force else "not prevented",
+            "syscalls": "filtered" if "syscalls" in self.in_force else "not filtered",
         }
         missing = self.missing_required()
         if missing:
@@ -184,8 +190,6 @@ def _privileges(detail: str | None) -> str:
         return "not dropped"
     if detail.startswith("runs as nobody"):
         return "nobody"
-    if detail.startswith("root's file access"):
-        return "root without capabilities"
     return "unprivileged user"
 
 

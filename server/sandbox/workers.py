@@ -18,11 +18,11 @@ import shutil
 import signal
 import subprocess
 import sys
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
 from latchwatch.server.sandbox import policy as sandbox
+from latchwatch.server.sandbox.folders import make_run_folder
 from latchwatch.server.sandbox.policy import SandboxSettings
 
 CHILD = Path(__file__).resolve().parent.parent / "child"  # the package that runs in the sandboxed interpreter
@@ -92,24 +92,28 @@ class Worker:
 
         With ``host_fd`` (a socket) the child is a corner host (server/sandbox/hosts.py): it runs
         no job of its own and forks a child per job it receives there."""
-        work = Path(tempfile.mkdtemp(prefix="latchwatch-run-"))
+        python = named_interpreter(key.python)
+        work = make_run_folder()
         result_r, result_w = os.pipe()
         control_r, control_w = os.pipe()
         job_r, job_w = os.pipe()
         widen_pipe(result_r)
+        lifeline = lifeline_fd()
         config = sandbox.child_config(
             key.settings, work=str(work), result_fd=result_w, control_fd=control_w,
-            job_fd=job_r, cpu_seconds=cpu_seconds(key.timeout), needs_reading=needs_reading)
+            job_fd=job_r, cpu_seconds=cpu_seconds(key.timeout), needs_reading=needs_reading,
+            python=None if python == sys.executable else python, lifeline_fd=lifeline)
         env = child_environment(work, key.settings.pass_env)
         if host_fd is not None:
             config["host_fd"] = host_fd
             env.update(dict.fromkeys(_THREAD_NAMES, "1"))  # a process with threads must not fork
         try:
+            # latchwatch's own interpreter confines the run; the named one is exec'd only then.
             process = subprocess.Popen(
-                [key.python, "-I", str(SANDBOX_CHILD), json.dumps(config)], stdin=subprocess.DEVNULL,
+                [sys.executable, "-I", str(SANDBOX_CHILD), json.dumps(config)], stdin=subprocess.DEVNULL,
                 stdout=subprocess.PIPE if host_fd is None else subprocess.DEVNULL, stderr=subprocess.STDOUT,
                 cwd=work, env=env, start_new_session=True,
-                pass_fds=(result_w, control_w, job_r) + ((host_fd,) if host_fd is not None else ()))
+                pass_fds=(result_w, control_w, job_r, lifeline) + ((host_fd,) if host_fd is not None else ()))
         except OSError as error:
             for fd in (result_r, result_w, control_r, control_w, job_r, job_w):
                 os.close(fd)
@@ -167,6 +171,27 @@ class Worker:
         close_quietly(self._pidfd, self.result_r, self.control_r)
         self._pidfd = None
         shutil.rmtree(self.work, ignore_errors=True)
+
+
+def named_interpreter(python: str) -> str:
+    """The interpreter's path, found (a bare name on PATH) but never run: the sandbox
+    execs it once confined. Raises RunnerError when there is no such program."""
+    found = shutil.which(python) if os.sep not in python else python
+    if not found or not os.path.isfile(found) or not os.access(found, os.X_OK):
+        raise RunnerError(f"cannot start the interpreter {python!r}: no such program (or not executable)")
+    return os.path.abspath(found)
+
+
+_lifeline: tuple[int, int] | None = None
+
+
+def lifeline_fd() -> int:
+    """The read end of a pipe whose write end this process holds until it ends: every
+    run's keeper watches it, and ends the run when latchwatch is gone (server/child/keeper.py)."""
+    global _lifeline
+    if _lifeline is None:
+        _lifeline = os.pipe()  # neither end is inherited, except where passed on purpose
+    return _lifeline[0]
 
 
 def close_quietly(*fds: int | None) -> None:

@@ -9,7 +9,9 @@ from __future__ import annotations
 
 import asyncio
 import json
+import re
 import select
+import stat
 import subprocess
 import time
 import uuid
@@ -350,29 +352,53 @@ def test_malformed_messages_get_error_responses(tmp_path, env):
             server.kill()
 
 
-def test_tcp_transport(tmp_path, env):
+def _initialize(token=None) -> bytes:
+    params = {"processId": None, "rootUri": None, "capabilities": {}}
+    if token is not None:
+        params["initializationOptions"] = {"token": token}
+    return frame(json.dumps({"jsonrpc": "2.0", "id": 1, "method": "initialize", "params": params}).encode())
+
+
+def _tcp_exchange(port: int, message: bytes) -> tuple[dict, bool]:
+    """Send one message; (the reply, whether the server then closed the connection)."""
     import socket
 
-    with socket.socket() as probe:
-        probe.bind(("127.0.0.1", 0))
-        port = probe.getsockname()[1]
-    server = subprocess.Popen(SERVER + ["--tcp", f"127.0.0.1:{port}"], env=env, stderr=subprocess.DEVNULL)
+    with socket.create_connection(("127.0.0.1", port), timeout=10) as connection:
+        connection.sendall(message)
+        stream = connection.makefile("rb", buffering=0)
+        reply = read_response(stream, 1)
+        connection.settimeout(2)
+        try:
+            closed = connection.recv(1) == b""
+        except TimeoutError:
+            closed = False
+    return reply, closed
+
+
+def test_tcp_serves_loopback_only_and_only_a_client_with_the_token(tmp_path, env):
+    # issue 14: any local process could otherwise send trustedFolders and a python setting.
+    runtime = tmp_path / "runtime"
+    env = {**env, "XDG_RUNTIME_DIR": str(runtime)}
+    env.pop("LATCHWATCH_TCP_TOKEN", None)
+    refused = subprocess.run(SERVER + ["--tcp", "0.0.0.0:0"], env=env, capture_output=True, text=True, timeout=60)
+    assert refused.returncode == 2 and "not a loopback address" in refused.stderr
+    server = subprocess.Popen(SERVER + ["--tcp", "127.0.0.1:0"], env=env, stderr=subprocess.PIPE, text=True)
     try:
-        deadline = time.monotonic() + 20
-        while True:
-            try:
-                connection = socket.create_connection(("127.0.0.1", port), timeout=1)
-                break
-            except OSError:
-                if time.monotonic() > deadline:
-                    raise
-                time.sleep(0.1)
-        with connection:
-            body = json.dumps({"jsonrpc": "2.0", "id": 1, "method": "initialize",
-                               "params": {"processId": None, "rootUri": None, "capabilities": {}}}).encode()
-            connection.sendall(frame(body))
-            stream = connection.makefile("rb", buffering=0)
-            assert read_response(stream, 1)["result"]["serverInfo"]["name"] == "latchwatch"
+        announced = server.stderr.readline()
+        match = re.search(r"listening on 127\.0\.0\.1:(\d+); a client presents the token in (\S+) \(mode 0600\)",
+                          announced)
+        assert match, announced
+        port, token_file = int(match[1]), Path(match[2])
+        assert stat.S_IMODE(token_file.stat().st_mode) == 0o600 and token_file.parent == runtime / "latchwatch"
+        token = token_file.read_text().strip()
+        for attempt in (_initialize(), _initialize("x" * len(token)),
+                        frame(b'{"jsonrpc": "2.0", "id": 1, "method": "shutdown"}')):
+            reply, closed = _tcp_exchange(port, attempt)
+            assert reply["error"]["code"] == -32600 and "token" in reply["error"]["message"] and closed
+        reply, _closed = _tcp_exchange(port, _initialize(token))
+        assert reply["result"]["serverInfo"]["name"] == "latchwatch"
+        assert server.wait(timeout=20) == 0  # the client went away: the server ends, as on stdio
+        assert not token_file.exists()
     finally:
         server.kill()
         server.wait()

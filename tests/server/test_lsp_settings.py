@@ -111,3 +111,18 @@ def test_env_setting_refuses_loader_variables():
     kept, problems = merge(EditorSettings(), {"env": ["LD_PRELOAD"]}, True)
     assert kept == EditorSettings()
     assert problems and "latchwatch.env" in problems[0] and "LD_PRELOAD is not passed into a run" in problems[0]
+
+
+def test_a_trusted_subfolder_never_runs_the_python_of_an_untrusted_parent(tmp_path, monkeypatch):
+    monkeypatch.setenv("XDG_CONFIG_HOME", str(tmp_path / "config"))  # an empty trust store
+    script = make_project(tmp_path / "parent", 'tech = "demo"\npython = "/tmp/evil-python"\n')
+    sub_script = script.parent / "sub" / "cell.py"
+    sub_script.parent.mkdir()
+    sub_script.write_text("import gdstk\n")
+    editor, _ = merge(EditorSettings(), {"trustedFolders": [str(sub_script.parent)]}, True)
+    with pytest.raises(SettingsError, match=r"its `python` \(/tmp/evil-python\) is not used.*latchwatch trust"):
+        document_settings(sub_script, editor, None, TechnologyCache())
+    trusted_parent, _ = merge(EditorSettings(), {"trustedFolders": [str(tmp_path / "parent")]}, True)
+    assert document_settings(sub_script, trusted_parent, None, TechnologyCache()).check.python == "/tmp/evil-python"
+    own_choice, _ = merge(editor, {"python": "/usr/bin/python3"}, True)  # the editor's setting is the user's own
+    assert document_settings(sub_script, own_choice, None, TechnologyCache()).check.python == "/usr/bin/python3"
