@@ -9,9 +9,11 @@ from typing import TYPE_CHECKING
 
 from latchwatch.analyzers.context import CheckContext, CheckOptions
 from latchwatch.analyzers.extraction.devices import device_table
-from latchwatch.analyzers.layout.flatten import HierarchyError, flatten
+from latchwatch.analyzers.layout.budget import LayoutTooLarge, check_budget
+from latchwatch.analyzers.layout.flatten import MAX_DEPTH, HierarchyError, flatten
 from latchwatch.analyzers.model.captured import METADATA_CELLS
 from latchwatch.analyzers.model.findings import Device, Finding, Severity
+from latchwatch.analyzers.model.run_outcome import ScriptFailure
 from latchwatch.analyzers.rules import RULES, Rule, Scope
 
 if TYPE_CHECKING:
@@ -36,6 +38,7 @@ class CheckResult:
     devices: list[Device] | None
     cells: int
     shapes: int  # shapes checked, after flattening every top cell
+    status: str = "ok"  # the run's status, "limit" when the layout was over the budget
 
 
 def select_rules(select: Iterable[str] | None = None, ignore: Iterable[str] = (),
@@ -71,14 +74,20 @@ def check_outcome(outcome: RunOutcome, tech: Technology, options: CheckOptions =
     devices: list[Device] | None = [] if want_devices else None
     run_rules = tuple(rule for rule in rules if rule.scope is Scope.RUN)
     layout_rules = tuple(rule for rule in rules if rule.scope is Scope.LAYOUT)
+    layout = outcome.layout
+    tops = top_cells(outcome, options.top) if outcome.status == "ok" and layout is not None else []
+    try:  # every top is counted before any is flattened: nothing is checked of a layout over the budget
+        for top in tops:
+            check_budget(layout, top, options.budget, MAX_DEPTH)
+    except LayoutTooLarge as error:
+        outcome, tops = over_budget(outcome, error), []
     ctx = CheckContext(outcome, tech, options)
     for rule in run_rules:
         findings.extend(_checked(rule, ctx))
-    layout = outcome.layout
     shapes = 0
-    if outcome.status == "ok" and layout is not None:
-        for top in top_cells(outcome, options.top):
-            flat = flatten(layout, top)
+    if tops:
+        for top in tops:
+            flat = flatten(layout, top, options.budget)
             shapes += len(flat.polygons)
             ctx = CheckContext(outcome, tech, options, flat)
             for rule in layout_rules:
@@ -89,8 +98,15 @@ def check_outcome(outcome: RunOutcome, tech: Technology, options: CheckOptions =
         findings = [f.with_severity(severity[f.rule]) if f.rule in severity else f for f in findings]
     return CheckResult(
         findings=sorted(_unique(findings), key=Finding.sort_key), devices=devices,
-        cells=len(layout.cells) if layout else 0, shapes=shapes,
+        cells=len(layout.cells) if layout else 0, shapes=shapes, status=outcome.status,
     )
+
+
+def over_budget(outcome: RunOutcome, error: LayoutTooLarge) -> RunOutcome:
+    """The run as a limit failure (script-limit reports it), on the line that drew the culprit."""
+    frames = outcome.layout.stack_frames(error.stack)
+    failure = ScriptFailure("limit", None, str(error), frames)
+    return replace(outcome, status="limit", layout=None, failure=failure)
 
 
 def _checked(rule: Rule, ctx: CheckContext, cell: str | None = None) -> list[Finding]:

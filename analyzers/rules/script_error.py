@@ -8,6 +8,7 @@ from latchwatch.analyzers.rules.base import Rule, RuleDoc, Scope
 
 MESSAGE = "script raised {exc_type}: {message}"
 MESSAGE_LAYOUT = "the layout file could not be read: {message}"
+MESSAGE_NOT_RAISED = "the script did not run to its end: {message}"  # killed, refused, unreadable
 
 
 def check(ctx):
@@ -17,8 +18,10 @@ def check(ctx):
         return
     if is_layout_file(ctx.outcome.script or ""):
         text = MESSAGE_LAYOUT.format(message=failure.message or "(no message)")
+    elif failure.exc_type is None:
+        text = MESSAGE_NOT_RAISED.format(message=failure.message or "(no message)")
     else:
-        text = MESSAGE.format(exc_type=failure.exc_type or "an error", message=failure.message or "(no message)")
+        text = MESSAGE.format(exc_type=failure.exc_type, message=failure.message or "(no message)")
     yield ctx.run_finding(RULE, text, failure.frames)
 
 

@@ -45,6 +45,7 @@ from latchwatch.server.lsp.settings import (
     section_of,
     trust_root,
 )
+from latchwatch.server.report.terminal import terminal_safe
 from latchwatch.server.runs import batch as sweep
 from latchwatch.server.runs import plan
 from latchwatch.server.runs.pipeline import read_text_or_none
@@ -138,7 +139,7 @@ class LatchwatchServer(LanguageServer):
         return bool(value)
 
     def log(self, message: str, kind=types.MessageType.Log) -> None:
-        self.window_log_message(types.LogMessageParams(type=kind, message=message))
+        self.window_log_message(types.LogMessageParams(type=kind, message=terminal_safe(message)))
 
     def report_server_error(self, error: Exception, source) -> None:
         if source is JsonRpcException and isinstance(error, ValueError):  # a body that is not JSON
@@ -435,6 +436,7 @@ def hover_at(ls: LatchwatchServer, uri: str, line: int):
         text = convert.hover_markdown(result.path, line + 1, result.devices, result.findings, limit)
     if text is None:
         return None
+    text = terminal_safe(text)  # cell and net names a script chose
     formats = ls.client_capabilities.text_document and ls.client_capabilities.text_document.hover
     formats = formats.content_format if formats else None
     if formats and types.MarkupKind.Markdown not in formats:

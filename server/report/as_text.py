@@ -16,6 +16,7 @@ from pathlib import Path
 from latchwatch.analyzers.electrical.shunt import si
 from latchwatch.analyzers.model.findings import Device, Finding
 from latchwatch.server.report.model import Report, for_display
+from latchwatch.server.report.terminal import terminal_safe
 
 PROGRAM = "latchwatch"
 
@@ -107,4 +108,4 @@ def render_text(report: Report, *, base: Path | None = None) -> str:
     if shown.devices is not None:
         lines += device_lines(shown.devices)
     lines.append(summary_line(shown))
-    return "\n".join(lines) + "\n"
+    return terminal_safe("\n".join(lines) + "\n")  # names and messages a script chose

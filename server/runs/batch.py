@@ -20,6 +20,7 @@ from typing import TextIO
 from latchwatch.analyzers.model.findings import Device, Finding
 from latchwatch.analyzers.rules import RULES
 from latchwatch.server.report.model import Report, RunSummary, corner_label
+from latchwatch.server.report.terminal import terminal_safe
 from latchwatch.server.runs.pipeline import CheckSettings, check_run, read_text_or_none, run_path
 from latchwatch.server.runs.plan import Sweep, Task, plan_script, preview_functions
 from latchwatch.server.sandbox.hosts import available_cpus
@@ -69,7 +70,7 @@ def run_task(task: Task, settings: CheckSettings, source: str | None = None, can
     if task.function is not None:
         summary = replace(summary, function=task.function)
     cells = len(outcome.layout.cells) if outcome.layout is not None else 0
-    return RunResult(task, outcome.status, cells, summary, findings, devices, outcome.output)
+    return RunResult(task, summary.status, cells, summary, findings, devices, outcome.output)
 
 
 def _wants_preview(result: RunResult, text: str | None) -> list[str]:
@@ -202,7 +203,7 @@ class ProgressBar:
         if self.stream is None:
             return
         self._clear()
-        print(text, file=self.stream, flush=True)
+        print(terminal_safe(text), file=self.stream, flush=True)  # script output among the notes
 
     def update(self, done: int, total: int) -> None:
         """Redraw the bar for ``done`` of ``total`` runs (only on a terminal, only for several runs)."""

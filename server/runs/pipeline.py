@@ -10,8 +10,10 @@ from pathlib import Path
 
 from latchwatch.analyzers.check import CheckOptions, check_outcome, select_rules
 from latchwatch.analyzers.model.findings import Finding, Severity
-from latchwatch.analyzers.model.run_outcome import LAYOUT_SUFFIXES, RunOutcome
+from latchwatch.analyzers.model.run_outcome import LAYOUT_SUFFIXES, RunOutcome, ScriptFailure
 from latchwatch.analyzers.technology.model import Technology
+from latchwatch.server.config.files import file_problem, read_text
+from latchwatch.server.config.limits import DEFAULT_LIMITS, Limits
 from latchwatch.server.report.model import RunSummary
 from latchwatch.server.runs.suppression import apply_suppressions
 from latchwatch.server.sandbox.runner import read_layout_file, run_script
@@ -35,6 +37,7 @@ class CheckSettings:
     require_sandbox: bool = False  # a missing sandbox protection is an error (SandboxUnavailable), not a fallback
     pass_env: tuple[str, ...] = ()  # environment variables the scripts also see (project `env`, `--env`)
     hosted: bool = False  # runs are forks of corner hosts (server/sandbox/hosts.py): many runs, the same settings
+    limits: Limits = DEFAULT_LIMITS  # the project's [limits]: files, layout budget, analysis memory and time
 
 
 def is_checkable(path: Path) -> bool:
@@ -59,7 +62,12 @@ def expand_paths(paths: Iterable[Path], excluded: Callable[[Path], bool] = lambd
 
 
 def run_path(path: Path, settings: CheckSettings, source: str | None = None, cancel=None) -> RunOutcome:
-    """Run a script, or read a layout file, into a RunOutcome."""
+    """Run a script, or read a layout file, into a RunOutcome; a path that is no regular
+    file within the size limit is a failed run that says so (nothing starts)."""
+    refused = _refusal(path, settings.limits) if source is None else None
+    if refused is not None:
+        return RunOutcome(script=str(path), status="error", seconds=0.0, layout=None,
+                          failure=ScriptFailure("error", None, refused), output="", sandbox={})
     if path.suffix.lower() in LAYOUT_SUFFIXES:  # read in a child too: gdstk can crash on a corrupt file
         kind = "oas" if path.suffix.lower() in (".oas", ".oasis") else "gds"
         return read_layout_file(path, kind, python=settings.python, timeout=max(settings.timeout, 60.0),
@@ -69,25 +77,33 @@ def run_path(path: Path, settings: CheckSettings, source: str | None = None, can
                       hosted=settings.hosted, pass_env=settings.pass_env)
 
 
+def _refusal(path: Path, limits: Limits) -> str | None:
+    try:
+        return file_problem(path, limits.file_bytes, limits.file_hint())
+    except OSError:
+        return None  # the run itself reports a file it cannot read
+
+
 def check_run(outcome: RunOutcome, settings: CheckSettings, read_source=None) -> tuple[list[Finding], list, RunSummary]:
     """The findings, devices and summary of one run under the settings (suppression comments applied)."""
     rules = select_rules(settings.select or None, settings.ignore, settings.disable)
     options = CheckOptions(
         project_root=str(settings.project_root) if settings.project_root else None,
-        top=settings.top, exact_devices=settings.devices,
+        top=settings.top, exact_devices=settings.devices, budget=settings.limits.budget(),
     )
     result = check_outcome(outcome, settings.tech, options, rules=rules, severity=settings.severity,
                            want_devices=settings.devices)
     findings = apply_suppressions(result.findings, read_source or read_text_or_none)
-    summary = RunSummary(script=outcome.script, corner=outcome.corner, status=outcome.status,
+    summary = RunSummary(script=outcome.script, corner=outcome.corner, status=result.status,
                          seconds=round(outcome.seconds, 3), cells=result.cells, shapes=result.shapes,
                          sandbox=outcome.sandbox)
     return findings, result.devices or [], summary
 
 
-def read_text_or_none(file: str | Path) -> str | None:
-    """The file's text (undecodable bytes replaced), or None when it cannot be read."""
+def read_text_or_none(file: str | Path, limits: Limits = DEFAULT_LIMITS) -> str | None:
+    """The file's text (undecodable bytes replaced), or None when it cannot be read or is
+    no regular file within the size limit (server/config/files.py)."""
     try:
-        return Path(file).read_text(encoding="utf-8", errors="replace")
-    except OSError:
+        return read_text(file, limits.file_bytes)
+    except OSError:  # InputFileError among them
         return None
