@@ -105,7 +105,7 @@ def check_outcome(outcome: RunOutcome, tech: Technology, options: CheckOptions =
 def over_budget(outcome: RunOutcome, error: LayoutTooLarge) -> RunOutcome:
     """The run as a limit failure (script-limit reports it), on the line that drew the culprit."""
     frames = outcome.layout.stack_frames(error.stack)
-    failure = ScriptFailure("limit", None, str(error), frames)
+    failure = ScriptFailure("limit", None, str(error), frames, stage="check")
     return replace(outcome, status="limit", layout=None, failure=failure)
 
 

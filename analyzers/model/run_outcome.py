@@ -29,6 +29,9 @@ class ScriptFailure:
     # Innermost first: for an error, the traceback; for a timeout, the stack the
     # script was executing when it was stopped. Every frame, user or not.
     frames: tuple[Frame, ...] = ()
+    # "run" for what happened in the sandboxed run; "check" for a limit latchwatch's own
+    # check of the layout met (the layout budget, the analysis's memory or time).
+    stage: str = "run"
 
     def __post_init__(self):
         if self.kind not in FAILURE_KINDS:

@@ -8,6 +8,7 @@ from latchwatch.analyzers.rules.base import Rule, RuleDoc, Scope
 
 MESSAGE = "script exceeded a resource limit: {message}"
 MESSAGE_LAYOUT = "the layout file exceeds a limit: {message}"
+MESSAGE_CHECK = "the layout is too large for latchwatch to check: {message}"
 
 
 def check(ctx):
@@ -15,7 +16,10 @@ def check(ctx):
     failure = ctx.outcome.failure
     if failure is None or failure.kind != "limit":
         return
-    template = MESSAGE_LAYOUT if is_layout_file(ctx.outcome.script or "") else MESSAGE
+    if failure.stage == "check":
+        template = MESSAGE_CHECK
+    else:
+        template = MESSAGE_LAYOUT if is_layout_file(ctx.outcome.script or "") else MESSAGE
     yield ctx.run_finding(RULE, template.format(message=failure.message or failure.exc_type or "limit reached"),
                           failure.frames)
 

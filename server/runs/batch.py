@@ -66,7 +66,10 @@ def run_task(task: Task, settings: CheckSettings, source: str | None = None, can
         outcome = replace(outcome, corner=dict(task.corner or {}))
     if outcome.status == "cancelled" or (cancel is not None and cancel.is_set()):
         return None
-    findings, devices, summary = check_run(outcome, settings, read_source=read_source)
+    checked = check_run(outcome, settings, read_source=read_source, cancel=cancel)
+    if checked is None:
+        return None
+    findings, devices, summary = checked
     if task.function is not None:
         summary = replace(summary, function=task.function)
     cells = len(outcome.layout.cells) if outcome.layout is not None else 0

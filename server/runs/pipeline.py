@@ -8,13 +8,14 @@ from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from latchwatch.analyzers.check import CheckOptions, check_outcome, select_rules
+from latchwatch.analyzers.check import CheckOptions, select_rules
 from latchwatch.analyzers.model.findings import Finding, Severity
 from latchwatch.analyzers.model.run_outcome import LAYOUT_SUFFIXES, RunOutcome, ScriptFailure
 from latchwatch.analyzers.technology.model import Technology
 from latchwatch.server.config.files import file_problem, read_text
 from latchwatch.server.config.limits import DEFAULT_LIMITS, Limits
 from latchwatch.server.report.model import RunSummary
+from latchwatch.server.runs.analysis import analyse
 from latchwatch.server.runs.suppression import apply_suppressions
 from latchwatch.server.sandbox.runner import read_layout_file, run_script
 
@@ -84,15 +85,20 @@ def _refusal(path: Path, limits: Limits) -> str | None:
         return None  # the run itself reports a file it cannot read
 
 
-def check_run(outcome: RunOutcome, settings: CheckSettings, read_source=None) -> tuple[list[Finding], list, RunSummary]:
-    """The findings, devices and summary of one run under the settings (suppression comments applied)."""
+def check_run(outcome: RunOutcome, settings: CheckSettings, read_source=None,
+              cancel=None) -> tuple[list[Finding], list, RunSummary] | None:
+    """The findings, devices and summary of one run under the settings (suppression
+    comments applied), checked in an analysis process under the [limits] (server/runs/analysis.py).
+    None when ``cancel`` was set during the check."""
     rules = select_rules(settings.select or None, settings.ignore, settings.disable)
     options = CheckOptions(
         project_root=str(settings.project_root) if settings.project_root else None,
         top=settings.top, exact_devices=settings.devices, budget=settings.limits.budget(),
     )
-    result = check_outcome(outcome, settings.tech, options, rules=rules, severity=settings.severity,
-                           want_devices=settings.devices)
+    result = analyse(outcome, settings.tech, options, settings.limits, rules=rules, severity=settings.severity,
+                     want_devices=settings.devices, cancel=cancel)
+    if result is None:
+        return None
     findings = apply_suppressions(result.findings, read_source or read_text_or_none)
     summary = RunSummary(script=outcome.script, corner=outcome.corner, status=result.status,
                          seconds=round(outcome.seconds, 3), cells=result.cells, shapes=result.shapes,
