@@ -23,8 +23,6 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from builders import ACTIVE, NPLUS, NWELL, PPLUS, CellBuilder, layout  # noqa: E402
-
 from latchwatch.analyzers.check import CheckOptions, check_outcome  # noqa: E402
 from latchwatch.analyzers.layout.budget import LayoutBudget, LayoutTooLarge, check_budget  # noqa: E402
 from latchwatch.analyzers.model.run_outcome import RunOutcome  # noqa: E402
@@ -32,6 +30,8 @@ from latchwatch.analyzers.rules import RULES  # noqa: E402
 from latchwatch.server.config.limits import DEFAULT_LIMITS  # noqa: E402
 from latchwatch.server.config.techfiles import load_technology  # noqa: E402
 from latchwatch.server.runs.analysis import analyse  # noqa: E402
+
+from builders import ACTIVE, NPLUS, NWELL, PPLUS, CellBuilder, layout  # noqa: E402
 
 
 def _outcome(captured):
@@ -79,9 +79,12 @@ def budget_count() -> None:
         print(f"budget count of a 32767 x 32767 array: {(time.perf_counter() - start) * 1e3:.2f} ms: {error}")
 
 
+TESTS = str(Path(__file__).resolve().parents[1])
+
+
 def big_polygon() -> None:
     code = (
-        "import sys, time, resource, numpy as np; sys.path.insert(0, %r)\n"
+        "import sys, time, resource, numpy as np; sys.path.insert(0, " + repr(TESTS) + ")\n"
         "from builders import CellBuilder, layout, ACTIVE, NWELL\n"
         "from latchwatch.analyzers.check import check_outcome\n"
         "from latchwatch.analyzers.model.run_outcome import RunOutcome\n"
@@ -93,7 +96,7 @@ def big_polygon() -> None:
         "check_outcome(RunOutcome('b.py', 'ok', 0.0, layout(cell), None, '', {}), load_technology('demo'))\n"
         "print(f'one 10^7-vertex polygon in process: {time.perf_counter() - start:.1f} s, peak '\n"
         "      f'{resource.getrusage(resource.RUSAGE_SELF).ru_maxrss >> 10} MiB')\n"
-    ) % str(Path(__file__).resolve().parents[1])
+    )
     subprocess.run([sys.executable, "-c", code], check=False)
 
 
