@@ -41,7 +41,7 @@ class Limits:
     analysis_seconds: float = 600.0
 
     def file_hint(self) -> str:
-        return raise_hint("file-mib", 2 * self.file_bytes >> 20)
+        return raise_hint("file-mib", f"{2 * self.file_bytes / (1 << 20):g}")
 
     def budget(self) -> LayoutBudget:
         """The layout budget for flattening, with the hints that name these keys."""
@@ -50,10 +50,10 @@ class Limits:
                             vertices_hint=raise_hint("vertices", 2 * self.vertices))
 
     def memory_hint(self) -> str:
-        return raise_hint("analysis-gib", 2 * self.analysis_memory >> 30)
+        return raise_hint("analysis-gib", f"{2 * self.analysis_memory / (1 << 30):g}")
 
     def time_hint(self) -> str:
-        return raise_hint("analysis-seconds", int(2 * self.analysis_seconds))
+        return raise_hint("analysis-seconds", f"{2 * self.analysis_seconds:g}")
 
 
 DEFAULT_LIMITS = Limits()
