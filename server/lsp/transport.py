@@ -29,6 +29,7 @@ IGNORED = object()  # a message answered with an error while it was being decode
 MAX_BODY = 256 << 20  # bytes: an editor's whole-document message stays far below
 MAX_HEADER_LINE = 8192
 _MARKER = b"content-length:"
+_TOKEN = re.compile(rb"[A-Za-z0-9!#$%&'*+.^_`|~-]+")  # a header name (RFC 9110 section 5.1)
 _ID = re.compile(rb'"id"\s*:\s*(-?\d+|"(?:[^"\\]|\\.)*")')
 INVALID_REQUEST = -32600
 PARSE_ERROR = -32700
@@ -99,7 +100,7 @@ async def _header(stream: _Stream) -> int | None:
                 raise FramingError("a header block without Content-Length", line)
             return length
         name, colon, value = text.partition(b":")
-        if not colon or not name.strip() or b"{" in name:
+        if not colon or not _TOKEN.fullmatch(name.strip()):
             raise FramingError(f"not a header line: {_show(line)}", line)
         if name.strip().lower() == b"content-length":
             value = value.strip()

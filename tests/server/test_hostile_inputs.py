@@ -14,7 +14,6 @@ import os
 
 import gdstk
 import pytest
-
 from test_bad_input import latchwatch
 
 OSC52 = "\x1b]52;c;aGVsbG8=\x07"

@@ -20,7 +20,6 @@ import time
 import numpy as np
 import pytest
 
-from builders import ACTIVE, NPLUS, NWELL, PPLUS, CellBuilder, frame, layout
 from latchwatch.analyzers.check import CheckOptions, TopCellError, check_outcome
 from latchwatch.analyzers.layout.budget import LayoutBudget, LayoutTooLarge, check_budget
 from latchwatch.analyzers.layout.flatten import flatten
@@ -32,6 +31,8 @@ from latchwatch.server.config.techfiles import load_technology
 from latchwatch.server.report.terminal import terminal_safe
 from latchwatch.server.runs import analysis
 from latchwatch.server.sandbox import wire
+
+from builders import ACTIVE, NPLUS, NWELL, PPLUS, CellBuilder, frame, layout
 
 TECH = load_technology("demo")
 
@@ -213,8 +214,9 @@ def _row(count):
     return _outcome(layout(cell))
 
 
-def _analyse(run, limits, cancel=None, options=CheckOptions()):
-    return analysis.analyse(run, TECH, options, limits, rules=RULES, severity={}, want_devices=True, cancel=cancel)
+def _analyse(run, limits, cancel=None, options=None):
+    return analysis.analyse(run, TECH, options or CheckOptions(), limits, rules=RULES, severity={},
+                            want_devices=True, cancel=cancel)
 
 
 def test_a_forked_analysis_gives_what_the_in_process_one_gives():
