@@ -15,6 +15,7 @@ that is no JSON-RPC object, and every request after ``shutdown`` (Invalid Reques
 
 from __future__ import annotations
 
+import asyncio
 import json
 import logging
 import re
@@ -49,15 +50,17 @@ class StdinReader:
     def __init__(self, stdin, loop, executor=None):
         self.stdin, self.loop, self.executor = stdin, loop, executor
 
-    async def readline(self, limit: int = -1) -> bytes:
-        return await self.loop.run_in_executor(self.executor, self.stdin.readline, limit)
+    async def readline(self) -> bytes:
+        return await self.loop.run_in_executor(self.executor, self.stdin.readline, MAX_HEADER_LINE)
 
     async def readexactly(self, n: int) -> bytes:
         return await self.loop.run_in_executor(self.executor, self.stdin.read, n)
 
 
 class _Stream:
-    """A reader with bytes pushed back in front of it (for re-reading a bad body)."""
+    """A reader with bytes pushed back in front of it (for re-reading a bad body). The
+    reader is any of pygls' kind (``readline()``, ``readexactly(n)``): StdinReader, or an
+    asyncio StreamReader, whose lines are capped by its own limit."""
 
     def __init__(self, reader):
         self.reader, self.pending = reader, bytearray()
@@ -73,14 +76,23 @@ class _Stream:
             del self.pending[:cut]
             if end >= 0 or len(line) >= MAX_HEADER_LINE:
                 return line
-            return line + await self.reader.readline(MAX_HEADER_LINE - len(line))
-        return await self.reader.readline(MAX_HEADER_LINE)
+            return line + await self._line()
+        return await self._line()
+
+    async def _line(self) -> bytes:
+        try:
+            return await self.reader.readline()
+        except ValueError:  # an asyncio StreamReader's line over its limit: framing garbage
+            return b"\0" * MAX_HEADER_LINE
 
     async def readexactly(self, n: int) -> bytes:
         head = bytes(self.pending[:n])
         del self.pending[:n]
         while len(head) < n:
-            more = await self.reader.readexactly(n - len(head))
+            try:
+                more = await self.reader.readexactly(n - len(head))
+            except asyncio.IncompleteReadError as short:  # an asyncio StreamReader at the end of input
+                return head + short.partial
             if not more:
                 break
             head += more

@@ -82,7 +82,8 @@ def analyse(outcome: RunOutcome, tech: Technology, options: CheckOptions, limits
     else:
         text = ENDED.format(detail=value, limit=gib, hint=limits.memory_hint())
     limited = replace(outcome, status="limit", layout=None, failure=ScriptFailure("limit", None, text, stage="check"))
-    return check_outcome(limited, tech, options, **keywords)
+    with _GATE:
+        return check_outcome(limited, tech, options, **keywords)
 
 
 def _small(outcome: RunOutcome, options: CheckOptions) -> bool:

@@ -65,11 +65,13 @@ def expand_paths(paths: Iterable[Path], excluded: Callable[[Path], bool] = lambd
 def run_path(path: Path, settings: CheckSettings, source: str | None = None, cancel=None) -> RunOutcome:
     """Run a script, or read a layout file, into a RunOutcome; a path that is no regular
     file within the size limit is a failed run that says so (nothing starts)."""
-    refused = _refusal(path, settings.limits) if source is None else None
+    layout_file = path.suffix.lower() in LAYOUT_SUFFIXES
+    # An editor's buffer is the script's source; a layout is read from disk all the same.
+    refused = _refusal(path, settings.limits) if source is None or layout_file else None
     if refused is not None:
         return RunOutcome(script=str(path), status="error", seconds=0.0, layout=None,
                           failure=ScriptFailure("error", None, refused), output="", sandbox={})
-    if path.suffix.lower() in LAYOUT_SUFFIXES:  # read in a child too: gdstk can crash on a corrupt file
+    if layout_file:  # read in a child too: gdstk can crash on a corrupt file
         kind = "oas" if path.suffix.lower() in (".oas", ".oasis") else "gds"
         return read_layout_file(path, kind, python=settings.python, timeout=max(settings.timeout, 60.0),
                                 cancel=cancel, require_sandbox=settings.require_sandbox)

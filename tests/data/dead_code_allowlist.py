@@ -16,7 +16,7 @@ _.__module__, _.__qualname__  # capture_gdstk: the wrapper keeps the wrapped met
 _.tempdir  # tempfile.tempdir, pointed at the run folder
 _.diagnostic_provider  # server capability read by pygls
 _.report_server_error  # pygls's hook for errors inside handlers
-_._start_io_async  # pygls's stdio server, replaced to frame with server/lsp/transport.py
 # Protocol handlers, called by pygls through their @server.feature registration.
 _.initialize, _.did_open, _.did_change, _.did_save, _.did_close
 _.did_change_configuration, _.pull_diagnostics, _.code_action
+_._start_io_async  # pygls's stdio server, replaced to frame with server/lsp/transport.py

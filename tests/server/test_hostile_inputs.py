@@ -151,3 +151,14 @@ def test_script_output_and_messages_reach_the_terminal_escaped(tmp_path):
     assert "\\x1b]52;c;aGVsbG8=\\x07" in run.stderr  # the script's print, shown
     assert "\\x9b2J and \\x1b[31mred" in run.stderr
     assert "ValueError: \\x1b]52;c;aGVsbG8=\\x07" in run.stdout  # the finding's message
+
+
+def test_a_fifo_put_in_place_after_the_parent_looked_is_refused_by_the_child(tmp_path):
+    """run_script skips the parent's check (pipeline.run_path makes it), as a swap after it would."""
+    from latchwatch.server.sandbox.runner import run_script
+
+    os.mkfifo(tmp_path / "late.py")
+    outcome = run_script(tmp_path / "late.py", timeout=30)
+    assert (outcome.status, outcome.failure.message) == (
+        "error", f"cannot read the script {tmp_path / 'late.py'}: not a regular file")
+    assert outcome.seconds < 20  # refused at once, not ended at the time limit
