@@ -156,7 +156,14 @@ def _child(write_fd: int, memory: int, check) -> None:  # pragma: no cover - run
     try:
         os.dup2(write_fd, _RESULT_FD)
         os.closerange(_RESULT_FD + 1, os.sysconf("SC_OPEN_MAX") if hasattr(os, "sysconf") else 4096)
-        resource.setrlimit(resource.RLIMIT_AS, (_mapped() + memory,) * 2)
+        quiet = os.open(os.devnull, os.O_RDWR)
+        for fd in (0, 1):  # the language server's channel to the editor is stdin and stdout
+            os.dup2(quiet, fd)
+        _, hard = resource.getrlimit(resource.RLIMIT_AS)
+        cap = _mapped() + memory
+        if hard != resource.RLIM_INFINITY:
+            cap = min(cap, hard)  # an unprivileged process cannot raise its hard limit
+        resource.setrlimit(resource.RLIMIT_AS, (cap, cap))
         try:
             answer = ("ok", check())
         except MemoryError as error:
