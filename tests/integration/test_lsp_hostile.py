@@ -170,3 +170,27 @@ def test_non_file_documents_are_skipped_quietly_and_script_text_arrives_escaped(
     assert "TypeError" not in everything and "TypeError" not in log
     assert not any(m.get("method") == "textDocument/publishDiagnostics" and not m["params"]["uri"].startswith("file:")
                    for m in server.messages)
+
+
+async def test_an_untitled_document_gets_nothing_while_a_file_beside_it_is_checked(tmp_path, session):
+    """pytest-lsp's client: an untitled buffer is opened, edited, hovered and closed
+    without a diagnostic or a log line about it; the file opened after it is checked."""
+    from lsprotocol import types
+
+    from lsp_client import trusted
+
+    path = make_project(tmp_path / "project")
+    client = session()
+    await client.start(path.parent, options=trusted(path.parent))
+    untitled = "untitled:Untitled-1"
+    client.client.text_document_did_open(types.DidOpenTextDocumentParams(types.TextDocumentItem(
+        uri=untitled, language_id="python", version=1, text=path.read_text())))
+    client.replace_all(untitled, 2, path.read_text(), "x = 1\n")
+    hover = await client.client.text_document_hover_async(types.HoverParams(
+        types.TextDocumentIdentifier(untitled), types.Position(0, 0)))
+    assert hover is None
+    uri = client.open(path)
+    assert (await client.published_for(uri, 1)).diagnostics  # the file is checked
+    client.client.text_document_did_close(types.DidCloseTextDocumentParams(types.TextDocumentIdentifier(untitled)))
+    assert [p for p in client.published if p.uri == untitled and p.diagnostics] == []
+    assert not any("TypeError" in m.message or "Untitled" in m.message for m in client.client.log_messages)
