@@ -4,15 +4,17 @@ from __future__ import annotations
 
 import os
 from collections.abc import Callable, Iterable
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING
 
 from latchwatch.analyzers.context import CheckContext, CheckOptions
 from latchwatch.analyzers.extraction.devices import device_table
-from latchwatch.analyzers.layout.flatten import HierarchyError, flatten
+from latchwatch.analyzers.layout.budget import LayoutTooLarge, check_budget
+from latchwatch.analyzers.layout.flatten import MAX_DEPTH, HierarchyError, flatten
 from latchwatch.analyzers.layout.tops import CheckedTop, choose_tops, option_top
 from latchwatch.analyzers.model.captured import METADATA_CELLS
 from latchwatch.analyzers.model.findings import Device, Finding, Severity
+from latchwatch.analyzers.model.run_outcome import ScriptFailure
 from latchwatch.analyzers.rules import RULES, Rule, Scope
 
 if TYPE_CHECKING:
@@ -38,6 +40,9 @@ class CheckResult:
     cells: int
     shapes: int  # shapes checked, after flattening every top cell
     tops: list[CheckedTop]  # the cells checked as tops, and why
+    status: str = "ok"  # the run's status, "limit" when the layout was over the budget
+    # What ``on_top`` returned for each checked top, in order (the page's drawings).
+    per_top: list = field(default_factory=list)
 
 
 def select_rules(select: Iterable[str] | None = None, ignore: Iterable[str] = (),
@@ -68,36 +73,51 @@ def checked_tops(outcome: RunOutcome, top: str | None, project_root: str | None 
 def check_outcome(outcome: RunOutcome, tech: Technology, options: CheckOptions = DEFAULT_OPTIONS, *,
                   rules: tuple[Rule, ...] = RULES, severity: dict[str, Severity] | None = None,
                   want_devices: bool = False,
-                  on_top: Callable[[CheckContext, list[Finding]], None] | None = None) -> CheckResult:
+                  on_top: Callable[[CheckContext, list[Finding]], object] | None = None) -> CheckResult:
     """Every chosen rule on one run: run rules once, layout rules on each checked top cell.
     ``on_top`` sees each checked top's context (its flat layout and extraction) with the
-    findings of its layout rules, before the context is dropped (pictures use it)."""
+    findings of its layout rules, before the context is dropped; what it returns is kept
+    in ``per_top`` (pictures use it)."""
     findings: list[Finding] = []
     devices: list[Device] | None = [] if want_devices else None
     run_rules = tuple(rule for rule in rules if rule.scope is Scope.RUN)
     layout_rules = tuple(rule for rule in rules if rule.scope is Scope.LAYOUT)
+    layout = outcome.layout
+    tops = checked_tops(outcome, options.top, options.project_root) if outcome.status == "ok" and layout is not None else []
+    try:  # every top is counted before any is flattened: nothing is checked of a layout over the budget
+        for top in tops:
+            check_budget(layout, top.cell, options.budget, MAX_DEPTH)
+    except LayoutTooLarge as error:
+        outcome, tops = over_budget(outcome, error), []
     ctx = CheckContext(outcome, tech, options)
     for rule in run_rules:
         findings.extend(_checked(rule, ctx))
-    layout = outcome.layout
     shapes = 0
-    tops = checked_tops(outcome, options.top, options.project_root) if outcome.status == "ok" and layout is not None else []
+    per_top = []
     for top in tops:
-        flat = flatten(layout, top.cell)
+        flat = flatten(layout, top.cell, options.budget)
         shapes += len(flat.polygons)
         ctx = CheckContext(outcome, tech, options, flat)
         found = [f for rule in layout_rules for f in _checked(rule, ctx, top.name)]
         findings.extend(found)
         if on_top is not None:
-            on_top(ctx, found)
+            per_top.append(on_top(ctx, found))
         if want_devices:
             devices.extend(device_table(ctx))
     if severity:
         findings = [f.with_severity(severity[f.rule]) if f.rule in severity else f for f in findings]
     return CheckResult(
         findings=sorted(_unique(findings), key=Finding.sort_key), devices=devices,
-        cells=len(layout.cells) if layout else 0, shapes=shapes, tops=tops,
+        cells=len(layout.cells) if layout else 0, shapes=shapes, tops=tops, status=outcome.status,
+        per_top=per_top,
     )
+
+
+def over_budget(outcome: RunOutcome, error: LayoutTooLarge) -> RunOutcome:
+    """The run as a limit failure (script-limit reports it), on the line that drew the culprit."""
+    frames = outcome.layout.stack_frames(error.stack)
+    failure = ScriptFailure("limit", None, str(error), frames, stage="check")
+    return replace(outcome, status="limit", layout=None, failure=failure)
 
 
 def _checked(rule: Rule, ctx: CheckContext, cell: str | None = None) -> list[Finding]:

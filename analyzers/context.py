@@ -10,6 +10,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from latchwatch.analyzers.extraction.extract import Extraction, extract
+from latchwatch.analyzers.layout.budget import LayoutBudget
 from latchwatch.analyzers.layout.flatten import FlatLayout
 from latchwatch.analyzers.layout.provenance import Provenance, is_user_file
 from latchwatch.analyzers.model.findings import Finding, Related, Severity
@@ -25,6 +26,7 @@ class CheckOptions:
     project_root: str | None = None  # frames under it are user frames
     top: str | None = None  # check this cell as the top
     exact_devices: bool = False  # compute every device's tap distance to 1 nm
+    budget: LayoutBudget = LayoutBudget()  # what one top cell may flatten to
 
 
 class CheckContext:

@@ -14,6 +14,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import shapely
 
+from latchwatch.analyzers.layout.budget import LayoutBudget, check_budget
 from latchwatch.analyzers.layout.geometry import axis_aligned_rectangles
 from latchwatch.analyzers.model.captured import CapturedLayout
 
@@ -244,8 +245,14 @@ def repair(polygons: np.ndarray, non_finite: np.ndarray | None = None):
     return invalid[really_broken], reasons[really_broken], areas[really_broken], out
 
 
-def flatten(captured: CapturedLayout, top: int) -> FlatLayout:
-    """Expand the hierarchy under ``top`` into per-shape arrays with numpy transforms, repairing invalid polygons."""
+DEFAULT_BUDGET = LayoutBudget()
+
+
+def flatten(captured: CapturedLayout, top: int, budget: LayoutBudget = DEFAULT_BUDGET) -> FlatLayout:
+    """Expand the hierarchy under ``top`` into per-shape arrays with numpy transforms, repairing invalid polygons.
+
+    Raises LayoutTooLarge, before allocating anything, when it would expand beyond ``budget``."""
+    check_budget(captured, top, budget, MAX_DEPTH)
     inst = expand_instances(captured, top)
     grid = captured.precision / captured.unit
     order = np.argsort(inst.cell, kind="stable")

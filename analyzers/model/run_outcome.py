@@ -29,11 +29,14 @@ class ScriptFailure:
     # Innermost first: for an error, the traceback; for a timeout, the stack the
     # script was executing when it was stopped. Every frame, user or not.
     frames: tuple[Frame, ...] = ()
-    stage: str = "script"  # "capture": the script ran, latchwatch's capture of its layout failed
+    # "script" for what happened in the sandboxed run; "capture" when the script ran but
+    # latchwatch's capture of its layout failed; "check" for a limit latchwatch's own check
+    # of the layout met (the layout budget, the analysis's memory or time).
+    stage: str = "script"
 
     def __post_init__(self):
-        if self.stage not in ("script", "capture"):
-            raise ValueError(f"ScriptFailure.stage must be script or capture, got {self.stage!r}")
+        if self.stage not in ("script", "capture", "check"):
+            raise ValueError(f"ScriptFailure.stage must be script, capture or check, got {self.stage!r}")
         if self.kind not in FAILURE_KINDS:
             raise ValueError(f"ScriptFailure.kind must be one of {', '.join(FAILURE_KINDS)}, got {self.kind!r}")
 

@@ -10,6 +10,7 @@ MESSAGE = "script raised {exc_type}: {message}"
 MESSAGE_LAYOUT = "the layout file could not be read: {message}"
 MESSAGE_CAPTURE = ("the script ran, but latchwatch failed to capture its layout ({message}); nothing was checked. "
                    "This is a fault in latchwatch: please report it with the script")
+MESSAGE_NOT_RAISED = "the script did not run to its end: {message}"  # killed, refused, unreadable
 
 
 def check(ctx):
@@ -21,8 +22,10 @@ def check(ctx):
         text = MESSAGE_CAPTURE.format(message=failure.message or "no message")
     elif is_layout_file(ctx.outcome.script or ""):
         text = MESSAGE_LAYOUT.format(message=failure.message or "(no message)")
+    elif failure.exc_type is None:
+        text = MESSAGE_NOT_RAISED.format(message=failure.message or "(no message)")
     else:
-        text = MESSAGE.format(exc_type=failure.exc_type or "an error", message=failure.message or "(no message)")
+        text = MESSAGE.format(exc_type=failure.exc_type, message=failure.message or "(no message)")
     yield ctx.run_finding(RULE, text, failure.frames)
 
 

@@ -21,6 +21,7 @@ from latchwatch.server.config.project import ConfigError, expand_includes, find_
 from latchwatch.server.report.as_json import render_json
 from latchwatch.server.report.as_sarif import render_sarif
 from latchwatch.server.report.as_text import render_text
+from latchwatch.server.report.terminal import terminal_safe
 from latchwatch.server.runs import batch as sweep
 from latchwatch.server.runs import plan
 from latchwatch.server.runs.pipeline import CheckSettings, expand_paths
@@ -129,7 +130,7 @@ def _settings(args, config) -> CheckSettings:
         top=args.top, devices=args.devices,
         project_root=config.root or _guess_root(args.paths),
         require_sandbox=args.require_sandbox or config.require_sandbox,
-        pass_env=_pass_env(config.env, args.env),
+        pass_env=_pass_env(config.env, args.env), limits=config.limits,
     )
 
 
@@ -259,7 +260,7 @@ def main(argv: list[str] | None = None) -> int:
     try:
         return COMMANDS[args.command](args)
     except (UsageError, ConfigError, TechnologyError, TopCellError, HierarchyError, RunnerError, plan.SweepError) as exc:
-        print(f"latchwatch: {exc}", file=sys.stderr)
+        print(terminal_safe(f"latchwatch: {exc}"), file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         return 130

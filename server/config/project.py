@@ -26,6 +26,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from latchwatch.analyzers.model.findings import Severity
+from latchwatch.server.config.files import InputFileError, read_bytes
+from latchwatch.server.config.limits import DEFAULT_LIMITS, Limits, parse_limits
 from latchwatch.server.sandbox.policy import pass_env_problem
 
 if sys.version_info >= (3, 11):
@@ -36,7 +38,7 @@ else:  # pragma: no cover - exercised only on Python 3.10
 PYPROJECT = "pyproject.toml"
 OWN_FILE = "latchwatch.toml"
 KEYS = ("tech", "include", "exclude", "python", "timeout", "disable", "severity", "sweep", "require-sandbox", "env",
-        "html")
+        "html", "limits")
 SWEEP_KEYS = ("script", "function", "params")
 # Folders expand_includes never descends into: tool caches, virtual environments, VCS.
 SKIPPED_FOLDER = re.compile(r"^(\..*|__pycache__)$")
@@ -75,17 +77,23 @@ class ProjectConfig:
     require_sandbox: bool = False  # can only tighten: a missing protection becomes an error
     env: tuple[str, ...] = ()  # environment variables the scripts also see (PDK_ROOT)
     html: Path | None = None  # `latchwatch check` also writes the page there (resolved)
+    limits: Limits = DEFAULT_LIMITS  # [limits]: what one input may cost latchwatch itself
 
 
 def _read_toml(path: Path) -> dict:
     try:
-        with open(path, "rb") as handle:
-            return tomllib.load(handle)
+        raw = read_bytes(path, DEFAULT_LIMITS.file_bytes)  # read before its own [limits] are known
+        return tomllib.loads(raw.decode("utf-8"))
+    except RecursionError:
+        raise ConfigError(f"{path}: not valid TOML for latchwatch: arrays or tables nest deeper than it reads",
+                          file=path) from None
     except tomllib.TOMLDecodeError as error:
         raise ConfigError(f"{path}: not valid TOML: {error}", file=path) from None
     except UnicodeDecodeError as error:
         raise ConfigError(f"{path}: not valid TOML: not UTF-8 text (byte {error.object[error.start]:#04x} at "
                           f"offset {error.start})", file=path) from None
+    except InputFileError as error:
+        raise ConfigError(str(error), file=path) from None
     except OSError as error:
         raise ConfigError(f"{path}: cannot be read: {error.strerror}", file=path) from None
 
@@ -243,6 +251,8 @@ def _parse(table: dict, path: Path, prefix: str, known_rules: set[str] | None) -
         if not page.lower().endswith((".html", ".htm")):
             read.expect("html", "a path of an .html file (the page `latchwatch check` writes)", page)
         values["html"] = Path(read.path_value(page))
+    if "limits" in table:
+        values["limits"] = parse_limits(table["limits"], read.fail)
     return ProjectConfig(root=path.parent, source=path, **values)
 
 

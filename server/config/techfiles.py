@@ -22,6 +22,8 @@ from latchwatch.analyzers.technology.model import (
     technology_from_mapping,
 )
 from latchwatch.analyzers.technology.rule_tables import RELAXED_MARKER, NearPadLimit, RelaxedArea
+from latchwatch.server.config.files import InputFileError, file_problem, read_bytes
+from latchwatch.server.config.limits import DEFAULT_LIMITS
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -30,6 +32,7 @@ else:  # pragma: no cover - exercised on 3.10 only
 
 _PRESETS = resources.files("latchwatch.server.config") / "technologies"
 _TOML_POSITION = re.compile(r"\s*\(at line (\d+), column (\d+)\)\s*$")
+MAX_EXTENDS = 32  # files in one chain of extends; real chains are two or three deep
 
 
 def builtin_names() -> list[str]:
@@ -51,6 +54,10 @@ def _load(ref: str, base_dir: Path | None, referrer: str | None,
         cycle = " -> ".join([label for _, label in chain] + [source])
         raise TechnologyError(chain[-1][1], "extends", "a chain of extends without a cycle",
                               got_text=repr(cycle))
+    if len(chain) >= MAX_EXTENDS:
+        raise TechnologyError(chain[0][1], "extends", f"a chain of at most {MAX_EXTENDS} technology files",
+                              got_text=f"a longer chain ({chain[0][1]} -> {chain[1][1]} -> ... -> "
+                                       f"{chain[-1][1]} -> {source} -> ...)")
     raw = (_PRESETS / f"{ref}.toml").read_bytes() if path is None else _read(path, source)
     data = _parse(raw, source)
     base = None
@@ -75,6 +82,9 @@ def _locate(ref: str, base_dir: Path | None, referrer: str | None
         path = base_dir / path
     if path.is_file():
         return str(path), path.resolve(), path
+    if path.exists():  # a folder, a FIFO, a device: say so rather than "no such file"
+        raise TechnologyError(referrer or str(path), "extends" if referrer else "", "a technology file",
+                              got_text=file_problem(path, DEFAULT_LIMITS.file_bytes))
     expected = f"a built-in technology ({', '.join(names)}) or an existing technology file"
     close = difflib.get_close_matches(ref, names, n=1)
     if referrer is not None:
@@ -87,7 +97,10 @@ def _locate(ref: str, base_dir: Path | None, referrer: str | None
 
 def _read(path: Path, source: str) -> bytes:
     try:
-        return path.read_bytes()
+        return read_bytes(path, DEFAULT_LIMITS.file_bytes)
+    except InputFileError as exc:
+        raise TechnologyError(source, "", "a regular technology file within the size limit",
+                              got_text=str(exc)) from None
     except OSError as exc:
         raise TechnologyError(source, "", "a readable technology file",
                               got_text=exc.strerror or str(exc)) from None
@@ -101,6 +114,9 @@ def _parse(raw: bytes, source: str) -> dict:
                               got_text=f"an undecodable byte at offset {exc.start}") from None
     try:
         return tomllib.loads(text)
+    except RecursionError:
+        raise TechnologyError(source, "", "valid TOML", got_text="arrays or tables nested deeper than "
+                              "latchwatch reads") from None
     except tomllib.TOMLDecodeError as exc:
         reason, line, column = _syntax_error(exc, text)
         raise TechnologyError(source, "", "valid TOML", got_text=f"a syntax error: {reason}",

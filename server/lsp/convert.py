@@ -26,6 +26,7 @@ from pygls.uris import from_fs_path
 from latchwatch.analyzers.electrical.shunt import si
 from latchwatch.analyzers.model.findings import Device, Finding, Severity
 from latchwatch.server.report.model import corner_label
+from latchwatch.server.report.terminal import terminal_safe
 
 SOURCE = "latchwatch"
 MAX_RELATED = 30  # per diagnostic; a loop over hundreds of shapes must not flood the editor
@@ -220,7 +221,8 @@ def related_information(group: Group, read_line: ReadLine, encoding: str) -> lis
         if file is None or line is None or len(out) >= MAX_RELATED or (file, line, message) in seen:
             return
         seen.add((file, line, message))
-        out.append(types.DiagnosticRelatedInformation(_location(file, line, read_line, encoding), message))
+        out.append(types.DiagnosticRelatedInformation(_location(file, line, read_line, encoding),
+                                                      terminal_safe(message)))
 
     for finding in group.findings:
         if group.via:
@@ -249,7 +251,7 @@ def to_diagnostic(group: Group, devices: DeviceIndex, read_line: ReadLine, encod
     href = rule_href(worst.rule)
     return types.Diagnostic(
         range=rng,
-        message=group_message(group, devices),
+        message=terminal_safe(group_message(group, devices)),
         severity=SEVERITIES[max(f.severity for f in group.findings)],
         code=worst.rule,
         code_description=types.CodeDescription(href=href) if href else None,
@@ -387,7 +389,7 @@ def notice(message: str, severity=types.DiagnosticSeverity.Information, code: st
     """A diagnostic on the first line that is about the run, not about a shape (an
     untrusted folder, a configuration error)."""
     end = types.Position(0, line_length(_strip_eol(line_text), encoding))
-    return types.Diagnostic(range=types.Range(types.Position(0, 0), end), message=message,
+    return types.Diagnostic(range=types.Range(types.Position(0, 0), end), message=terminal_safe(message),
                             severity=severity, code=code, source=SOURCE)
 
 

@@ -21,9 +21,8 @@ from pathlib import Path
 
 from lsprotocol import types
 from pygls.exceptions import JsonRpcException, JsonRpcMethodNotFound
+from pygls.io_ import StdoutWriter
 from pygls.lsp.server import LanguageServer
-from pygls.protocol import LanguageServerProtocol
-from pygls.protocol.language_server import lsp_method
 from pygls.uris import from_fs_path, to_fs_path
 
 from latchwatch import __version__
@@ -46,7 +45,9 @@ from latchwatch.server.lsp.settings import (
     section_of,
     trust_root,
 )
+from latchwatch.server.lsp.transport import LatchwatchProtocol, StdinReader, run_framed
 from latchwatch.server.report.as_text import checked_lines
+from latchwatch.server.report.terminal import terminal_safe
 from latchwatch.server.runs import batch as sweep
 from latchwatch.server.runs import plan
 from latchwatch.server.runs.pipeline import read_text_or_none
@@ -54,45 +55,6 @@ from latchwatch.server.sandbox.runner import RunnerError
 
 logger = logging.getLogger("latchwatch.lsp")
 CONFIGURATION_TIMEOUT_S = 2.0
-IGNORED = object()  # a message answered with an error while it was being decoded
-
-
-class LatchwatchProtocol(LanguageServerProtocol):
-    """pygls' protocol, answering bad input instead of dropping it (docs/language-server.md)."""
-
-    @lsp_method(types.INITIALIZE)
-    def lsp_initialize(self, params: types.InitializeParams):
-        result = yield from super().lsp_initialize(params)
-        if not supports_pull(params.capabilities):
-            result.capabilities.diagnostic_provider = None  # pull is offered only to those who ask for it
-        return result
-
-    def structure_message(self, data):
-        try:
-            return super().structure_message(data)
-        except JsonRpcException as error:
-            method = data.get("method")
-            if "id" in data and method is not None:
-                detail = error.__cause__ or error
-                self._send_response(data["id"], error=types.ResponseError(
-                    code=error.code, message=f"{error.message} for {method}: {detail}"))
-            logger.warning("dropped a message that does not decode: %s", error)
-            return IGNORED
-
-    def handle_message(self, message):
-        if message is IGNORED:
-            return
-        if not hasattr(message, "jsonrpc"):  # valid JSON, but not a JSON-RPC message object
-            msg_id = message.get("id") if isinstance(message, dict) else None
-            self._send_response(msg_id, error=types.ResponseError(
-                code=-32600, message="Invalid Request: expected a JSON-RPC 2.0 message object"))
-            return
-        super().handle_message(message)
-
-
-def supports_pull(capabilities: types.ClientCapabilities) -> bool:
-    """True when the client can pull diagnostics (textDocument/diagnostic)."""
-    return bool(capabilities.text_document and capabilities.text_document.diagnostic is not None)
 
 
 @dataclass
@@ -123,6 +85,32 @@ class LatchwatchServer(LanguageServer):
         self.runs = ThreadPoolExecutor(max_workers=2, thread_name_prefix="latchwatch-run")
         self.techs = TechnologyCache()
         self.result_ids = itertools.count(1)
+        self.exit_code = 0
+
+    def _start_io_async(self, stdin=None, stdout=None):
+        """pygls' stdio server, framed by transport.run_framed, keeping the exit status that
+        ``exit`` sets (pygls swallows it): 0 after shutdown, else 1, and so at the end of input."""
+        self._stop_event = threading.Event()
+        self.protocol.set_writer(StdoutWriter(stdout or sys.stdout.buffer))
+
+        async def loop():
+            reader = StdinReader(stdin or sys.stdin.buffer, asyncio.get_running_loop(), self.thread_pool)
+            await run_framed(self._stop_event, reader, self.protocol, self.report_server_error)
+
+        try:
+            asyncio.run(loop())
+            self.exit_code = 0 if self.protocol._shutdown else 1
+            if self.exit_code:
+                logger.warning("the client closed the connection without shutdown and exit")
+        except SystemExit as stop:
+            self.exit_code = stop.code if isinstance(stop.code, int) else 1
+        except BrokenPipeError:
+            logger.error("the connection to the client is lost; shutting down")
+            self.exit_code = 1
+        except KeyboardInterrupt:
+            self.exit_code = 130
+        finally:
+            self.shutdown()
 
     # --- what the client can do --------------------------------------------------
 
@@ -139,7 +127,7 @@ class LatchwatchServer(LanguageServer):
         return bool(value)
 
     def log(self, message: str, kind=types.MessageType.Log) -> None:
-        self.window_log_message(types.LogMessageParams(type=kind, message=message))
+        self.window_log_message(types.LogMessageParams(type=kind, message=terminal_safe(message)))
 
     def report_server_error(self, error: Exception, source) -> None:
         if source is JsonRpcException and isinstance(error, ValueError):  # a body that is not JSON
@@ -361,6 +349,8 @@ def create_server() -> LatchwatchServer:
 
     @server.feature(types.TEXT_DOCUMENT_DID_OPEN)
     def did_open(ls: LatchwatchServer, params: types.DidOpenTextDocumentParams):
+        if not params.text_document.uri.startswith("file:"):
+            return  # untitled:, git:, notebook cells: nothing on disk to run or to trust
         ls.versions[params.text_document.uri] = params.text_document.version
         ls.request_run(params.text_document.uri)
 
@@ -409,6 +399,7 @@ def create_server() -> LatchwatchServer:
         return await actions.show_page(ls, args)
 
     @server.feature(types.SHUTDOWN)
+    @server.feature(types.EXIT)  # without a shutdown first: the runs end all the same
     def shutdown(ls: LatchwatchServer, *args):
         ls.scheduler.shutdown()
         ls.runs.shutdown(wait=False, cancel_futures=True)
@@ -443,6 +434,7 @@ def hover_at(ls: LatchwatchServer, uri: str, line: int):
         text = convert.hover_markdown(result.path, line + 1, result.devices, result.findings, limit)
     if text is None:
         return None
+    text = terminal_safe(text)  # cell and net names a script chose
     formats = ls.client_capabilities.text_document and ls.client_capabilities.text_document.hover
     formats = formats.content_format if formats else None
     if formats and types.MarkupKind.Markdown not in formats:
@@ -456,7 +448,7 @@ def serve(tcp: str | None = None) -> int:
     server = create_server()
     if tcp is None:
         server.start_io()
-        return 0
+        return server.exit_code
     host, _, port = tcp.rpartition(":")
     if not host or not port.isdigit():
         print(f"latchwatch: --tcp: expected HOST:PORT, got {tcp!r}", file=sys.stderr)

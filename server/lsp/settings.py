@@ -196,7 +196,7 @@ def document_settings(path: Path, editor: EditorSettings, workspace_folder: Path
         devices=True,  # the hover and the "2 of 5" counts read the device table
         project_root=root,
         require_sandbox=editor.require_sandbox or project.require_sandbox,
-        pass_env=tuple(dict.fromkeys([*project.env, *editor.env])),
+        pass_env=tuple(dict.fromkeys([*project.env, *editor.env])), limits=project.limits,
         hosted=True,  # edits re-run the same document: a corner host's fork skips interpreter start and imports
     )
     return DocumentSettings(check, project, root)

@@ -17,6 +17,7 @@ from latchwatch.analyzers.electrical.shunt import si
 from latchwatch.analyzers.layout.tops import CheckedTop
 from latchwatch.analyzers.model.findings import Device, Finding
 from latchwatch.server.report.model import Report, corner_label, for_display
+from latchwatch.server.report.terminal import terminal_safe
 
 PROGRAM = "latchwatch"
 
@@ -131,4 +132,4 @@ def render_text(report: Report, *, base: Path | None = None) -> str:
         lines += device_lines(shown.devices)
     lines += checked_lines(shown.runs)
     lines.append(summary_line(shown))
-    return "\n".join(lines) + "\n"
+    return terminal_safe("\n".join(lines) + "\n")  # names and messages a script chose

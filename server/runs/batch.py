@@ -20,6 +20,7 @@ from typing import TextIO
 from latchwatch.analyzers.model.findings import Device, Finding
 from latchwatch.analyzers.rules import RULES
 from latchwatch.server.report.model import Report, RunSummary, corner_label
+from latchwatch.server.report.terminal import terminal_safe
 from latchwatch.server.runs.pipeline import CheckSettings, check_run, read_text_or_none, run_path
 from latchwatch.server.runs.plan import Sweep, Task, plan_script, preview_functions
 from latchwatch.server.sandbox.hosts import available_cpus
@@ -66,11 +67,14 @@ def run_task(task: Task, settings: CheckSettings, source: str | None = None, can
         outcome = replace(outcome, corner=dict(task.corner or {}))
     if outcome.status == "cancelled" or (cancel is not None and cancel.is_set()):
         return None
-    findings, devices, summary, drawings = check_run(outcome, settings, read_source=read_source)
+    checked = check_run(outcome, settings, read_source=read_source, cancel=cancel)
+    if checked is None:
+        return None
+    findings, devices, summary, drawings = checked
     if task.function is not None:
         summary = replace(summary, function=task.function)
     cells = len(outcome.layout.cells) if outcome.layout is not None else 0
-    return RunResult(task, outcome.status, cells, summary, findings, devices, outcome.output, drawings)
+    return RunResult(task, summary.status, cells, summary, findings, devices, outcome.output, drawings)
 
 
 def _wants_preview(result: RunResult, text: str | None) -> list[str]:
@@ -208,7 +212,7 @@ class ProgressBar:
         if self.stream is None:
             return
         self._clear()
-        print(text, file=self.stream, flush=True)
+        print(terminal_safe(text), file=self.stream, flush=True)  # script output among the notes
 
     def update(self, done: int, total: int) -> None:
         """Redraw the bar for ``done`` of ``total`` runs (only on a terminal, only for several runs)."""

@@ -8,11 +8,14 @@ from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from latchwatch.analyzers.check import CheckOptions, check_outcome, select_rules
+from latchwatch.analyzers.check import CheckOptions, select_rules
 from latchwatch.analyzers.model.findings import Finding, Severity
-from latchwatch.analyzers.model.run_outcome import LAYOUT_SUFFIXES, RunOutcome
+from latchwatch.analyzers.model.run_outcome import LAYOUT_SUFFIXES, RunOutcome, ScriptFailure
 from latchwatch.analyzers.technology.model import Technology
+from latchwatch.server.config.files import file_problem, read_text
+from latchwatch.server.config.limits import DEFAULT_LIMITS, Limits
 from latchwatch.server.report.model import RunSummary
+from latchwatch.server.runs.analysis import analyse
 from latchwatch.server.runs.suppression import apply_suppressions
 from latchwatch.server.sandbox.runner import read_layout_file, run_script
 
@@ -35,6 +38,7 @@ class CheckSettings:
     require_sandbox: bool = False  # a missing sandbox protection is an error (SandboxUnavailable), not a fallback
     pass_env: tuple[str, ...] = ()  # environment variables the scripts also see (project `env`, `--env`)
     hosted: bool = False  # runs are forks of corner hosts (server/sandbox/hosts.py): many runs, the same settings
+    limits: Limits = DEFAULT_LIMITS  # the project's [limits]: files, layout budget, analysis memory and time
     # Turns each checked top (its CheckContext and findings) into a drawing kept with the run (server/pictures/).
     draw: Callable | None = field(default=None, compare=False)
 
@@ -61,8 +65,15 @@ def expand_paths(paths: Iterable[Path], excluded: Callable[[Path], bool] = lambd
 
 
 def run_path(path: Path, settings: CheckSettings, source: str | None = None, cancel=None) -> RunOutcome:
-    """Run a script, or read a layout file, into a RunOutcome."""
-    if path.suffix.lower() in LAYOUT_SUFFIXES:  # read in a child too: gdstk can crash on a corrupt file
+    """Run a script, or read a layout file, into a RunOutcome; a path that is no regular
+    file within the size limit is a failed run that says so (nothing starts)."""
+    layout_file = path.suffix.lower() in LAYOUT_SUFFIXES
+    # An editor's buffer is the script's source; a layout is read from disk all the same.
+    refused = _refusal(path, settings.limits) if source is None or layout_file else None
+    if refused is not None:
+        return RunOutcome(script=str(path), status="error", seconds=0.0, layout=None,
+                          failure=ScriptFailure("error", None, refused), output="", sandbox={})
+    if layout_file:  # read in a child too: gdstk can crash on a corrupt file
         kind = "oas" if path.suffix.lower() in (".oas", ".oasis") else "gds"
         return read_layout_file(path, kind, python=settings.python, timeout=max(settings.timeout, 60.0),
                                 cancel=cancel, require_sandbox=settings.require_sandbox)
@@ -71,29 +82,38 @@ def run_path(path: Path, settings: CheckSettings, source: str | None = None, can
                       hosted=settings.hosted, pass_env=settings.pass_env)
 
 
-def check_run(outcome: RunOutcome, settings: CheckSettings, read_source=None
-              ) -> tuple[list[Finding], list, RunSummary, list]:
-    """The findings, devices, summary and drawings (with ``settings.draw``) of one run
-    under the settings (suppression comments applied)."""
+def _refusal(path: Path, limits: Limits) -> str | None:
+    try:
+        return file_problem(path, limits.file_bytes, limits.file_hint())
+    except OSError:
+        return None  # the run itself reports a file it cannot read
+
+
+def check_run(outcome: RunOutcome, settings: CheckSettings, read_source=None,
+              cancel=None) -> tuple[list[Finding], list, RunSummary, list] | None:
+    """The findings, devices, summary and drawings (with ``settings.draw``) of one run under
+    the settings (suppression comments applied), checked in an analysis process under the
+    [limits] (server/runs/analysis.py). None when ``cancel`` was set during the check."""
     rules = select_rules(settings.select or None, settings.ignore, settings.disable)
     options = CheckOptions(
         project_root=str(settings.project_root) if settings.project_root else None,
-        top=settings.top, exact_devices=settings.devices,
+        top=settings.top, exact_devices=settings.devices, budget=settings.limits.budget(),
     )
-    drawings: list = []
-    on_top = None if settings.draw is None else (lambda ctx, found: drawings.append(settings.draw(ctx, found)))
-    result = check_outcome(outcome, settings.tech, options, rules=rules, severity=settings.severity,
-                           want_devices=settings.devices, on_top=on_top)
+    result = analyse(outcome, settings.tech, options, settings.limits, rules=rules, severity=settings.severity,
+                     want_devices=settings.devices, cancel=cancel, on_top=settings.draw)
+    if result is None:
+        return None
     findings = apply_suppressions(result.findings, read_source or read_text_or_none)
-    summary = RunSummary(script=outcome.script, corner=outcome.corner, status=outcome.status,
+    summary = RunSummary(script=outcome.script, corner=outcome.corner, status=result.status,
                          seconds=round(outcome.seconds, 3), cells=result.cells, shapes=result.shapes,
                          sandbox=outcome.sandbox, tops=tuple(result.tops))
-    return findings, result.devices or [], summary, drawings
+    return findings, result.devices or [], summary, result.per_top
 
 
-def read_text_or_none(file: str | Path) -> str | None:
-    """The file's text (undecodable bytes replaced), or None when it cannot be read."""
+def read_text_or_none(file: str | Path, limits: Limits = DEFAULT_LIMITS) -> str | None:
+    """The file's text (undecodable bytes replaced), or None when it cannot be read or is
+    no regular file within the size limit (server/config/files.py)."""
     try:
-        return Path(file).read_text(encoding="utf-8", errors="replace")
-    except OSError:
+        return read_text(file, limits.file_bytes)
+    except OSError:  # InputFileError among them
         return None

@@ -41,6 +41,8 @@ from collections.abc import Iterable
 from dataclasses import dataclass
 from pathlib import Path
 
+from latchwatch.server.config.files import read_bytes
+from latchwatch.server.config.limits import DEFAULT_LIMITS
 from latchwatch.server.config.project import ProjectConfig
 
 CORNER_SEED = 7
@@ -149,8 +151,8 @@ def module_names(script: Path) -> set[str] | None:
     without running it; None when that cannot be known (unreadable, a syntax error, or a
     ``from ... import *``), so that the run itself reports it."""
     try:
-        tree = ast.parse(Path(script).read_bytes())
-    except (OSError, SyntaxError, ValueError):
+        tree = ast.parse(read_bytes(script, DEFAULT_LIMITS.file_bytes))
+    except (OSError, SyntaxError, ValueError, RecursionError, MemoryError):
         return None
     names: set[str] = set()
     for node in ast.walk(tree):

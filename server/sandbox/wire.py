@@ -10,6 +10,7 @@ every length and offset so a truncated or foreign payload gives a clear error.
 from __future__ import annotations
 
 import json
+import math
 import struct
 
 import numpy as np
@@ -41,6 +42,8 @@ def decode_payload(buffer: bytes | bytearray | memoryview) -> tuple[dict, list[n
         header = json.loads(bytes(view[_PREFIX:data_start]).decode("utf-8"))
     except (UnicodeDecodeError, json.JSONDecodeError) as error:
         raise WireError(f"payload header is not valid JSON: {error}") from None
+    except RecursionError:
+        raise WireError("payload header nests deeper than a layout header does") from None
     if not isinstance(header, dict) or header.get("version") != WIRE_VERSION:
         raise WireError(f"payload header has version {header.get('version') if isinstance(header, dict) else None!r},"
                         f" expected {WIRE_VERSION}")
@@ -49,11 +52,14 @@ def decode_payload(buffer: bytes | bytearray | memoryview) -> tuple[dict, list[n
         try:
             dtype, shape, offset, nbytes = descriptor
             shape = tuple(int(n) for n in shape)
+            offset, nbytes = int(offset), int(nbytes)
         except (TypeError, ValueError):
             raise WireError(f"array {number}: malformed descriptor {descriptor!r}") from None
         if dtype not in DTYPES:
             raise WireError(f"array {number}: unexpected dtype {dtype!r}")
-        count = int(np.prod(shape, dtype=np.int64))
+        if any(n < 0 for n in shape):
+            raise WireError(f"array {number}: negative dimension in shape {shape}")
+        count = math.prod(shape)  # Python integers: a forged shape cannot overflow into a small count
         if count * np.dtype(dtype).itemsize != nbytes or offset < 0:
             raise WireError(f"array {number}: {nbytes} bytes do not hold shape {shape} of {dtype}")
         start = data_start + offset
@@ -117,10 +123,24 @@ def _named_cells(rows, cell_count: int, stack_count: int) -> list[NamedCell]:
     return named
 
 
+_LABEL_FIELDS = ("label_texttype", "label_origin", "label_stack")
+_REFERENCE_FIELDS = ("ref_origin", "ref_rotation", "ref_magnification", "ref_x_reflection", "ref_columns",
+                     "ref_rows", "ref_v1", "ref_v2", "ref_stack")
+
+
 def _check_cell(cell: CapturedCell, number: int, cell_count: int) -> None:
+    """Every array agrees with the others, so that flattening indexes only what is there
+    (a forged payload is a WireError here, not an IndexError there)."""
     n = len(cell.poly_layer)
     if not (len(cell.poly_datatype) == len(cell.poly_stack) == n and len(cell.poly_offsets) == n + 1):
         raise WireError(f"cell {cell.name!r}: polygon arrays disagree in length")
+    if any(len(getattr(cell, name)) != len(cell.label_layer) for name in _LABEL_FIELDS):
+        raise WireError(f"cell {cell.name!r}: label arrays disagree in length")
+    if any(len(getattr(cell, name)) != len(cell.ref_cell) for name in _REFERENCE_FIELDS):
+        raise WireError(f"cell {cell.name!r}: reference arrays disagree in length")
+    if len(cell.ref_explicit_offsets) and (cell.ref_explicit_offsets[0] != 0
+                                           or np.any(np.diff(cell.ref_explicit_offsets) < 0)):
+        raise WireError(f"cell {cell.name!r}: explicit repetition offsets are not ascending from 0")
     if n and (cell.poly_offsets[0] != 0 or cell.poly_offsets[-1] != len(cell.points)
               or np.any(np.diff(cell.poly_offsets) < 0)):
         raise WireError(f"cell {cell.name!r}: polygon offsets do not index its {len(cell.points)} points")

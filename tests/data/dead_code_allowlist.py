@@ -20,3 +20,4 @@ _._stop_event  # LanguageServer._stop_event: what pygls's shutdown() sets to end
 # Protocol handlers, called by pygls through their @server.feature registration.
 _.initialize, _.did_open, _.did_change, _.did_save, _.did_close
 _.did_change_configuration, _.pull_diagnostics, _.code_action
+_._start_io_async  # pygls's stdio server, replaced to frame with server/lsp/transport.py
