@@ -91,7 +91,8 @@ def latchwatch_here() -> str:
 
 
 def check(command: list[str], cwd: Path, *args: str) -> dict:
-    proc = subprocess.run([*command, "check", "--format", "json", "--devices", *args], cwd=cwd,
+    # --timeout: importing gdsfactory alone takes seconds, more on a busy machine.
+    proc = subprocess.run([*command, "check", "--format", "json", "--devices", "--timeout", "240", *args], cwd=cwd,
                           capture_output=True, text=True, timeout=300)
     assert proc.returncode in (0, 1), f"exit {proc.returncode}\n{proc.stderr}"
     return json.loads(proc.stdout)
@@ -135,7 +136,11 @@ def test_a_guarded_pdk_transistor_passes_and_the_bare_one_fails_at_the_users_lin
     # The PDK drew the transistor's shapes (cached cells it shares with the ringed one);
     # the user's frames are the call that asked for this transistor.
     assert [(f["file"], f["line"]) for f in finding["stack"]] == [("pair.py", finding["line"])]
-    assert finding["placements"][0]["cell"] == "PAIR" and "BNone" in finding["placements"][0]["instance"]
+    # Placements: the transistor in PAIR, placed by that line with ``<<`` and moved
+    # (the move keeps the insert's line), then the PDK's own cells inside it.
+    outer = finding["placements"][0]
+    assert (outer["file"], outer["line"], outer["cell"]) == ("pair.py", finding["line"], "PAIR")
+    assert "BNone" in outer["instance"]
     # The nearest tap is the ring, on the line of the ringed transistor, at its outer edge x = 1.44.
     ring = [r for r in finding["related"] if r.get("location")]
     assert [r["line"] for r in ring] == [line_of(PAIR, 'ringed = top << nfet(bulk="Guard Ring")')]
@@ -215,6 +220,8 @@ def test_the_gdsfactory_example(tmp_path):
     assert finding["value"] == pytest.approx(23.25, abs=2e-3) and finding["limit"] == 20.0
     assert finding["bbox"] == pytest.approx([56.0, 0.0, 59.0, 4.0], abs=1e-6)
     [placement] = finding["placements"]
+    # The second group's array, moved into place after its add_ref: the add_ref's line.
+    assert placement["line"] == line_of(text, "fingers = c.add_ref(pmos_switch(), columns=count")
     assert placement["instance"].endswith("[5,0]")
     [tap] = finding["related"]
     assert tap["line"] == line_of(text, "c << gf.components.rectangle(size=(1.5, h), layer=ACTIVE)")
