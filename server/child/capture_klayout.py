@@ -132,9 +132,12 @@ def _shape_insert(base, recorder, kdb):
 def _placement_changing(change, instance_log):
     """``change(instance, ...)`` logged as (layout, parent, placement after, placement before)."""
 
-    def changed(self, *args):
-        before = self.cell_inst
-        result = change(self, *args)
+    def changed(self, *args, **kwargs):
+        try:
+            before = self.cell_inst
+        except Exception:  # an instance KLayout no longer holds: the call raises as it would unlogged
+            return change(self, *args, **kwargs)
+        result = change(self, *args, **kwargs)
         parent = self.parent_cell
         if parent is not None:
             instance_log.append(((parent.layout(), parent.cell_index(), self.cell_inst, before), None, -1, -1, 0))
