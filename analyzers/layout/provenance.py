@@ -103,12 +103,9 @@ class Provenance:
             self._stack_cache[key] = Anchor(frames[0] if frames else None, frames)
         return self._stack_cache[key]
 
-    def placements(self, instance: int) -> tuple[Placement, ...]:
-        """The reference placements from the top cell down to a flat instance, arrays named with column and row."""
-        return tuple(placement for placement, _anchor in self._placement_chain(instance))
-
     def _placement_chain(self, instance: int) -> list[tuple[Placement, Anchor]]:
-        """Each placement from the top cell down to a flat instance, with the anchor of the line that made it."""
+        """The reference placements from the top cell down to a flat instance, arrays named with
+        column and row, each with the anchor of the line that made it."""
         out = []
         cells = self.captured.cells
         inst = self.flat.instances

@@ -45,9 +45,9 @@ def test_placements_name_instances_with_row_and_column():
     flat = flatten(layout(unit, top, frames=pframes, stacks=[(0,)]), 1)
     p = Provenance(flat, "/proj")
     last = len(flat.polygons) - 1
-    (placement,) = p.placements(int(flat.instance[last]))
-    assert (placement.line, placement.cell, placement.instance) == (40, "ROW", "UNIT[3,1]")
     loc = p.locate_shape(last)
+    (placement,) = loc["placements"]
+    assert (placement.line, placement.cell, placement.instance) == (40, "ROW", "UNIT[3,1]")
     # A shape without user frames is published on the placement that brought it in.
     assert loc["line"] == 40 and loc["cell"] == "ROW"
 
