@@ -4,6 +4,8 @@ User frames are frames in files under the project root, outside site-packages an
 the standard library. The anchor of a shape is its innermost user frame whose line is
 layer-specific: every shape created through that line lies on one layer. A generic
 drawing helper, whose lines draw on every layer, is thereby skipped for its caller.
+A shape of a cell that a cell factory made once and handed out again (gdsfactory's
+``@gf.cell`` cache) is published, where it was brought in by another call, on that call.
 """
 
 from __future__ import annotations
@@ -84,6 +86,9 @@ class Provenance:
                 layers.setdefault((frame.file, frame.line), set()).add((layer, datatype))
         return layers
 
+    def _layer_specific(self, frame: Frame) -> bool:
+        return len(self._line_layers.get((frame.file, frame.line), ())) == 1
+
     def anchor(self, stack_id: int, layer_specific: bool = True) -> Anchor:
         key = (int(stack_id), layer_specific)
         if key not in self._stack_cache:
@@ -91,15 +96,16 @@ class Provenance:
             pick = 0
             if layer_specific:
                 for i, f in enumerate(user):
-                    if len(self._line_layers.get((f.file, f.line), ())) == 1:
+                    if self._layer_specific(f):
                         pick = i
                         break
             frames = tuple(user[pick:])
             self._stack_cache[key] = Anchor(frames[0] if frames else None, frames)
         return self._stack_cache[key]
 
-    def placements(self, instance: int) -> tuple[Placement, ...]:
-        """The reference placements from the top cell down to a flat instance, arrays named with column and row."""
+    def _placement_chain(self, instance: int) -> list[tuple[Placement, Anchor]]:
+        """The reference placements from the top cell down to a flat instance, arrays named with
+        column and row, each with the anchor of the line that made it."""
         out = []
         cells = self.captured.cells
         inst = self.flat.instances
@@ -113,20 +119,42 @@ class Provenance:
             elif cell.ref_columns[ref] * cell.ref_rows[ref] > 1:
                 name = f"{name}[{inst.column[child]},{inst.row[child]}]"
             a = self.anchor(int(cell.ref_stack[ref]), layer_specific=False)
-            out.append(Placement(a.frame.file if a.frame else None, a.frame.line if a.frame else None, cell.name, name))
-        return tuple(out)
+            placement = Placement(a.frame.file if a.frame else None, a.frame.line if a.frame else None, cell.name, name)
+            out.append((placement, a))
+        return out
+
+    def _reused_cell_anchor(self, anchor: Anchor, chain: list[tuple[Placement, Anchor]]) -> Anchor:
+        """The anchor of one occurrence of a shape that a call into a cell factory drew.
+
+        A factory that caches its cells (gdsfactory's ``@gf.cell``) draws a cell once, on
+        the first call that asks for it, and hands the same cell to every later call: the
+        shape's stack names that first call. Where the shape's line drew several layers (a
+        call into a factory, not a line that draws this shape) and a placement on this
+        occurrence's path was made by another line of a function on the shape's stack, a
+        sibling call brought the cached cell in here: that line is the occurrence's anchor.
+        """
+        frame = anchor.frame
+        if frame is None or self._layer_specific(frame):
+            return anchor
+        drawn_on = {(f.file, f.function): f.line for f in anchor.stack}
+        for _placement, placed in reversed(chain):  # innermost placement first
+            where = placed.frame
+            if where is not None and drawn_on.get((where.file, where.function), where.line) != where.line:
+                return placed
+        return anchor
 
     def locate_shape(self, shape: int) -> dict:
         """Finding fields (file, line, stack, placements, cell) for a flat shape."""
-        return self._locate(self.anchor(int(self.flat.stack[shape])), int(self.flat.instance[shape]))
+        chain = self._placement_chain(int(self.flat.instance[shape]))
+        return self._locate(self._reused_cell_anchor(self.anchor(int(self.flat.stack[shape])), chain), chain)
 
     def locate_label(self, label: int) -> dict:
         """Finding fields for a flat label: the line that added it."""
         return self._locate(self.anchor(int(self.flat.label_stack[label]), layer_specific=False),
-                            int(self.flat.label_instance[label]))
+                            self._placement_chain(int(self.flat.label_instance[label])))
 
-    def _locate(self, anchor: Anchor, instance: int) -> dict:
-        placements = self.placements(instance)
+    def _locate(self, anchor: Anchor, chain: list[tuple[Placement, Anchor]]) -> dict:
+        placements = tuple(placement for placement, _anchor in chain)
         frame = anchor.frame
         file = frame.file if frame else None
         line = frame.line if frame else None

@@ -33,6 +33,15 @@ SHAPE_INSERT_ALIASES = (
 )
 
 
+# Instance properties and methods that change a placement in place (kfactory's and
+# gdsfactory's move, rotate, mirror, connect and xmin-style setters use them): each
+# change is logged as the placement before and after, so the instance keeps the
+# stack of its insert.
+PLACEMENT_SETTERS = ("trans", "dtrans", "cplx_trans", "dcplx_trans", "cell_inst", "dcell_inst",
+                     "a", "b", "da", "db", "na", "nb", "cell_index", "cell")
+PLACEMENT_METHODS = ("transform", "transform_into")
+
+
 # Cell methods that fill the cell with shapes made inside KLayout, which no insert
 # logged: such shapes take the stack of that call.
 BULK_CELL_CALLS = ("flatten", "copy_shapes", "move_shapes", "copy_tree", "move_tree")
@@ -47,6 +56,8 @@ class KlayoutRecorder(StackRecorder):
         self.shapes = []  # subject: the Shape inserted
         # subject: (layout, parent cell index, CellInstArray). Not the Instance: after a
         # flatten KLayout may crash on an Instance object that outlived its instance.
+        # A placement changed in place is a record without a stack whose subject also
+        # holds the CellInstArray before the change (_placement_changing).
         self.instances = []
         self.bulk = []  # subject: (layout, cell index) of a cell a flatten, a copy or a whole container filled
         self.installed = False
@@ -120,6 +131,36 @@ def _shape_insert(base, recorder, kdb):
     return insert
 
 
+def _placement_changing(change, instance_log):
+    """``change(instance, ...)`` logged as (layout, parent, placement after, placement before)."""
+
+    def changed(self, *args, **kwargs):
+        try:
+            before = self.cell_inst
+        except Exception:  # an instance KLayout no longer holds: the call raises as it would unlogged
+            return change(self, *args, **kwargs)
+        result = change(self, *args, **kwargs)
+        parent = self.parent_cell
+        if parent is not None:
+            instance_log.append(((parent.layout(), parent.cell_index(), self.cell_inst, before), None, -1, -1, 0))
+        return result
+
+    return changed
+
+
+def _log_placement_changes(instance_type, instance_log):
+    for name in PLACEMENT_SETTERS:
+        descriptor = instance_type.__dict__.get(name)
+        if descriptor is not None and hasattr(descriptor, "__set__"):
+            setattr(instance_type, name, property(descriptor.__get__,
+                                                  _placement_changing(descriptor.__set__, instance_log),
+                                                  doc=descriptor.__doc__))
+    for name in PLACEMENT_METHODS:
+        base = getattr(instance_type, name, None)
+        if base is not None:
+            setattr(instance_type, name, _placement_changing(base, instance_log))
+
+
 def install(recorder, kdb):
     """Replace the insertion methods of ``kdb`` (klayout.dbcore) by logging ones; idempotent per run."""
     if recorder.installed:
@@ -139,6 +180,7 @@ def install(recorder, kdb):
         return instance_log, (cell.layout(), cell.cell_index(), result.cell_inst)
 
     kdb.Cell.insert = _logging(kdb.Cell.insert, recorder, instance_route)
+    _log_placement_changes(instance_type, instance_log)
     for name in BULK_CELL_CALLS:
         base = getattr(kdb.Cell, name, None)
         if base is not None:

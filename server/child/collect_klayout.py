@@ -55,18 +55,26 @@ class _InstanceStacks:
     def __init__(self, records, stacks):
         self._buckets = {}
         for record in records:
-            layout, parent, placement = record[0]
-            key = (_layout_key(layout), parent, placement.hash())
-            self._buckets.setdefault(key, []).append((placement, stacks.of(record)))
+            subject = record[0]
+            layout, parent, placement = subject[:3]
+            if len(subject) == 4:  # a placement changed in place: it keeps the stack of its insert
+                sid = self._find(_layout_key(layout), parent, subject[3])
+                if sid < 0:
+                    continue
+            else:
+                sid = stacks.of(record)
+            self._buckets.setdefault((_layout_key(layout), parent, placement.hash()), []).append((placement, sid))
+
+    def _find(self, layout_key, parent, placement):
+        for candidate, sid in reversed(self._buckets.get((layout_key, parent, placement.hash()), ())):
+            if candidate == placement:
+                return sid
+        return -1
 
     def get(self, layout, instance, default=-1):
         """The stack id of the last insert of an instance like this one into its parent cell, or ``default``."""
-        placement = instance.cell_inst
-        key = (_layout_key(layout), instance.parent_cell.cell_index(), placement.hash())
-        for candidate, sid in reversed(self._buckets.get(key, ())):
-            if candidate == placement:
-                return sid
-        return default
+        sid = self._find(_layout_key(layout), instance.parent_cell.cell_index(), instance.cell_inst)
+        return default if sid < 0 else sid
 
 
 def _layout_key(layout):

@@ -23,35 +23,61 @@ class StackRecorder:
         # chain id -> (code of the frame above the caller, ((code, lasti), ...) further out)
         self.chains = [(None, ())]
         self.chain_index = {}
+        # (code, caller's code, caller's offset, caller's chain id) -> chain id
+        self.derived = {}
         self.chain_of_frame = {}
         self.sweep_at = 4096
         self.written = []  # the layout files the script wrote (child/naming.py note_written), shared by the backends
 
     def chain_id(self, frame):
-        """Chain id for the frames from ``frame`` outwards (slow path, cached)."""
-        if frame is None:
-            return 0
-        if frame.f_code.co_filename in HARNESS_FILES:
-            self.chain_of_frame[frame] = 0
-            return 0
-        outer = []
-        above = frame.f_back
-        while above is not None and len(outer) < self.outer_depth:
-            code = above.f_code
-            if code.co_filename in HARNESS_FILES:
+        """Chain id for the frames from ``frame`` outwards (slow path, cached).
+
+        Walks out only to the first frame whose chain is known, then derives each new
+        frame's chain from its caller's: a helper called afresh for every shape (a new
+        frame each time, as gdsfactory's ``add_polygon`` callers are) costs one lookup.
+        """
+        pending = []
+        cid = 0
+        while frame is not None:
+            known = self.chain_of_frame.get(frame)
+            if known is not None:
+                cid = known
                 break
-            outer.append((code, above.f_lasti))
-            above = above.f_back
-        key = (id(frame.f_code), tuple((id(code), lasti) for code, lasti in outer))
-        cid = self.chain_index.get(key)
+            if frame.f_code.co_filename in HARNESS_FILES:
+                self.chain_of_frame[frame] = 0
+                break
+            pending.append(frame)
+            frame = frame.f_back
+        caller = frame
+        for frame in reversed(pending):  # outermost first: each one's caller is known by now
+            cid = self._chain_below(frame, caller, cid)
+            # A generator frame can be resumed from elsewhere: its callers are not fixed.
+            if not frame.f_code.co_flags & _GENERATOR_FLAGS:
+                if len(self.chain_of_frame) >= self.sweep_at:
+                    self._sweep()
+                self.chain_of_frame[frame] = cid
+            caller = frame
+        return cid
+
+    def _chain_below(self, frame, caller, caller_cid):
+        """The chain of ``frame`` whose caller ``caller`` (or None) has the chain ``caller_cid``."""
+        if caller is None or caller_cid == 0 or not self.outer_depth:
+            key = (id(frame.f_code), 0, -1, 0)
+        else:
+            key = (id(frame.f_code), id(caller.f_code), caller.f_lasti, caller_cid)
+        cid = self.derived.get(key)
         if cid is None:
-            cid = self.chain_index[key] = len(self.chains)
-            self.chains.append((frame.f_code, tuple(outer)))
-        # A generator frame can be resumed from elsewhere: its callers are not fixed.
-        if not frame.f_code.co_flags & _GENERATOR_FLAGS:
-            if len(self.chain_of_frame) >= self.sweep_at:
-                self._sweep()
-            self.chain_of_frame[frame] = cid
+            if key[3] == 0:
+                outer = ()
+            else:
+                caller_code, caller_outer = self.chains[caller_cid]
+                outer = ((caller_code, caller.f_lasti),) + caller_outer[:self.outer_depth - 1]
+            interned = (id(frame.f_code), tuple((id(code), lasti) for code, lasti in outer))
+            cid = self.chain_index.get(interned)
+            if cid is None:
+                cid = self.chain_index[interned] = len(self.chains)
+                self.chains.append((frame.f_code, outer))
+            self.derived[key] = cid
         return cid
 
     def _sweep(self):

@@ -45,8 +45,43 @@ def test_placements_name_instances_with_row_and_column():
     flat = flatten(layout(unit, top, frames=pframes, stacks=[(0,)]), 1)
     p = Provenance(flat, "/proj")
     last = len(flat.polygons) - 1
-    (placement,) = p.placements(int(flat.instance[last]))
-    assert (placement.line, placement.cell, placement.instance) == (40, "ROW", "UNIT[3,1]")
     loc = p.locate_shape(last)
+    (placement,) = loc["placements"]
+    assert (placement.line, placement.cell, placement.instance) == (40, "ROW", "UNIT[3,1]")
     # A shape without user frames is published on the placement that brought it in.
     assert loc["line"] == 40 and loc["cell"] == "ROW"
+
+
+def _factory_pair(draw_line_layers):
+    """A cell drawn once by a factory call on line 6 and brought in again by line 7.
+
+    Cells: 0 the drawn cell, 1 and 2 the factory's wrappers made on lines 6 and 7 (each
+    places cell 0), 3 the top placing both. ``draw_line_layers`` are the layers line 6 drew.
+    """
+    library = Frame("/usr/lib/python3/site-packages/pdk/cells.py", 30, "transistor")
+    pframes = [library, Frame(F, 6, "<module>"), Frame(F, 7, "<module>")]
+    drawn = CellBuilder("RECTANGLE")
+    for k, layer in enumerate(draw_line_layers):
+        drawn.rect(layer, 0, 3 * k, 1, 3 * k + 1, stack=0)
+    first = CellBuilder("FET_RINGED").ref(0, stack=1)
+    second = CellBuilder("FET_BARE").ref(0, stack=2)
+    top = CellBuilder("PAIR").ref(1).ref(2, origin=(60, 0))
+    flat = flatten(layout(drawn, first, second, top, frames=pframes, stacks=[(0, 1), (0, 1), (0, 2)]), 3)
+    return flat, Provenance(flat, "/proj")
+
+
+def test_a_cached_cell_is_published_on_the_call_that_brought_it_in():
+    # Line 6 called a factory that drew two layers: not the line of one shape. The
+    # occurrence placed by line 7 (the cached cell handed out again) is published there.
+    flat, p = _factory_pair([ACTIVE, PPLUS])
+    by_x = {round(float(flat.polygons[i].bounds[0])): i for i in range(len(flat.polygons)) if flat.layer[i] == ACTIVE[0]}
+    first, second = p.locate_shape(by_x[0]), p.locate_shape(by_x[60])
+    assert (first["line"], [f.line for f in first["stack"]]) == (6, [6])
+    assert (second["line"], [f.line for f in second["stack"]]) == (7, [7])
+    assert [pl.cell for pl in second["placements"]] == ["PAIR", "FET_BARE"]
+
+
+def test_a_line_that_draws_one_layer_keeps_its_shapes_wherever_they_are_placed():
+    flat, p = _factory_pair([ACTIVE])
+    lines = {p.locate_shape(i)["line"] for i in range(len(flat.polygons))}
+    assert lines == {6}

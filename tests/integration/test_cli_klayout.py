@@ -126,3 +126,22 @@ top.shapes(ly.layer(6, 0)).insert(pya.DBox(-2.5, 1.5, -1.5, 2.5))
     # As the gdstk script of test_cli.py: 31 um from the tap edge at x = -1.
     assert run.stdout.splitlines()[0] == (
         "far.py:6:1: error: P+ diffusion is 31.00 um from the nearest n-well tap (limit 20.00 um) [tap-distance]")
+
+
+def test_an_instance_moved_after_its_insert_keeps_the_insert_line(tmp_path):
+    # kfactory's and gdsfactory's ref.move(...), rotate, xmin = ... change the Instance in
+    # place, through its trans setters and transform().
+    report, lines = check(tmp_path, '''\
+box(top, NWELL, -5, -5, 60, 10)
+ntap(top, -3)
+unit = layout.create_cell("UNIT")
+pmos(unit)
+placed = top.insert(kdb.CellInstArray(unit.cell_index(), kdb.Trans()))   # the insert
+placed.transform(kdb.Trans(kdb.Vector(20000, 0)))
+placed.dtrans = kdb.DTrans(placed.dtrans.disp + kdb.DVector(6.0, 0.0))
+''')
+    [finding] = report["findings"]
+    # Moved to x = 26: the farthest point x = 30 is 31 um from the tap edge at x = -1 (analytic).
+    assert finding["value"] == pytest.approx(31.0, abs=1e-3)
+    assert finding["placements"] == [{"file": "gen.py", "line": line_of(lines, "# the insert"),
+                                      "cell": "TOP", "instance": "UNIT"}]

@@ -43,3 +43,15 @@ def test_caution_in_readme_and_rules_command():
     out = subprocess.run([sys.executable, "-m", "latchwatch", "rules"], capture_output=True,
                          text=True, check=True).stdout
     assert "not sign-off" in out and "JESD78" in out
+
+
+def test_the_demo_prints_what_the_readme_shows():
+    """The demo's check, in latchwatch's own environment (no gdsfactory: examples/gdsfactory/
+    is left out by examples/latchwatch.toml), prints the README's block."""
+    command = _setup_commands()[0].split(" && ")[-1]
+    assert command == ".venv/bin/latchwatch check --tech demo examples/"
+    shown = README.split("The demo prints", 1)[1].split("```\n", 2)[1]
+    run = subprocess.run([sys.executable, "-m", "latchwatch", *command.split()[1:]], cwd=ROOT,
+                         capture_output=True, text=True, timeout=300)
+    assert run.returncode == 1, run.stderr
+    assert run.stdout == shown
