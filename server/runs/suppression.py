@@ -15,6 +15,7 @@ import tokenize
 from collections.abc import Callable, Iterable
 
 from latchwatch.analyzers.model.findings import Finding
+from latchwatch.analyzers.model.run_outcome import is_layout_file
 
 MARKER = re.compile(r"#\s*latchwatch:\s*ignore(?:\[(?P<rules>[^\]]*)\])?\s*\Z")
 
@@ -69,7 +70,8 @@ def apply_suppressions(
 
     def table_for(file: str) -> Suppressions:
         if file not in tables:
-            text = read_source(file)
+            # Comments live in Python source; a layout file is never read for them.
+            text = None if is_layout_file(file) else read_source(file)
             tables[file] = suppressions_in_source(text) if text is not None else {}
         return tables[file]
 

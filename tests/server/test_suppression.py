@@ -105,3 +105,12 @@ def test_added_comment_is_recognised():
 def test_backslash_continuation_cannot_take_a_comment():
     with pytest.raises(ValueError, match="backslash"):
         add_suppression("x = a + \\\n", "tap-distance")
+
+
+def test_a_layout_file_is_never_read_for_comments():
+    # Suppression comments live in Python source: a finding on a .gds is kept without
+    # reading the file (which may be a device or huge).
+    read = []
+    finding = Finding(rule="tap-distance", severity=Severity.ERROR, message="m", file="/x/top.gds", line=3)
+    kept = apply_suppressions([finding], lambda f: read.append(f) or "")
+    assert kept == [finding] and read == []
