@@ -32,6 +32,7 @@ import numpy as np
 import scipy.sparse as sp
 import shapely
 from scipy import ndimage
+from scipy.spatial import cKDTree
 from scipy.sparse.linalg import splu
 
 GROWTH = 2.0  # largest ratio between neighbouring cell sizes
@@ -74,6 +75,10 @@ class SheetProblem:
     devices: np.ndarray
     sheet: float  # ohm per square
     grid: float | None = None  # largest cell; None: adaptive
+    # A sink per unit area (1/um^2 with sheet = 1): the steady diffusion-with-recombination
+    # equation laplacian(n) = n / L^2 has reaction = 1 / L^2 (analyzers/electrical/transport.py).
+    # With a reaction, cells with no path to a tap are kept: the matrix stays regular.
+    reaction: float = 0.0
 
 
 @dataclass
@@ -147,8 +152,9 @@ def dimensions(geoms: np.ndarray) -> np.ndarray:
     return np.minimum(b[:, 2] - b[:, 0], b[:, 3] - b[:, 1])
 
 
-def make_mesh(problem: SheetProblem) -> tuple[Mesh, float]:
-    """The grid of a problem and its outline-layer thickness."""
+def make_mesh(problem: SheetProblem, max_cell: float | None = None) -> tuple[Mesh, float]:
+    """The grid of a problem and its outline-layer thickness; ``max_cell`` caps the
+    adaptive grid's largest cell (a diffusion length has to be resolved everywhere)."""
     x0, y0, x1, y1 = problem.box
     side = max(x1 - x0, y1 - y0)
     if problem.grid is not None:
@@ -157,7 +163,7 @@ def make_mesh(problem: SheetProblem) -> tuple[Mesh, float]:
         dims = np.r_[dimensions(problem.devices), dimensions(problem.taps)]
         dims = dims[dims > 0]
         fine = (dims.min() if len(dims) else side) / CELLS_ACROSS
-        coarse = side * COARSE_FRACTION
+        coarse = side * COARSE_FRACTION if max_cell is None else min(side * COARSE_FRACTION, max_cell)
     fine = max(min(fine, side / 4), side * 1e-5)
     coarse = max(coarse, fine)
     layer = fine * LAYER_FRACTION
@@ -243,6 +249,11 @@ class _Network:
     matrix: sp.csc_matrix
     node: np.ndarray  # (ny, nx) node number of each kept free cell, -1 elsewhere
     tap: np.ndarray  # (ny, nx) bool
+    # Every link from a free cell to a tap cell: (node, conductance, flat index of the tap
+    # cell); the current into a tap is the sum of conductance * potential over its links.
+    ground_node: np.ndarray
+    ground_g: np.ndarray
+    ground_cell: np.ndarray
 
 
 def build_network(mesh: Mesh, problem: SheetProblem) -> _Network:
@@ -258,14 +269,18 @@ def build_network(mesh: Mesh, problem: SheetProblem) -> _Network:
     beside_tap[:, 1:] |= tap[:, :-1]
     beside_tap[:-1, :] |= tap[1:, :]
     beside_tap[1:, :] |= tap[:-1, :]
-    component, _ = ndimage.label(free)
-    grounded = np.unique(component[free & beside_tap])
-    keep = free & np.isin(component, grounded[grounded > 0])
+    if problem.reaction > 0:
+        keep = free
+    else:
+        component, _ = ndimage.label(free)
+        grounded = np.unique(component[free & beside_tap])
+        keep = free & np.isin(component, grounded[grounded > 0])
     node = np.full(mesh.shape, -1, np.int64)
     n = int(keep.sum())
     node[keep] = np.arange(n)
     dx, dy, rs = np.diff(mesh.x), np.diff(mesh.y), problem.sheet
-    rows, cols, vals, ground_node, ground_g = [], [], [], [], []
+    rows, cols, vals, ground_node, ground_g, ground_cell = [], [], [], [], [], []
+    cell_index = np.arange(mesh.cells).reshape(mesh.shape)
     # Neighbours along each axis: face over centre distance; to a tap, over half the free cell.
     for axis in (1, 0):
         a, b = (np.s_[:, :-1], np.s_[:, 1:]) if axis == 1 else (np.s_[:-1, :], np.s_[1:, :])
@@ -280,15 +295,18 @@ def build_network(mesh: Mesh, problem: SheetProblem) -> _Network:
             touch = keep[here] & tap[there]
             ground_node.append(node[here][touch])
             ground_g.append(np.broadcast_to(face / (rs * half_step / 2), touch.shape)[touch])
+            ground_cell.append(cell_index[there][touch])
     r, c, v = np.concatenate(rows), np.concatenate(cols), np.concatenate(vals)
-    degree = (np.bincount(r, v, n) + np.bincount(c, v, n)
-              + np.bincount(np.concatenate(ground_node), np.concatenate(ground_g), n))
+    ground_node, ground_g = np.concatenate(ground_node), np.concatenate(ground_g)
+    degree = np.bincount(r, v, n) + np.bincount(c, v, n) + np.bincount(ground_node, ground_g, n)
+    if problem.reaction > 0:
+        degree += (dy[:, None] * dx[None, :])[keep] * problem.reaction / rs
     diag = np.arange(n)
     matrix = sp.csc_matrix((np.r_[-v, -v, degree], (np.r_[r, c, diag], np.r_[c, r, diag])), shape=(n, n))
-    return _Network(matrix, node, tap)
+    return _Network(matrix, node, tap, ground_node, ground_g, np.concatenate(ground_cell))
 
 
-def _outlines(mesh: Mesh, network: _Network, label: np.ndarray, n_devices: int):
+def outlines(mesh: Mesh, network: _Network, label: np.ndarray, n_devices: int):
     """Per device: the node numbers of its cells that border the rest of the sheet, and
     the length of that border (the weight of uniform current density)."""
     dx, dy = np.diff(mesh.x), np.diff(mesh.y)
@@ -319,7 +337,7 @@ def solve(problem: SheetProblem) -> SheetResult:
     mesh, _layer = make_mesh(problem)
     network = build_network(mesh, problem)
     label = paint(mesh, problem.devices, np.arange(n_dev))
-    dev, nodes, w, shorted = _outlines(mesh, network, label, n_dev)
+    dev, nodes, w, shorted = outlines(mesh, network, label, n_dev)
     resistance = np.full(n_dev, np.inf)
     resistance[shorted] = 0.0
     n = network.matrix.shape[0]
@@ -327,11 +345,15 @@ def solve(problem: SheetProblem) -> SheetResult:
     dev, nodes, w = dev[keep], nodes[keep], w[keep]
     if n == 0 or len(dev) == 0:
         return SheetResult(resistance, n, 0)
-    lu = splu(network.matrix, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
-              options={"SymmetricMode": True})
+    lu = factorize(network.matrix)
     devices, bound, iterations = equipotential_resistance(lu, n, dev, nodes, w)
     resistance[devices] = bound
     return SheetResult(resistance, n, iterations)
+
+
+def factorize(matrix: sp.csc_matrix):
+    """The sparse LU factorization of a symmetric positive definite network matrix."""
+    return splu(matrix, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0, options={"SymmetricMode": True})
 
 
 def equipotential_resistance(lu, n: int, dev: np.ndarray, nodes: np.ndarray, w: np.ndarray):
@@ -384,3 +406,43 @@ def equipotential_resistance(lu, n: int, dev: np.ndarray, nodes: np.ndarray, w: 
         rr = rr_new
         live &= ~settled & (pap > 0)
     return devices, bound, iterations
+
+
+@dataclass
+class SourceResult:
+    """Potentials of a sheet carrying distributed sources, at its devices (the emitters)."""
+
+    peak: np.ndarray  # V per device: the highest potential over its cells (0 where none is kept)
+    at: np.ndarray  # (n_devices, 2) the centre of the cell where it occurs
+    cells: int
+
+
+def source_potentials(problem: SheetProblem, points: np.ndarray, currents: np.ndarray) -> SourceResult:
+    """Currents (A) entering the sheet at ``points`` (each at the nearest cell of the sheet
+    that reaches a tap) and leaving through the grounded taps: the potential of every
+    device's cells, its peak and where it sits. The devices are not electrodes here: an
+    emitter at its rail draws no current until it is forward-biased, so the sheet's
+    potential under it is its forward bias."""
+    n_dev = len(problem.devices)
+    peak, at = np.zeros(n_dev), np.full((n_dev, 2), np.nan)
+    mesh, _layer = make_mesh(problem)
+    network = build_network(mesh, problem)
+    n = network.matrix.shape[0]
+    if n == 0 or len(points) == 0:
+        return SourceResult(peak, at, n)
+    xc, yc = (mesh.x[:-1] + mesh.x[1:]) / 2, (mesh.y[:-1] + mesh.y[1:]) / 2
+    rows, cols = np.nonzero(network.node >= 0)
+    _, nearest = cKDTree(np.c_[xc[cols], yc[rows]]).query(points)
+    rhs = np.bincount(network.node[rows[nearest], cols[nearest]], currents, n)
+    potential = factorize(network.matrix).solve(rhs)
+    label = paint(mesh, problem.devices, np.arange(n_dev))
+    on = (label >= 0) & (network.node >= 0)
+    if not on.any():
+        return SourceResult(peak, at, n)
+    dev, value = label[on], potential[network.node[on]]
+    jj, ii = np.nonzero(on)
+    order = np.lexsort((-value, dev))
+    first = order[np.r_[True, dev[order][1:] != dev[order][:-1]]]
+    peak[dev[first]] = value[first]
+    at[dev[first]] = np.c_[xc[ii[first]], yc[jj[first]]]
+    return SourceResult(peak, at, n)
