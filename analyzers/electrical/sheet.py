@@ -32,8 +32,8 @@ import numpy as np
 import scipy.sparse as sp
 import shapely
 from scipy import ndimage
-from scipy.spatial import cKDTree
 from scipy.sparse.linalg import splu
+from scipy.spatial import cKDTree
 
 GROWTH = 2.0  # largest ratio between neighbouring cell sizes
 CELLS_ACROSS = 3  # adaptive grid: fine cells across the narrowest device or tap

@@ -37,7 +37,7 @@ import shapely
 
 from latchwatch.analyzers.electrical import carriers
 from latchwatch.analyzers.electrical.sheet import SheetProblem, source_potentials
-from latchwatch.analyzers.electrical.shunt import shunt_estimates, substrate_box
+from latchwatch.analyzers.electrical.shunt import shunt_estimates, si, substrate_box
 from latchwatch.analyzers.electrical.transport import TransportProblem, collect
 from latchwatch.analyzers.extraction.extract import SUBSTRATE
 from latchwatch.analyzers.extraction.nets import pad_connected
@@ -57,7 +57,9 @@ LOOP_ASSUMPTIONS = (
 class Collector:
     """One collector's share of an injection."""
 
-    kind: str  # "n-well", "n-tap ring", "deep n-well", "n+ diffusion", "p-tap" | "n-tap", "p+ diffusion", "substrate", "recombination"
+    # electrons: "n-well", "n-tap ring", "deep n-well", "n+ diffusion", "p-tap";
+    # holes: "n-tap", "p+ diffusion", "substrate"; both: "recombination"
+    kind: str
     body: str | None  # nwell#k or psub where one body takes it
     fraction: float
     current_a: float
@@ -99,6 +101,34 @@ class Injection:
     @property
     def triggers(self) -> bool:
         return self.worst_bias_v > self.vbe_on_v
+
+    def record(self) -> dict:
+        """The devices row's ``injection`` object (docs/report-json.md): plain JSON values."""
+        def collector(c: Collector) -> dict:
+            row = {"kind": c.kind, "fraction": _fig(c.fraction), "current_a": _fig(c.current_a)}
+            if c.body is not None:
+                row["body"] = c.body
+            if c.bias_v is not None:
+                row["bias_v"] = _fig(c.bias_v)
+            return row
+
+        out = {"current_a": _fig(self.current_a), "carriers": self.carriers,
+               "collected": [collector(c) for c in self.collected], "worst_bias_v": _fig(self.worst_bias_v),
+               "worst_at": None if self.worst_at is None else [round(v, 6) for v in self.worst_at],
+               "vbe_on_v": _fig(self.vbe_on_v), "temperature_c": self.temperature_c,
+               "diffusion_length_um": _fig(self.diffusion_length_um), "loop": None}
+        if self.loop is not None:
+            lp = self.loop
+            out["loop"] = {"beta_npn": _fig(lp.beta_npn), "beta_pnp": _fig(lp.beta_pnp),
+                           "base_npn_um": _fig(lp.base_npn_um), "base_pnp_um": _fig(lp.base_pnp_um),
+                           "shunt_well_ohm": None if lp.shunt_well_ohm is None else _fig(lp.shunt_well_ohm),
+                           "shunt_substrate_ohm": (None if lp.shunt_substrate_ohm is None
+                                                   else _fig(lp.shunt_substrate_ohm)),
+                           "gain_product": _fig(lp.gain_product),
+                           "required_product": None if not np.isfinite(lp.required_product)
+                           else _fig(lp.required_product),
+                           "regenerates": lp.regenerates, "assumptions": LOOP_ASSUMPTIONS}
+        return out
 
 
 def injections(ctx) -> dict[str, dict[int, Injection]]:
@@ -312,6 +342,10 @@ def _worst(res, emitters):
     return float(res.peak[k]), tuple(res.at[k].tolist()), int(emitters[k])
 
 
+def _fig(value: float) -> float:
+    return float(f"{value:.6g}")
+
+
 def _known(ohm: float) -> float | None:
     return float(ohm) if np.isfinite(ohm) else None
 
@@ -334,3 +368,23 @@ def regeneration_threshold(beta_n: float, beta_p: float, vbe: float, r_well: flo
     if i_rs >= supply_current:
         return float("inf")
     return 1.0 + (beta_n + 1.0) * (i_rs + beta_p * i_rw) / (supply_current - i_rs)
+
+
+def describe_injection(record: dict) -> str:
+    """One line of an ``injection`` record for the --devices table and the hover."""
+    shares = []
+    for c in record["collected"]:
+        name = c["kind"] + (f" {c['body']}" if "body" in c and c["kind"] not in ("p-tap", "recombination") else "")
+        bias = f" ({si(c['bias_v'], 'V')} bias)" if "bias_v" in c else ""
+        shares.append(f"{name} {c['fraction']:.3g}{bias}")
+    text = (f"injection {si(record['current_a'], 'A')} {record['carriers']}: " + ", ".join(shares)
+            + f"; worst bias {si(record['worst_bias_v'], 'V')}")
+    if record["worst_at"] is not None:
+        text += f" at ({record['worst_at'][0]:.2f}, {record['worst_at'][1]:.2f})"
+    text += f" (vbe_on {si(record['vbe_on_v'], 'V')} at {record['temperature_c']:g} C)"
+    loop = record.get("loop")
+    if loop:
+        needed = "no regeneration" if loop["required_product"] is None else f"{loop['required_product']:.3g} needed"
+        text += (f"; loop gain beta_npn {loop['beta_npn']:.3g} x beta_pnp {loop['beta_pnp']:.3g} = "
+                 f"{loop['gain_product']:.3g} ({needed}; upper bound, information)")
+    return text
