@@ -326,7 +326,9 @@ class _Scene:
 
     def _loop(self, base_npn: float, base_pnp: float, npn: int, pnp: int) -> Loop:
         shunts = shunt_estimates(self.ctx)
-        r_w, r_s = _known(shunts["p"].ohm[pnp]), _known(shunts["n"].ohm[npn])
+        # The shunt estimate is at the technology's sheets; the loop is at its temperature.
+        factor = carriers.sheet_factor(self.elec)
+        r_w, r_s = _known(shunts["p"].ohm[pnp] * factor), _known(shunts["n"].ohm[npn] * factor)
         beta_n = lateral_beta(base_npn, carriers.diffusion_length(self.elec, "electrons"))
         beta_p = lateral_beta(base_pnp, carriers.diffusion_length(self.elec, "holes"))
         required = regeneration_threshold(beta_n, beta_p, self.vbe, r_w, r_s, self.current)
