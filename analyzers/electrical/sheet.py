@@ -152,9 +152,11 @@ def dimensions(geoms: np.ndarray) -> np.ndarray:
     return np.minimum(b[:, 2] - b[:, 0], b[:, 3] - b[:, 1])
 
 
-def make_mesh(problem: SheetProblem, max_cell: float | None = None) -> tuple[Mesh, float]:
+def make_mesh(problem: SheetProblem, max_cell: float | None = None,
+              refine: tuple[np.ndarray, float] | None = None) -> tuple[Mesh, float]:
     """The grid of a problem and its outline-layer thickness; ``max_cell`` caps the
-    adaptive grid's largest cell (a diffusion length has to be resolved everywhere)."""
+    adaptive grid's largest cell (a diffusion length has to be resolved everywhere), and
+    ``refine`` = (polygons, size) caps it over each polygon's bounding box."""
     x0, y0, x1, y1 = problem.box
     side = max(x1 - x0, y1 - y0)
     if problem.grid is not None:
@@ -172,6 +174,12 @@ def make_mesh(problem: SheetProblem, max_cell: float | None = None) -> tuple[Mes
     xs = np.r_[sx, dx, dx - layer, dx + layer]
     ys = np.r_[sy, dy, dy - layer, dy + layer]
     zones_x, zones_y = _oblique_zones(problem, fine if problem.grid is not None else None, coarse)
+    if refine is not None and len(refine[0]) and problem.grid is None:
+        b = shapely.bounds(refine[0])
+        size = np.full(len(b), max(refine[1], fine))
+        extra_x, extra_y = np.c_[b[:, 0], b[:, 2], size], np.c_[b[:, 1], b[:, 3], size]
+        zones_x = extra_x if zones_x is None else np.r_[zones_x, extra_x]
+        zones_y = extra_y if zones_y is None else np.r_[zones_y, extra_y]
     mesh = Mesh(graded_lines(x0, x1, xs, fine, coarse, zones_x),
                 graded_lines(y0, y1, ys, fine, coarse, zones_y))
     return mesh, layer

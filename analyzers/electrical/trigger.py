@@ -6,14 +6,17 @@ terminal, or the ``io_marker`` layer; analyzers/extraction/nets.py). Each inject
 substrate injects electrons when its pad undershoots, a P+ diffusion in an n-well
 injects holes when its pad overshoots. (N+ in an isolated p-well is not analysed.)
 
-1. Transport (analyzers/electrical/transport.py) in a window reaching REACH_LENGTHS
-   diffusion lengths around the injector, clipped to the body: electrons in the
+1. Transport (analyzers/electrical/transport.py) in a window around the injector,
+   clipped to the body: electrons in the
    substrate are absorbed by every n-well (an "n-well" when it holds a P+ device
    diffusion, an "n-tap ring" when it holds none), deep n-well, other N+ diffusion,
    and contacted p-tap ("p-tap", a recombination sink); holes in the n-well by its
    contacted n-taps, its other P+ diffusions and its edge (the substrate collects).
-   Window edges reflect, so no carrier leaves the window: what would have crossed is
-   counted on the collectors inside it.
+   For electrons the window first reaches FIRST_REACH_LENGTHS diffusion lengths, with
+   edges that absorb; while more than ESCAPE_LIMIT of the current reaches them ("beyond
+   the window") it grows 3x, and the last, REACH_LENGTHS wide, has reflecting edges
+   (what would have crossed is counted on the collectors inside it). Holes stay in
+   their well, which is solved whole with the substrate band at its edge.
 2. Bias (analyzers/electrical/sheet.py, source_potentials): the current an n-well
    collects enters that well's sheet at the cells that collected it and flows to the
    well's contacted n-taps; the current the substrate collects at a well's edge enters
@@ -37,13 +40,24 @@ import shapely
 
 from latchwatch.analyzers.electrical import carriers
 from latchwatch.analyzers.electrical.sheet import SheetProblem, source_potentials
-from latchwatch.analyzers.electrical.shunt import shunt_estimates, si, substrate_box
+from latchwatch.analyzers.electrical.shunt import (
+    WINDOW_REACH,
+    WINDOW_RETRIES,
+    shunt_estimates,
+    si,
+    substrate_box,
+    tap_reach,
+)
 from latchwatch.analyzers.electrical.transport import TransportProblem, collect
-from latchwatch.analyzers.extraction.extract import SUBSTRATE
+from latchwatch.analyzers.extraction.extract import SUBSTRATE, Pieces
 from latchwatch.analyzers.extraction.nets import pad_connected
 
 REACH_LENGTHS = 3.0  # window half-width beyond the injector, in diffusion lengths (exp(-3) = 5 %)
+FIRST_REACH_LENGTHS = 0.5  # the first window's; each next one is 3x wider, up to REACH_LENGTHS
+ESCAPE_LIMIT = 1e-4  # share of the injection that may leave a window (10 uA of 100 mA: 70 kohm to 0.7 V)
 EDGE_BAND = 0.5  # um of substrate kept around an injecting well: the absorber at its edge
+BIAS_DROPPED = 1e-3  # share of a body's collected current left out of its bias window (the far tail)
+MIN_BIAS_CURRENT = 1e-6  # A: a body collecting less is not solved (it would need 700 kohm to reach 0.7 V)
 EMPTY = np.empty(0, dtype=object)
 LOOP_ASSUMPTIONS = (
     "lateral bipolars with uniform base doping and unit emitter efficiency: beta = 1 / (cosh(W / L) - 1), "
@@ -159,6 +173,15 @@ def _clip(geoms: np.ndarray, box) -> np.ndarray:
     return parts[~shapely.is_empty(parts)]
 
 
+def _window_edges(box, limit, width: float) -> np.ndarray:
+    """Thin strips along the sides of ``box`` that lie inside ``limit`` (the body's own
+    edges reflect; a window's edges, cut through the body, absorb)."""
+    x0, y0, x1, y1 = box
+    strips = [(x0, y0, x0 + width, y1) if x0 > limit[0] else None, (x1 - width, y0, x1, y1) if x1 < limit[2] else None,
+              (x0, y0, x1, y0 + width) if y0 > limit[1] else None, (x0, y1 - width, x1, y1) if y1 < limit[3] else None]
+    return np.array([shapely.box(*s) for s in strips if s is not None], dtype=object)
+
+
 def _grouped(groups, box) -> tuple[np.ndarray, np.ndarray]:
     """The (geometries, label) groups clipped to ``box``: one polygon array and its labels."""
     parts = [_clip(geoms, box) for geoms, _ in groups]
@@ -168,6 +191,19 @@ def _grouped(groups, box) -> tuple[np.ndarray, np.ndarray]:
 
 def _in_box(tree: shapely.STRtree, box) -> np.ndarray:
     return np.sort(tree.query(shapely.box(*box), predicate="intersects"))
+
+
+@dataclass(frozen=True)
+class _Body:
+    """A collecting body for the bias solve: its sheet, taps and emitters (``index``: their pieces)."""
+
+    include: np.ndarray
+    exclude: np.ndarray
+    taps: np.ndarray
+    emitters: np.ndarray
+    index: np.ndarray
+    limit: tuple[float, float, float, float]
+    sheet: float
 
 
 class _Scene:
@@ -198,9 +234,9 @@ class _Scene:
         self.well_has_pdiff[np.unique(ex.pdiff.body)] = True
         self._well_bias: dict = {}
 
-    def window(self, geom, length: float, limit) -> tuple[float, float, float, float]:
+    def window(self, geom, length: float, limit, lengths: float = REACH_LENGTHS) -> tuple[float, float, float, float]:
         b = shapely.bounds(geom)
-        r = REACH_LENGTHS * length
+        r = lengths * length
         return (max(b[0] - r, limit[0]), max(b[1] - r, limit[1]), min(b[2] + r, limit[2]), min(b[3] + r, limit[3]))
 
     # --- electrons from N+ into the substrate ------------------------------------------
@@ -209,22 +245,33 @@ class _Scene:
         ex, elec = self.ex, self.elec
         length = carriers.diffusion_length(elec, "electrons")
         injector = ex.ndiff.geoms[i]
-        box = self.window(injector, length, self.box)
-        wells = _in_box(self.well_tree, box)
-        others = self.sub_ndiff[_in_box(self.ndiff_tree, box)]
-        others = others[others != i]
-        ptaps = _in_box(self.ptap_tree, box)
-        # Labels: 0 p-taps, 1 N+ diffusions (sinks); 2 deep n-wells, 3 + k the k-th well in the window.
-        sinks, sink_label = _grouped([(self.ptaps[ptaps], 0), (ex.ndiff.geoms[others], 1)], box)
-        absorbers, labels = _grouped([(ex.deep_nwells, 2)]
-                                     + [(self.wells[[w]], 3 + k) for k, w in enumerate(wells.tolist())], box)
-        problem = TransportProblem(box, np.array([shapely.box(*box)], dtype=object), absorbers, labels,
-                                   injector, length, sinks, sink_label, carriers.sink_length(elec))
-        result = collect(problem, 3 + len(wells))
-        entries = [("p-tap", "psub", 0, None), ("n+ diffusion", "psub", 1, None), ("deep n-well", None, 2, None)]
+        # Growing windows: edges that absorb (a carrier that reaches one is counted as having
+        # left), until less than ESCAPE_LIMIT leaves; the last, REACH_LENGTHS wide, reflects.
+        lengths = FIRST_REACH_LENGTHS
+        while True:
+            final = lengths >= REACH_LENGTHS
+            box = self.window(injector, length, self.box, min(lengths, REACH_LENGTHS))
+            wells = _in_box(self.well_tree, box)
+            others = self.sub_ndiff[_in_box(self.ndiff_tree, box)]
+            others = others[others != i]
+            ptaps = _in_box(self.ptap_tree, box)
+            # Labels: 0 p-taps, 1 N+ diffusions (sinks); 2 deep n-wells, 3 the window's edge,
+            # 4 + k the k-th well in the window.
+            sinks, sink_label = _grouped([(self.ptaps[ptaps], 0), (ex.ndiff.geoms[others], 1)], box)
+            edges = EMPTY if final else _window_edges(box, self.box, length / 64)
+            absorbers, labels = _grouped([(ex.deep_nwells, 2), (edges, 3)]
+                                         + [(self.wells[[w]], 4 + k) for k, w in enumerate(wells.tolist())], box)
+            problem = TransportProblem(box, np.array([shapely.box(*box)], dtype=object), absorbers, labels,
+                                       injector, length, sinks, sink_label, carriers.sink_length(elec))
+            result = collect(problem, 4 + len(wells))
+            if final or result.collected[3] < ESCAPE_LIMIT:
+                break
+            lengths *= 3.0
+        entries = [("p-tap", "psub", 0, None), ("n+ diffusion", "psub", 1, None), ("deep n-well", None, 2, None),
+                   ("beyond the window", None, 3, None)]
         worst = (0.0, None, None, None)  # bias, at, emitter, well
         for k, w in enumerate(wells.tolist()):
-            label = 3 + k
+            label = 4 + k
             bias = None
             if self.well_has_pdiff[w] and result.collected[label] > 0:
                 take = result.point_label == label
@@ -249,17 +296,44 @@ class _Scene:
         ex = self.ex
         if self.nwell_sheet is None:
             return None, None, None
-        key = w
-        if key not in self._well_bias:
-            taps = ex.ntap.geoms[(ex.ntap.body == w) & self.ntap_ok]
-            emitters = np.flatnonzero(ex.pdiff.body == w)
-            self._well_bias[key] = (taps, emitters)
-        taps, emitters = self._well_bias[key]
-        if len(taps) == 0:
+        taps = ex.ntap.geoms[(ex.ntap.body == w) & self.ntap_ok]
+        emitters = np.flatnonzero(ex.pdiff.body == w)
+        body = _Body(self.wells[[w]], EMPTY, taps, ex.pdiff.geoms[emitters], emitters,
+                     tuple(shapely.bounds(self.wells[w]).tolist()), self.nwell_sheet)
+        return self._windowed_bias(body, points, currents)
+
+    def _windowed_bias(self, body: _Body, points, currents):
+        """The worst emitter bias of ``body`` carrying ``currents`` at ``points``, solved in a
+        window around the points that carry all but BIAS_DROPPED of the current, reaching
+        WINDOW_REACH times the distance to the second-nearest tap (tap_reach, as the shunt
+        estimate's windows; cutting sheet away raises the bias at the sources, Rayleigh's
+        monotonicity). Below MIN_BIAS_CURRENT nothing is solved."""
+        if len(body.taps) == 0 or len(body.emitters) == 0 or currents.sum() < MIN_BIAS_CURRENT:
             return None, None, None
-        problem = SheetProblem(tuple(shapely.bounds(self.wells[w]).tolist()), self.wells[[w]], EMPTY, taps,
-                               ex.pdiff.geoms[emitters], self.nwell_sheet, self.elec.sheet_grid)
-        return _worst(source_potentials(problem, points, currents), emitters)
+        order = np.argsort(-currents)
+        kept = order[:int(np.searchsorted(np.cumsum(currents[order]), (1 - BIAS_DROPPED) * currents.sum())) + 1]
+        points, currents = points[kept], currents[kept]
+        lo, hi = points.min(axis=0), points.max(axis=0)
+        spot = Pieces(np.array([shapely.box(*lo, *hi)], dtype=object), np.zeros(1, np.int64), np.zeros(1, np.int64))
+        taps = Pieces(body.taps, np.zeros(len(body.taps), np.int64), np.zeros(len(body.taps), np.int64))
+        reach = WINDOW_REACH * float(tap_reach(spot, taps)[0])
+        emitter_tree = shapely.STRtree(body.emitters)
+        for attempt in range(WINDOW_RETRIES + 1):
+            r = reach * 4.0 ** attempt
+            box = (max(lo[0] - r, body.limit[0]), max(lo[1] - r, body.limit[1]),
+                   min(hi[0] + r, body.limit[2]), min(hi[1] + r, body.limit[3]))
+            window_taps = _clip(body.taps, box)
+            if len(window_taps) or attempt == WINDOW_RETRIES:
+                break
+        inside = _in_box(emitter_tree, box)
+        parts = shapely.clip_by_rect(body.emitters[inside], *box) if len(inside) else EMPTY
+        keep = ~shapely.is_empty(parts)
+        inside, parts = inside[keep], parts[keep]
+        if len(inside) == 0 or len(window_taps) == 0:
+            return None, None, None
+        problem = SheetProblem(box, _clip(body.include, box), _clip(body.exclude, box), window_taps, parts,
+                               body.sheet, self.elec.sheet_grid)
+        return _worst(source_potentials(problem, points, currents), body.index[inside])
 
     # --- holes from P+ into its n-well -------------------------------------------------
 
@@ -298,22 +372,11 @@ class _Scene:
                          elec.temperature, length, loop)
 
     def _bias_in_substrate(self, injector, points, currents):
-        ex = self.ex
-        if self.psub_sheet is None or len(self.ptaps) == 0:
+        if self.psub_sheet is None:
             return None, None, None
-        # The substrate window: as far around the injector as the electron transport's.
-        box = self.window(injector, carriers.diffusion_length(self.elec, "electrons"), self.box)
-        emitters = self.sub_ndiff[_in_box(self.ndiff_tree, box)]
-        parts = shapely.clip_by_rect(ex.ndiff.geoms[emitters], *box) if len(emitters) else EMPTY
-        inside = ~shapely.is_empty(parts)
-        emitters, parts = emitters[inside], parts[inside]
-        if len(emitters) == 0:
-            return None, None, None
-        problem = SheetProblem(box, np.array([shapely.box(*box)], dtype=object),
-                               _clip(self.cut[_in_box(self.cut_tree, box)], box),
-                               _clip(self.ptaps[_in_box(self.ptap_tree, box)], box),
-                               parts, self.psub_sheet, self.elec.sheet_grid)
-        return _worst(source_potentials(problem, points, currents), emitters)
+        body = _Body(np.array([shapely.box(*self.box)], dtype=object), self.cut, self.ptaps,
+                     self.ex.ndiff.geoms[self.sub_ndiff], self.sub_ndiff, self.box, self.psub_sheet)
+        return self._windowed_bias(body, points, currents)
 
     # --- figures -----------------------------------------------------------------------
 
