@@ -229,10 +229,8 @@ class _Scene:
         self.ptap_tree = shapely.STRtree(self.ptaps)
         self.ntap_ok = ex.ntap_contacted
         self.cut = np.concatenate([self.wells, ex.deep_nwells, ex.pwells]).astype(object)
-        self.cut_tree = shapely.STRtree(self.cut)
         self.well_has_pdiff = np.zeros(len(self.wells), bool)
         self.well_has_pdiff[np.unique(ex.pdiff.body)] = True
-        self._well_bias: dict = {}
 
     def window(self, geom, length: float, limit, lengths: float = REACH_LENGTHS) -> tuple[float, float, float, float]:
         b = shapely.bounds(geom)
