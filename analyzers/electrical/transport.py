@@ -40,7 +40,7 @@ from latchwatch.analyzers.electrical.sheet import (
 )
 
 CELLS_PER_LENGTH = 8  # the largest grid cell is L / CELLS_PER_LENGTH
-CELLS_PER_SINK_LENGTH = 3  # ... and inside a sink, its sink length / CELLS_PER_SINK_LENGTH
+CELLS_PER_SINK_LENGTH = 2  # ... and inside a sink, its sink length / CELLS_PER_SINK_LENGTH
 
 
 @dataclass(frozen=True)
@@ -80,7 +80,7 @@ def collect(problem: TransportProblem, n_collectors: int) -> TransportResult:
     sheet = SheetProblem(problem.box, problem.include, problem.sinks, problem.absorbers,
                          np.array([problem.injector], dtype=object), 1.0, problem.grid,
                          reaction=1.0 / problem.length ** 2)
-    # Cells of at most a third of the sink length inside sinks: the density decays there.
+    # Cells of at most half the sink length inside sinks: the density decays there.
     mesh, _layer = make_mesh(sheet, max_cell=problem.length / CELLS_PER_LENGTH,
                              refine=(problem.sinks, problem.sink_length / CELLS_PER_SINK_LENGTH))
     # The sinks only place grid lines (as ``exclude``); the network is built without them.
