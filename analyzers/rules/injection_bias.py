@@ -82,9 +82,9 @@ RULE = Rule(
             "injector is a lower bound. Sheets are uniform; injection is low (the equations are linear, so a "
             "bias far above vbe_on only says that the emitter turns on, not by how much); an epitaxial wafer "
             "needs a far shorter electron length. N+ injectors in an isolated p-well are not analysed. The "
-            "loop-gain figure is information only, with its assumptions stated beside it. latchwatch is an "
-            "early-warning aid, not sign-off: qualify with the foundry's rule deck and latch-up guidelines "
-            "and with silicon (JEDEC JESD78)."
+            "loop-gain figure is information only, with its assumptions stated beside it. Shallow "
+            "diffusions as finite sinks and the 2 um default depth are this model's choices, not measured "
+            "behaviour: a figure near vbe_on is a prompt to look, not a verdict."
         ),
         why=(
             "A pad driven outside the rails forward-biases its own diffusion, which injects minority carriers "

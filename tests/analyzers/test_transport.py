@@ -113,3 +113,25 @@ def test_a_sink_of_vanishing_length_is_an_absorber_and_a_long_one_passes_carrier
     assert as_sink(0.05) < absorbing  # a finite sink lets the density at its face stay above 0
     assert as_sink(3000.0) < 0.01
     assert as_sink(1.0) < as_sink(0.3) < as_sink(0.05)
+
+
+def test_a_deep_sink_slab_matches_the_one_dimensional_solution():
+    """Analytic, D = 1 and a unit line source at x = 0: for x < 0, n = A exp(x / L); for
+    0 < x < d, n = B cosh(x / L) + C sinh(x / L); in the sink x > d, n'' = n / Le^2 with
+    1 / Le^2 = 1 / L^2 + 1 / Ls^2, so n = E exp(-(x - d) / Le). Continuity of n and of the
+    flux at 0 (with the unit jump) and at d fixes A, B, C, E; the sink takes
+    integral(n / Ls^2) = E Le / Ls^2 of the current."""
+    length, distance, sink_length = 30.0, 10.0, 3.0
+    le = 1 / math.sqrt(1 / length ** 2 + 1 / sink_length ** 2)
+    ch, sh = math.cosh(distance / length), math.sinh(distance / length)
+    system = np.array([[1, -1, 0, 0], [-1 / length, 0, 1 / length, 0], [0, ch, sh, -1],
+                       [0, sh / length, ch / length, 1 / le]])
+    a, b, c, e = np.linalg.solve(system, [0, -1, 0, 0])
+    expected = e * le / sink_length ** 2
+    base = line_injector(length, distance)
+    plane = base.absorbers[0].bounds[0]
+    box = (0.0, 0.0, plane + 12 * le, 4.0)
+    problem = TransportProblem(box, shapes(shapely.box(*box)), NONE, np.zeros(0, np.int64), base.injector, length,
+                               sinks=shapes(shapely.box(plane, 0, box[2], 4.0)), sink_label=np.array([0]),
+                               sink_length=sink_length)
+    assert collect(problem, 1).collected[0] == pytest.approx(expected, rel=0.05)
