@@ -16,12 +16,23 @@ from latchwatch.analyzers.extraction.extract import (
     pwell_index,
     spacing_to_opposite_well,
 )
-from latchwatch.analyzers.extraction.nets import device_net_names
+from latchwatch.analyzers.extraction.layers import layer_shapes
+from latchwatch.analyzers.extraction.nets import device_net_names, pad_connected
 from latchwatch.analyzers.extraction.tapdistance import FarthestPoints, TapIndex, farthest_from_taps
+from latchwatch.analyzers.layout import geometry as g
 from latchwatch.analyzers.model.findings import Device
+from latchwatch.analyzers.technology.rule_tables import (
+    DEFAULT_SPACING_WITHIN,
+    RELAXED_MARKER,
+    NearPadLimit,
+    RelaxedArea,
+)
 
 KINDS = ("p", "n")  # P+ in an n-well, N+ in the p-body
 DEVICE_KIND = {"p": "pdiff", "n": "ndiff"}  # the name of each kind in findings and device rows
+# What set a piece's tap-distance limit: limit / limit_n / limit_p, a by_spacing row, the
+# relaxed marked area, or near_pad_n / near_pad_p.
+LIMIT_BASES = ("plain", "spacing", "relaxed", "near_pad")
 
 
 @dataclass
@@ -32,6 +43,7 @@ class KindResult:
     taps: Pieces  # contacted taps of the matching type
     gated: np.ndarray
     limit: np.ndarray  # per piece, nan when the technology sets none
+    basis: np.ndarray  # per piece, the index in LIMIT_BASES of what set its limit
     spacing: np.ndarray
     result: FarthestPoints
 
@@ -49,17 +61,50 @@ def tap_distances(ctx, kind: str, exact: bool) -> KindResult:
     pieces = ex.pdiff if kind == "p" else ex.ndiff
     gated = ex.pdiff_gated if kind == "p" else ex.ndiff_gated
     taps = ex.ntap.select(ex.ntap_contacted) if kind == "p" else ex.ptap.select(ex.ptap_contacted)
-    spacing = spacing_to_opposite_well(ex, kind) if tech.has_spacing_table() else np.full(len(pieces), np.nan)
+    spacing = np.full(len(pieces), np.nan)
+    if tech.has_spacing_table():
+        within = tech.rules["tap-distance"].get("spacing_within", DEFAULT_SPACING_WITHIN)
+        spacing = spacing_to_opposite_well(ex, kind, within)
+    limits, basis = _limits(ctx, kind, pieces, spacing)
+    index = TapIndex(taps.geoms, taps.body)
+    result = farthest_from_taps(pieces.geoms, pieces.body, index, limits, exact=exact)
+    return KindResult(kind, pieces, taps, gated, limits, basis, spacing, result)
+
+
+def _limits(ctx, kind: str, pieces: Pieces, spacing: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per piece, the tap distance it is held to and why (LIMIT_BASES): the plain or
+    spacing-table limit, the relaxed limit of a marked low-tap-density area far from pads,
+    or the stricter limit near a pad-connected diffusion of the other kind."""
+    ex, tech = ctx.extraction, ctx.tech
+    table = tech.rules.get("tap-distance", {})
+
     def limit_at(s: float) -> float:
-        value = tech.tap_distance_limit(kind, None if np.isnan(s) else float(s))
+        value = tech.tap_distance_limit(kind, None if not np.isfinite(s) else float(s))
         return np.nan if value is None else value
 
     # Without a spacing table every piece has the same limit (spacing is all nan).
     limits = np.array([limit_at(s) for s in spacing] if tech.has_spacing_table()
                       else [limit_at(np.nan)] * len(pieces), dtype=float)
-    index = TapIndex(taps.geoms, taps.body)
-    result = farthest_from_taps(pieces.geoms, pieces.body, index, limits, exact=exact)
-    return KindResult(kind, pieces, taps, gated, limits, spacing, result)
+    basis = np.where(np.isfinite(spacing), LIMIT_BASES.index("spacing"), LIMIT_BASES.index("plain"))
+    relaxed: RelaxedArea | None = table.get("relaxed")
+    near: NearPadLimit | None = table.get(f"near_pad_{kind}")
+    if (relaxed is None and near is None) or len(pieces) == 0:
+        return limits, basis
+    pads = pad_connected(ctx)
+    pad_geoms = {k: (ex.ndiff if k == "n" else ex.pdiff).geoms[pads[k]] for k in KINDS}
+    if relaxed is not None:
+        marker, _ = layer_shapes(ex.flat, tech, RELAXED_MARKER)
+        inside = (shapely.covered_by(pieces.geoms, shapely.union_all(marker)) if len(marker)
+                  else np.zeros(len(pieces), dtype=bool))
+        near_pads = g.within_distance_any(pieces.geoms, np.concatenate(list(pad_geoms.values())),
+                                          relaxed.pad_clearance)
+        take = inside & ~near_pads
+        limits[take], basis[take] = relaxed.limit, LIMIT_BASES.index("relaxed")
+    if near is not None:
+        other = "n" if kind == "p" else "p"
+        take = g.within_distance_any(pieces.geoms, pad_geoms[other], near.within) & ~(limits <= near.limit)
+        limits[take], basis[take] = near.limit, LIMIT_BASES.index("near_pad")
+    return limits, basis
 
 
 def device_table(ctx) -> list[Device]:

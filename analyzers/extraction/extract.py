@@ -228,18 +228,35 @@ def extract(flat: FlatLayout, tech: Technology) -> Extraction:
     )
 
 
-def spacing_to_opposite_well(ex: Extraction, kind: str) -> np.ndarray:
-    """Per device piece, the spacing to the opposite well: for N+ in the p-body the
-    distance to the nearest n-well, for P+ in an n-well the distance to its well's edge."""
+def spacing_to_opposite_well(ex: Extraction, kind: str, within: float) -> np.ndarray:
+    """Per device piece of ``kind``, the spacing that picks its row of a by_spacing table:
+    the smallest spacing between a well and a diffusion of the other type outside it, over
+    the diffusions that lie within ``within`` um of the device; inf when there is none.
+
+    This is how GF180MCU's latch-up table defines it (design manual section 14.3,
+    tables_clear/55_Latch-up_152.csv): outside deep n-wells, N+ outside the n-wells to the
+    nearest n-well (LU.3 for an N+ device, LU.4 for a P+ device in an n-well); for an N+
+    device in an isolated p-well, or a P+ device whose n-well touches a deep n-well, P+ to
+    the nearest isolated p-well (LU.2, LU.1). A diffusion counts whole once any part of it
+    is within range, which can only lower the spacing, so the row chosen is never looser
+    than the table's.
+    """
+    devices = ex.pdiff if kind == "p" else ex.ndiff
+    spacing = np.full(len(devices), np.inf)
+    if len(devices) == 0:
+        return spacing
     if kind == "n":
-        geoms = ex.ndiff.geoms
-        if len(ex.wells) == 0 or len(geoms) == 0:
-            return np.full(len(geoms), np.inf)
-        tree = shapely.STRtree(ex.wells)
-        _, dist = tree.query_nearest(geoms, return_distance=True, all_matches=False)
-        return dist
-    geoms = ex.pdiff.geoms
-    if len(geoms) == 0:
-        return np.zeros(0)
-    edges = shapely.boundary(ex.wells[ex.pdiff.body])
-    return shapely.distance(geoms, edges)
+        isolated = is_pwell_body(devices.body)
+    elif len(ex.deep_nwells):
+        isolated = g.area_overlap_any(ex.wells, ex.deep_nwells)[devices.body]
+    else:
+        isolated = np.zeros(len(devices), dtype=bool)
+    for rows, sources, wells in ((np.flatnonzero(~isolated), ex.ndiff.geoms, ex.wells),
+                                 (np.flatnonzero(isolated), ex.pdiff.geoms, ex.pwells)):
+        if len(rows) == 0 or len(sources) == 0 or len(wells) == 0:
+            continue
+        _, gap = shapely.STRtree(wells).query_nearest(sources, return_distance=True, all_matches=False)
+        device, source = shapely.STRtree(sources).query(devices.geoms[rows], predicate="dwithin", distance=within)
+        np.minimum.at(spacing, rows[device], gap[source])
+    spacing[spacing > within] = np.inf  # the nearest well lies out of range
+    return spacing

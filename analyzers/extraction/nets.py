@@ -68,10 +68,10 @@ def _placed_labels(flat, tech, conn: Connectivity) -> tuple[np.ndarray, np.ndarr
     """(label index, net) for every label on a [labels] layer that lies on a conductor
     of its role; a label over two touching shapes names their one net once."""
     hits_label, hits_net = [], []
-    for role, (layer, texttype) in tech.labels.items():
+    for role, pairs in tech.labels.items():
         if role not in conn.roles:
             continue
-        on_layer = np.flatnonzero((flat.label_layer == layer) & (flat.label_texttype == texttype))
+        on_layer = np.flatnonzero(_on_text_layers(flat, pairs))
         rows = np.flatnonzero(conn.conductors.role == conn.roles.index(role))
         if len(on_layer) == 0 or len(rows) == 0:
             continue
@@ -87,8 +87,15 @@ def _placed_labels(flat, tech, conn: Connectivity) -> tuple[np.ndarray, np.ndarr
 
 def has_labels(flat, tech) -> bool:
     """True when the flattened layout has a label on one of the technology's label layers."""
-    return any(((flat.label_layer == layer) & (flat.label_texttype == texttype)).any()
-               for layer, texttype in tech.labels.values())
+    return any(_on_text_layers(flat, pairs).any() for pairs in tech.labels.values())
+
+
+def _on_text_layers(flat, pairs) -> np.ndarray:
+    """A bool per label of the flattened layout: on one of the (layer, texttype) pairs."""
+    hit = np.zeros(len(flat.label_layer), dtype=bool)
+    for layer, texttype in pairs:
+        hit |= (flat.label_layer == layer) & (flat.label_texttype == texttype)
+    return hit
 
 
 def layout_nets(ex, tech) -> LayoutNets:

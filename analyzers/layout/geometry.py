@@ -208,3 +208,12 @@ def area_overlap_any(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     ia, _ = overlap_pairs(a, b)
     hit[ia] = True
     return hit
+
+
+def within_distance_any(a: np.ndarray, b: np.ndarray, distance: float) -> np.ndarray:
+    """Boolean per a[i]: some b[j] lies within ``distance`` of it (touching counts)."""
+    hit = np.zeros(len(a), dtype=bool)
+    if len(a) and len(b):
+        ia, _ = shapely.STRtree(b).query(a, predicate="dwithin", distance=distance)
+        hit[ia] = True
+    return hit

@@ -5,13 +5,20 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
-from latchwatch.analyzers.extraction.devices import DEVICE_KIND, KINDS, tap_distances
+from latchwatch.analyzers.extraction.devices import DEVICE_KIND, KINDS, LIMIT_BASES, tap_distances
 from latchwatch.analyzers.extraction.extract import SUBSTRATE, is_pwell_body
 from latchwatch.analyzers.model.findings import Severity
 from latchwatch.analyzers.rules.base import Rule, RuleDoc
 
-NAMES = {"p": ("P+", "n-well tap", "the n-well edge"), "n": ("N+", "substrate tap", "the nearest n-well")}
+NAMES = {"p": ("P+", "n-well tap"), "n": ("N+", "substrate tap")}
 MESSAGE = "{what} is {value:.2f} um from the nearest {tap} (limit {limit:.2f} um{where})"
+# How the message says what set the limit, by LIMIT_BASES entry.
+WHERE = {
+    "plain": "",
+    "spacing": " for a well-to-diffusion spacing of {spacing:.2f} um",
+    "relaxed": " in the low-tap-density area",
+    "near_pad": " within {within:.2f} um of pad-connected {other}",
+}
 MESSAGE_NO_TAP = "{what} has no contacted {tap} in its body (limit {limit:.2f} um)"
 
 
@@ -36,7 +43,7 @@ def check(ctx):
         first = np.r_[True, r.pieces.shape[order][1:] != r.pieces.shape[order][:-1]] if len(order) else []
         bounds = shapely.bounds(r.pieces.geoms)
         for i in order[first]:
-            tap_name, opposite = NAMES[kind][1], NAMES[kind][2]
+            tap_name = NAMES[kind][1]
             if is_pwell_body(r.pieces.body[i]):
                 tap_name = "p-well tap"
             what = describe(kind, bool(r.gated[i]))
@@ -45,9 +52,11 @@ def check(ctx):
                 yield ctx.piece_finding(RULE, r.pieces, i, MESSAGE_NO_TAP.format(what=what, tap=tap_name, limit=limit),
                                         bbox=bounds[i], limit=limit, unit="um", device_kind=DEVICE_KIND[kind])
                 continue
-            where = ""
-            if np.isfinite(r.spacing[i]):
-                where = f" at {r.spacing[i]:.2f} um from {opposite}"
+            basis = LIMIT_BASES[int(r.basis[i])]
+            other = "n" if kind == "p" else "p"
+            near = ctx.tech.rules.get("tap-distance", {}).get(f"near_pad_{kind}")
+            where = WHERE[basis].format(spacing=r.spacing[i], other=NAMES[other][0],
+                                        within=near.within if near is not None else 0.0)
             tap_shape = int(r.taps.shape[res.tap[i]])
             tap_xy = shapely.get_coordinates(
                 shapely.shortest_line(r.taps.geoms[res.tap[i]], shapely.points(res.point[i]))
@@ -57,7 +66,8 @@ def check(ctx):
                 MESSAGE.format(what=what, value=res.value[i], tap=tap_name, limit=limit, where=where),
                 location=res.point[i], bbox=bounds[i], value=res.value[i], limit=limit, unit="um",
                 related=(ctx.related_shape(tap_shape, f"nearest {tap_name}", tap_xy),),
-                figures={"spacing_um": None if not np.isfinite(r.spacing[i]) else round(float(r.spacing[i]), 6)},
+                figures={"spacing_um": None if not np.isfinite(r.spacing[i]) else round(float(r.spacing[i]), 6),
+                         "limit_basis": basis},
                 device_kind=DEVICE_KIND[kind],
             )
 
@@ -72,8 +82,11 @@ RULE = Rule(
             "farthest point lies farther than the technology's limit from the nearest contacted tap of the "
             "same body (the same n-well for P+, the substrate's p-taps for N+, or for N+ in a p-well isolated "
             "by a deep n-well that p-well's own p-taps). The limit is "
-            "[rules.tap-distance] limit, limit_p / limit_n, or a by_spacing table keyed by the spacing from "
-            "the diffusion to the opposite well. The distance is the maximum over the whole diffusion, "
+            "[rules.tap-distance] limit, limit_p / limit_n, or a by_spacing row chosen by the smallest "
+            "well-to-diffusion spacing within spacing_within of the device; near_pad_p / near_pad_n tighten "
+            "it near pad-connected diffusion of the other type, and relaxed loosens it in a marked "
+            "low-tap-density area far from pads (docs/technology.md says how each applies; the finding's "
+            "limit_basis names which did). The distance is the maximum over the whole diffusion, "
             "computed to 1 nm (a branch and bound on the distance function); the message names the farthest "
             "point and the related location the nearest tap."
         ),

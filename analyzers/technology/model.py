@@ -19,9 +19,10 @@ from typing import Any
 
 from latchwatch.analyzers.electrical.mobility import MAX_DOPING, MIN_DOPING, UM_PER_CM, sheet_resistance
 from latchwatch.analyzers.technology import derived as derived_layers
+from latchwatch.analyzers.technology.rule_tables import RELAXED_MARKER, SpacingLimit, check_rules, plain_rules
 
 REQUIRED_LAYERS = ("nwell", "active", "poly", "nplus", "pplus", "contact")
-OPTIONAL_LAYERS = ("metal1", "via1", "metal2", "pwell", "deep_nwell", "tap", "io_marker")
+OPTIONAL_LAYERS = ("metal1", "via1", "metal2", "pwell", "deep_nwell", "tap", "io_marker", RELAXED_MARKER)
 _METAL = re.compile(r"metal[1-9][0-9]*")
 _VIA = re.compile(r"via[1-9][0-9]*")
 _LAYER_ROLES_TEXT = ", ".join(REQUIRED_LAYERS + OPTIONAL_LAYERS) + ", metalN or viaN"
@@ -32,12 +33,6 @@ TOP_LEVEL_KEYS = (
     "electrical",
 )
 NET_KEYS = ("power", "ground", "pads")
-DOUBLE_KINDS = ("ndiff", "pdiff")  # [rules.io-guard-ring] double for one kind of device (the devices table's names)
-RULE_KEYS = {
-    "tap-distance": ("limit", "limit_n", "limit_p", "by_spacing"),
-    "io-guard-ring": ("min_width", "max_gap", "double"),
-    "io-spacing": ("min",),
-}
 
 
 def is_cut_role(role: str) -> bool:
@@ -89,14 +84,6 @@ class TechnologyError(Exception):
 def _show(value: Any) -> str:
     text = repr(value)
     return text if len(text) <= 80 else text[:77] + "..."
-
-
-@dataclass(frozen=True)
-class SpacingLimit:
-    """One row of a spacing-dependent tap-distance table, in um."""
-
-    min_spacing: float  # the row applies when the spacing to the opposite well is >= this
-    limit: float
 
 
 @dataclass(frozen=True)
@@ -163,7 +150,7 @@ class Technology:
     description: str
     source: str  # file path or "built-in NAME"
     layers: Mapping[str, tuple[int, int]]
-    labels: Mapping[str, tuple[int, int]]
+    labels: Mapping[str, tuple[tuple[int, int], ...]]  # per conductor role, its text layers
     connectivity: tuple[tuple[str, str, str], ...]
     power: tuple[str, ...]
     ground: tuple[str, ...]
@@ -220,21 +207,14 @@ class Technology:
             "description": self.description,
             "layers": {**{role: list(pair) for role, pair in self.layers.items()},
                        **{role: derived_layers.unparse(expr) for role, expr in self.derived.items()}},
-            "labels": {role: list(pair) for role, pair in self.labels.items()},
+            "labels": {role: [list(pair) for pair in pairs] for role, pairs in self.labels.items()},
             "connectivity": {"stack": [list(link) for link in self.connectivity]},
             "nets": {"power": list(self.power), "ground": list(self.ground),
                      "pads": list(self.pads)},
-            "rules": {},
+            "rules": plain_rules(self.rules),
             "electrical": {k: getattr(self.electrical, k) for k in ELECTRICAL_KEYS
                            if getattr(self.electrical, k) is not None},
         }
-        for rule_id, table in self.rules.items():
-            plain = dict(table)
-            if "by_spacing" in plain:
-                plain["by_spacing"] = [
-                    {"min_spacing": row.min_spacing, "limit": row.limit}
-                    for row in plain["by_spacing"]]
-            data["rules"][rule_id] = plain
         return data
 
 
@@ -267,7 +247,8 @@ def technology_from_mapping(data: dict, source: str, base: Technology | None = N
     nets = check.table(data.get("nets", {}), "nets")
     check.known_keys(nets, "nets", NET_KEYS)
     patterns = {k: check.strings(nets.get(k, []), f"nets.{k}") for k in NET_KEYS}
-    rules = check.rules(data.get("rules", {}))
+    rules = {rule_id: MappingProxyType(table)
+             for rule_id, table in check_rules(check, data.get("rules", {}), roles).items()}
     electrical = check.electrical(data.get("electrical", {}))
     return Technology(
         name=name, description=description, source=source,
@@ -418,7 +399,7 @@ class _Checker:
             if ref in derived:
                 self._no_cycle(derived, [*path, ref])
 
-    def labels(self, value: Any, layers: dict) -> dict[str, tuple[int, int]]:
+    def labels(self, value: Any, layers: dict) -> dict[str, tuple[tuple[int, int], ...]]:
         table = self.table(value, "labels")
         labels = {}
         for role, raw in table.items():
@@ -427,7 +408,10 @@ class _Checker:
             self.declared_role(role, key, layers, kind)
             if not is_conductor_role(role):
                 raise self.fail(key, kind, role)
-            labels[role] = self.pair(raw, key)
+            # One text layer, or several (a label purpose and a pin purpose, say).
+            many = isinstance(raw, list) and bool(raw) and all(isinstance(item, list) for item in raw)
+            labels[role] = (tuple(self.pair(item, f"{key}[{i}]") for i, item in enumerate(raw)) if many
+                            else (self.pair(raw, key),))
         return labels
 
     def connectivity(self, value: Any, layers: dict) -> tuple[tuple[str, str, str], ...]:
@@ -451,49 +435,6 @@ class _Checker:
                     raise self.fail(f"{key}[{j}]", kind, role)
             links.append(tuple(link))
         return tuple(links)
-
-    def rules(self, value: Any) -> dict[str, Mapping[str, object]]:
-        table = self.table(value, "rules")
-        self.known_keys(table, "rules", tuple(RULE_KEYS))
-        rules = {}
-        for rule_id, raw in table.items():
-            prefix = f"rules.{rule_id}"
-            body = self.table(raw, prefix)
-            self.known_keys(body, prefix, RULE_KEYS[rule_id])
-            checked: dict[str, object] = {}
-            for key, item in body.items():
-                if key == "by_spacing":
-                    checked[key] = self.spacing_table(item, f"{prefix}.by_spacing")
-                elif key == "double":
-                    # true/false, or one device kind: double rings for pad-connected N+ only, say
-                    if not isinstance(item, bool) and item not in DOUBLE_KINDS:
-                        raise self.fail(f"{prefix}.double", 'true, false, "ndiff" or "pdiff"', item)
-                    checked[key] = item
-                else:
-                    checked[key] = self.number(item, f"{prefix}.{key}")
-            if rule_id == "io-guard-ring":
-                checked.setdefault("double", False)
-            rules[rule_id] = MappingProxyType(checked)
-        return rules
-
-    def spacing_table(self, value: Any, key: str) -> tuple[SpacingLimit, ...]:
-        if not isinstance(value, list):
-            raise self.fail(key, "a list of {min_spacing, limit} tables", value)
-        rows = []
-        for i, raw in enumerate(value):
-            prefix = f"{key}[{i}]"
-            row = self.table(raw, prefix)
-            self.known_keys(row, prefix, ("min_spacing", "limit"))
-            spacing = self.number(self.required(row, prefix, "min_spacing", "a non-negative "
-                                  "number"), f"{prefix}.min_spacing", allow_zero=True)
-            limit = self.number(self.required(row, prefix, "limit", "a positive number"),
-                                f"{prefix}.limit")
-            if any(r.min_spacing == spacing for r in rows):
-                raise self.fail(f"{prefix}.min_spacing", "a min_spacing no other row uses",
-                                raw["min_spacing"])
-            rows.append(SpacingLimit(spacing, limit))
-        # Files may list rows in any order; first-match lookup needs widest first.
-        return tuple(sorted(rows, key=lambda r: r.min_spacing, reverse=True))
 
     def electrical(self, value: Any) -> Electrical:
         table = self.table(value, "electrical")

@@ -21,6 +21,7 @@ from latchwatch.analyzers.technology.model import (
     TechnologyError,
     technology_from_mapping,
 )
+from latchwatch.analyzers.technology.rule_tables import RELAXED_MARKER, NearPadLimit, RelaxedArea
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -125,7 +126,8 @@ def describe_technology(tech: Technology) -> str:
     out += [f"  {role:<11} = {unparse(expr)}" for role, expr in tech.derived.items()]
     if tech.labels:
         out += ["", "labels (conductor: text layer/texttype)"]
-        out += [f"  {role:<11} {pair[0]}/{pair[1]}" for role, pair in tech.labels.items()]
+        out += [f"  {role:<11} " + ", ".join(f"{layer}/{texttype}" for layer, texttype in pairs)
+                for role, pairs in tech.labels.items()]
     if tech.connectivity:
         out += ["", "connectivity (lower, cut, upper)"]
         out += [f"  {lower} - {cut} - {upper}" for lower, cut, upper in tech.connectivity]
@@ -140,8 +142,14 @@ def describe_technology(tech: Technology) -> str:
         out.append(f"  {rule_id}")
         for key, value in table.items():
             if key == "by_spacing":
-                out.append("    by_spacing (spacing to the opposite well: limit)")
+                out.append("    by_spacing (well-to-diffusion spacing: limit)")
                 out += [f"      >= {row.min_spacing:.2f} um: {row.limit:.2f} um" for row in value]
+            elif isinstance(value, NearPadLimit):
+                other = "N+" if key == "near_pad_p" else "P+"
+                out.append(f"    {key:<10} {value.limit:.2f} um within {value.within:.2f} um of pad-connected {other}")
+            elif isinstance(value, RelaxedArea):
+                out.append(f"    {key:<10} {value.limit:.2f} um in the {RELAXED_MARKER} area, "
+                           f"{value.pad_clearance:.2f} um or more from pad-connected diffusion")
             elif isinstance(value, bool):
                 out.append(f"    {key:<10} {'yes' if value else 'no'}")
             elif isinstance(value, str):  # double = "ndiff" or "pdiff"

@@ -53,27 +53,68 @@ def nplus_beside_a_well(spacing, tap_distance):
     return c
 
 
-def pplus_in_a_well(spacing, tap_distance):
-    """P+ (0, 0)-(2, 2) in an n-well whose right edge is ``spacing`` away (the others far),
-    and a contacted n-tap ``tap_distance`` from the device's right edge."""
+def pplus_in_a_well(spacing, tap_distance, inside=3.0):
+    """P+ (0, 0)-(2, 2) ``inside`` um from the right edge of its n-well, a contacted n-tap
+    ``tap_distance`` from the device's right edge, and an N+ diffusion (with its own
+    contacted p-tap) ``spacing`` outside that well edge: LU.4 measures the spacing from
+    the N+ outside to the n-well, not from the P+ to its own well's edge."""
     x = -(tap_distance - 2)
-    c = CellBuilder("T").rect(NWELL, x - 60, -60, 2 + spacing, 62)
+    edge = 2 + inside
+    c = CellBuilder("T").rect(NWELL, x - 60, -60, edge, 62)
     c.rect(COMP, 0, 0, 2, 2).rect(PPLUS, 0, 0, 2, 2)
     c.rect(COMP, x - 1, 0, x, 2).rect(NPLUS, x - 1, 0, x, 2).rect(CONTACT, x - 0.7, 0.8, x - 0.3, 1.2)
+    if spacing is not None:
+        n0 = edge + spacing
+        c.rect(COMP, n0, 0, n0 + 2, 2).rect(NPLUS, n0, 0, n0 + 2, 2)
+        c.rect(COMP, n0 + 2, 0, n0 + 3, 2).rect(PPLUS, n0 + 2, 0, n0 + 3, 2)
+        c.rect(CONTACT, n0 + 2.3, 0.8, n0 + 2.7, 1.2)
     return c
 
 
-def tap_distance_findings(cell, tech):
-    return check_outcome(outcome(layout(cell)), tech, CheckOptions(), rules=(RULES_BY_ID["tap-distance"],)).findings
+def tap_distance_findings(cell, tech, kind=None):
+    found = check_outcome(outcome(layout(cell)), tech, CheckOptions(), rules=(RULES_BY_ID["tap-distance"],)).findings
+    return [f for f in found if kind is None or f.device_kind == kind]
 
 
-@pytest.mark.parametrize("build", [nplus_beside_a_well, pplus_in_a_well])
+@pytest.mark.parametrize("build, kind", [(nplus_beside_a_well, "ndiff"), (pplus_in_a_well, "pdiff")])
 @pytest.mark.parametrize("spacing, limit", sorted(EXPECTED.items()))
-def test_layouts_at_the_breakpoints(raw, build, spacing, limit):
+def test_layouts_at_the_breakpoints(raw, build, kind, spacing, limit):
     # A diffusion exactly at the row's limit passes, 0.01 um beyond fails, and the limit
     # applied is the row of the spacing.
-    assert tap_distance_findings(build(spacing, limit), raw) == []
-    [f] = tap_distance_findings(build(spacing, limit + 0.01), raw)
+    assert tap_distance_findings(build(spacing, limit), raw, kind) == []
+    [f] = tap_distance_findings(build(spacing, limit + 0.01), raw, kind)
     assert f.limit == limit
     assert f.value == pytest.approx(limit + 0.01, abs=2e-3)
-    assert f"at {spacing:.2f} um from" in f.message
+    assert f"spacing of {spacing:.2f} um" in f.message
+    assert f.figures["spacing_um"] == pytest.approx(spacing)
+
+
+@pytest.fixture(scope="module")
+def gf180():
+    return load_technology("gf180mcu")
+
+
+def test_pplus_near_its_well_edge_with_no_nplus_in_range_is_held_to_df13(gf180):
+    # DM 14.3 LU.4 counts N+ outside the n-well within 50 um of the P+; with none, the
+    # plain DF.13 limit applies (20 um at 3.3 V, 14_COMP33_1.csv), however close the
+    # P+ sits to its own well's edge (0.5 um here).
+    cell = pplus_in_a_well(None, 19.5, inside=0.5)
+    assert tap_distance_findings(cell, gf180) == []
+    [f] = tap_distance_findings(pplus_in_a_well(None, 20.01, inside=0.5), gf180)
+    assert f.limit == 20.0 and f.figures["spacing_um"] is None
+
+
+def test_pplus_inside_its_well_with_nplus_just_outside_takes_the_15_um_row(gf180):
+    # DM 14.3 LU.4: N+ 0.5 um outside the n-well, within 50 um of the P+ (3 um inside the
+    # well): y < 1.0, so 15 um (LV column). The P+ at 19.03 um fails.
+    [f] = tap_distance_findings(pplus_in_a_well(0.5, 19.03), gf180, "pdiff")
+    assert f.limit == 15.0
+    assert f.value == pytest.approx(19.03, abs=2e-3)
+    assert f.figures["spacing_um"] == pytest.approx(0.5)
+
+
+def test_nplus_beyond_the_range_does_not_count(gf180):
+    # The same N+ 0.5 um outside the well but more than 50 um from the P+ (the well is
+    # 60 um wide): LU.4 looks only within 50 um, so DF.13's 20 um applies.
+    cell = pplus_in_a_well(0.5, 19.03, inside=55.0)
+    assert tap_distance_findings(cell, gf180, "pdiff") == []

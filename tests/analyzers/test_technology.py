@@ -4,7 +4,8 @@ import copy
 
 import pytest
 
-from latchwatch.analyzers.technology.model import Electrical, SpacingLimit, TechnologyError, technology_from_mapping
+from latchwatch.analyzers.technology.model import Electrical, TechnologyError, technology_from_mapping
+from latchwatch.analyzers.technology.rule_tables import SpacingLimit
 
 SOURCE = "tech.toml"
 
@@ -307,3 +308,40 @@ def test_override_merges_tables_and_replaces_lists():
 def test_override_errors_name_the_overriding_file():
     err = error_for({"rules": {"tap-distance": {"limit": -1.0}}}, base=base_technology())
     assert err.file == SOURCE and err.key == "rules.tap-distance.limit"
+
+
+def test_a_conductor_may_have_several_text_layers():
+    # SKY130 (skywater-pdk docs/rules gds_layers.csv) gives li1 a label purpose 67/5 and a
+    # pin purpose 67/16 that both carry text; a role takes one pair or a list of pairs.
+    tech = technology_from_mapping(minimal(labels={"metal1": [[7, 5], [7, 16]], "poly": [3, 5]}), SOURCE)
+    assert tech.labels["metal1"] == ((7, 5), (7, 16)) and tech.labels["poly"] == ((3, 5),)
+    assert technology_from_mapping(tech.to_mapping(), SOURCE) == tech
+    err = error_for(minimal(labels={"metal1": [[7, 5], [7]]}))
+    assert err.key == "labels.metal1[1]"
+
+
+def test_place_dependent_tap_distance_keys_round_trip():
+    data = minimal(rules={"tap-distance": {"limit": 20.0, "spacing_within": 50.0,
+                                           "by_spacing": [{"min_spacing": 0.0, "limit": 15.0}],
+                                           "near_pad_p": {"within": 15.0, "limit": 2.0},
+                                           "near_pad_n": {"within": 10.0, "limit": 5.0},
+                                           "relaxed": {"limit": 15.0, "pad_clearance": 50.0}},
+                          "tap-contact-distance": {"limit": 6.0}})
+    data["layers"]["low_tap_density"] = [81, 14]
+    tech = technology_from_mapping(data, SOURCE)
+    table = tech.rules["tap-distance"]
+    assert table["near_pad_p"].within == 15.0 and table["near_pad_n"].limit == 5.0
+    assert table["relaxed"].pad_clearance == 50.0
+    assert technology_from_mapping(tech.to_mapping(), SOURCE) == tech
+
+
+def test_place_dependent_key_errors_name_the_key():
+    err = error_for(minimal(rules={"tap-distance": {"near_pad_p": {"within": 15.0}}}))
+    assert err.key == "rules.tap-distance.near_pad_p.limit"
+    err = error_for(minimal(rules={"tap-distance": {"near_pad_n": {"within": -1.0, "limit": 5.0}}}))
+    assert err.key == "rules.tap-distance.near_pad_n.within"
+    err = error_for(minimal(rules={"tap-distance": {"near_pad_n": {"within": 1.0, "limit": 5.0, "far": 2}}}))
+    assert err.key == "rules.tap-distance.near_pad_n.far"
+    # The relaxed area is the low_tap_density layer: without it the key means nothing.
+    err = error_for(minimal(rules={"tap-distance": {"relaxed": {"limit": 15.0, "pad_clearance": 50.0}}}))
+    assert err.key == "rules.tap-distance.relaxed" and "low_tap_density" in err.expected

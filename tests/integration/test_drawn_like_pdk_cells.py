@@ -198,3 +198,57 @@ def test_a_diffusion_drawn_by_two_lines_is_one_finding_with_the_other_line_relat
     assert finding["value"] == 57.0  # hand: the far edge x = 56 to the tap's edge x = -1
     assert [(r["line"], r["message"]) for r in finding["related"] if r["line"] == beyond] == [
         (beyond, "also drawn here (the same diffusion)")]
+
+
+# GF180MCU LU.4 (gf180mcu-pdk design manual section 14.3, tables_clear/55_Latch-up_152.csv):
+# the limit for P+ in an n-well follows the smallest n-well to N+ spacing within 50 um of
+# the P+, not the P+'s own distance to its well edge. Layers: DM 06_Drawn_layer10.csv.
+GF180 = '''import gdstk
+COMP, NWELL, PPLUS, NPLUS, CONTACT = (22, 0), (21, 0), (31, 0), (32, 0), (33, 0)
+lib = gdstk.Library()
+cell = lib.new_cell("TOP")
+
+
+def box(layer, x0, y0, x1, y1):
+    cell.add(gdstk.rectangle((x0, y0), (x1, y1), layer=layer[0], datatype=layer[1]))
+
+
+def tap(implant, x0, x1):
+    box(COMP, x0, 0, x1, 2)
+    box(implant, x0, 0, x1, 2)
+    box(CONTACT, (x0 + x1) / 2 - 0.2, 0.8, (x0 + x1) / 2 + 0.2, 1.2)
+
+
+edge = {edge}
+box(NWELL, -80, -20, edge, 22)
+box(PPLUS, 0, 0, 2, 2)
+box(COMP, 0, 0, 2, 2)           # the P+ device
+tap(NPLUS, -{gap} - 1, -{gap})  # its n-tap; the P+ right edge is {gap} + 2 from it
+if {nplus}:
+    box(NPLUS, edge + 0.5, 0, edge + 2.5, 2)
+    box(COMP, edge + 0.5, 0, edge + 2.5, 2)  # N+ 0.5 um outside the well
+    tap(PPLUS, edge + 2.5, edge + 3.5)
+'''
+
+
+def gf180(tmp_path, name, **values):
+    path = tmp_path / f"{name}.py"
+    path.write_text(GF180.format(**values))
+    result = subprocess.run([sys.executable, "-m", "latchwatch", "check", "--tech", "gf180mcu", "--format", "json",
+                             path.name], cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    assert result.returncode in (0, 1), result.stderr
+    return [f for f in json.loads(result.stdout)["findings"] if f["rule"] == "tap-distance"]
+
+
+def test_gf180_pplus_near_its_well_edge_with_no_nplus_nearby_is_held_to_df13(tmp_path):
+    # P+ 0.5 um from its well edge, 19.5 um from its tap, no N+ within 50 um: DF.13's 20 um
+    # (14_COMP33_1.csv, 3.3 V) applies, so it passes.
+    assert gf180(tmp_path, "edge", edge=2.5, gap=17.5, nplus=False) == []
+
+
+def test_gf180_pplus_inside_its_well_with_nplus_just_outside_gets_15_um(tmp_path):
+    # P+ 3 um inside the well, N+ 0.5 um outside it: y < 1.0, LU.4 c) LV 15 um. At 19.03 um
+    # from its tap it fails, on the line that drew it.
+    (finding,) = gf180(tmp_path, "inside", edge=5.0, gap=17.03, nplus=True)
+    assert finding["limit"] == 15.0 and finding["value"] == 19.03
+    assert finding["line"] == GF180.splitlines().index("box(COMP, 0, 0, 2, 2)           # the P+ device") + 1

@@ -10,6 +10,7 @@ from latchwatch.analyzers.rules import RULES, RULES_BY_ID
 # docs/rules.md catalogue: id -> default severity (rules of later work are added as they land).
 CATALOGUE = {
     "tap-distance": Severity.ERROR, "floating-well": Severity.ERROR, "uncontacted-tap": Severity.WARNING,
+    "tap-contact-distance": Severity.ERROR,
     "tap-supply": Severity.WARNING, "io-guard-ring": Severity.ERROR, "io-spacing": Severity.WARNING,
     "isolation-tie": Severity.ERROR, "shunt-resistance": Severity.WARNING,
     "injection-bias": Severity.WARNING, "script-error": Severity.ERROR,

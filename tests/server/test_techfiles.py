@@ -53,7 +53,7 @@ def test_demo_preset_is_the_examples_technology():
         "nwell": (1, 0), "active": (2, 0), "poly": (3, 0), "nplus": (4, 0), "pplus": (5, 0),
         "contact": (6, 0), "metal1": (7, 0), "via1": (8, 0), "metal2": (9, 0),
         "deep_nwell": (10, 0), "pwell": (11, 0), "io_marker": (12, 0)}
-    assert dict(tech.labels) == {"metal1": (7, 5), "metal2": (9, 5)}
+    assert dict(tech.labels) == {"metal1": ((7, 5),), "metal2": ((9, 5),)}
     assert tech.connectivity == (("active", "contact", "metal1"), ("poly", "contact", "metal1"),
                                  ("metal1", "via1", "metal2"))
     assert (tech.power, tech.ground, tech.pads) == (("VDD*",), ("VSS*", "GND"), ("PAD*",))
@@ -81,7 +81,7 @@ def test_sg13g2_published_values():
     # N+ is Activ outside pSD: PyPI ihp-gdsfactory 2.0.0, ihp/cells/fet_transistors.py draws
     # nmos without nSD (pmos with pSD), ihp/cells/passives.py ntap1 with nSD outside pSD.
     assert tech.to_mapping()["layers"]["nplus"] == "active not pplus"
-    assert dict(tech.labels) == {"metal1": (8, 25), "metal2": (10, 25)}
+    assert dict(tech.labels) == {"metal1": ((8, 25),), "metal2": ((10, 25),)}
     # SG13G2_os_layout_rules.pdf Rev 0.4, 7.2.1: double guard rings for output buffers.
     assert tech.rules["io-guard-ring"]["double"] is True
     assert "min_width" not in tech.rules["io-guard-ring"]
@@ -103,8 +103,8 @@ def test_gf180mcu_published_values():
         "poly": (30, 0), "nplus": (32, 0), "pplus": (31, 0), "contact": (33, 0),
         "metal1": (34, 0), "via1": (35, 0), "metal2": (36, 0), "io_marker": (137, 5)}
     assert tech.layer("tap") is None  # the manual has no separate tap layer
-    assert dict(tech.labels) == {"active": (22, 10), "poly": (30, 10), "metal1": (34, 10),
-                                 "metal2": (36, 10)}
+    assert dict(tech.labels) == {"active": ((22, 10),), "poly": ((30, 10),), "metal1": ((34, 10),),
+                                 "metal2": ((36, 10),)}
     # gf180mcu design manual IO.1 / IO.3: ring within 15 um; IO.2 / IO.4: width >= 2 um.
     assert tech.rules["io-guard-ring"]["max_gap"] == 15.0
     assert tech.rules["io-guard-ring"]["min_width"] == 2.0
@@ -136,7 +136,10 @@ def test_sky130_published_values():
         (67, 20), (67, 44), (68, 20), (68, 44), (69, 20)]
     assert [tech.layer(r) for r in ("nwell", "deep_nwell", "poly", "nplus", "pplus")] == [
         (64, 20), (64, 18), (66, 20), (93, 44), (94, 20)]
-    assert dict(tech.labels) == {"metal2": (68, 5), "metal3": (69, 5)}
+    # gds_layers.csv: li1 / met1 / met2 label purposes 67/5, 68/5, 69/5 and pin purposes
+    # 67/16, 68/16, 69/16 ("Text and data").
+    assert dict(tech.labels) == {"metal1": ((67, 5), (67, 16)), "metal2": ((68, 5), (68, 16)),
+                                 "metal3": ((69, 5), (69, 16))}
     # skywater-pdk docs/rules: 81:6 marks pad diffusion for latch-up.
     assert tech.layer("io_marker") == (81, 6)
     assert ("tap", "contact", "metal1") in tech.connectivity
@@ -303,7 +306,7 @@ def test_tech_check_command(tmp_path):
     good = write(tmp_path, "good.toml", 'extends = "demo"\nname = "good"\n')
     out, err = io.StringIO(), io.StringIO()
     assert tech_check_command(str(good), out, err) == 0
-    assert out.getvalue() == f"{good}: ok: technology 'good', 12 layers, 3 rule tables\n"
+    assert out.getvalue() == f"{good}: ok: technology 'good', 12 layers, 4 rule tables\n"
     assert err.getvalue() == ""
     bad = write(tmp_path, "bad.toml", 'extends = "demo"\n[layers]\nnwel = [1, 0]\n')
     out, err = io.StringIO(), io.StringIO()
