@@ -1,10 +1,14 @@
 """Quillfern QF-S12 "Saltmarsh": the output driver of the SDO (serial data out) pad.
 
 A three-finger NMOS and a three-finger PMOS drive the pad; their drains meet on metal2,
-which runs to the bond pad labelled PAD_SDO. Each transistor sits in its own guard
-ring: a contacted P+ substrate-tap ring (on VSS) around the NMOS, a contacted N+ tap
-ring (on VDD) inside the PMOS's n-well. The gates are brought in on metal2 over the
-rings, so both rings are closed. Coordinates in micrometres, demo technology.
+which runs to the bond pad labelled PAD_SDO. Each transistor sits in double guard
+rings: the NMOS in a contacted P+ substrate-tap ring (on VSS) and, outside it, an
+n-well ring with a contacted N+ tap ring (on VDD) that collects the electrons the NMOS
+injects when the pad falls below ground; the PMOS in a contacted N+ tap ring (on VDD)
+inside its n-well and, outside the well, a contacted P+ tap ring (on VSS) that takes
+the holes it injects when the pad rises above the supply. The gates are brought in on
+metal2 over the rings from the pre-driver, a core inverter 22 um to the left, so every
+ring is closed. Coordinates in micrometres, demo technology.
 """
 
 import gdstk
@@ -40,6 +44,35 @@ def guard_ring(cell, implant, x0, y0, x1, y1):
         box(cell, ACTIVE, *side)  # ring side
         box(cell, METAL1, *side)
         contact_row(cell, *side)
+
+
+def well_ring(cell, x0, y0, x1, y1):
+    """An n-well ring 4 um wide with outer edge (x0, y0)-(x1, y1), an N+ tap ring in it."""
+    for side in ((x0, y0, x1, y0 + 4), (x0, y1 - 4, x1, y1), (x0, y0 + 4, x0 + 4, y1 - 4), (x1 - 4, y0 + 4, x1, y1 - 4)):
+        box(cell, NWELL, *side)
+    guard_ring(cell, NPLUS, x0 + 1, y0 + 1, x1 - 1, y1 - 1)
+
+
+def tap(cell, implant, x, y, name):
+    """A contacted 2 um tap with metal1 and the supply's label."""
+    box(cell, implant, x, y, x + 2, y + 2)
+    box(cell, ACTIVE, x, y, x + 2, y + 2)
+    box(cell, CONTACT, x + 0.8, y + 0.8, x + 1.2, y + 1.2)
+    box(cell, METAL1, x, y, x + 2, y + 2)
+    cell.add(gdstk.Label(name, (x + 1, y + 1), layer=METAL1_PIN[0], texttype=METAL1_PIN[1]))
+
+
+def pre_driver(cell, x0, y0):
+    """The core inverter that drives the gates: a PMOS in its own n-well with the well's
+    tap at the far (left) end, and an NMOS beside a substrate tap."""
+    box(cell, NWELL, x0, y0 + 8.0, x0 + 14.0, y0 + 20.0)
+    tap(cell, NPLUS, x0 + 1.0, y0 + 12.0, "VDD")
+    box(cell, PPLUS, x0 + 6.0, y0 + 12.0, x0 + 10.0, y0 + 15.0)
+    box(cell, ACTIVE, x0 + 6.0, y0 + 12.0, x0 + 10.0, y0 + 15.0)  # pre-driver PMOS
+    tap(cell, PPLUS, x0 + 1.0, y0 + 1.0, "VSS")
+    box(cell, NPLUS, x0 + 6.0, y0 + 1.0, x0 + 10.0, y0 + 4.0)
+    box(cell, ACTIVE, x0 + 6.0, y0 + 1.0, x0 + 10.0, y0 + 4.0)  # pre-driver NMOS
+    box(cell, POLY, x0 + 7.5, y0 + 0.0, x0 + 8.5, y0 + 16.0)
 
 
 def output_transistor(cell, implant, x0, y0, gate_below):
@@ -80,6 +113,8 @@ def sdo_driver():
     guard_ring(cell, PPLUS, -ring, -ring, DEVICE_W + ring, DEVICE_H + ring)
     cell.add(gdstk.Label("VSS", (DEVICE_W / 2, -ring + 1.0), layer=METAL1_PIN[0], texttype=METAL1_PIN[1]))
     gate_feed(cell, 0.0, n_bar, "SDO_N")
+    well_ring(cell, -ring - 6.0, -ring - 6.0, DEVICE_W + ring + 6.0, DEVICE_H + ring + 6.0)
+    cell.add(gdstk.Label("VDD", (DEVICE_W / 2, -ring - 4.0), layer=METAL1_PIN[0], texttype=METAL1_PIN[1]))
     # PMOS 23 um above it, in an n-well with an N+ ring.
     p_y = DEVICE_H + 23.0
     box(cell, NWELL, -ring - 2.0, p_y - ring - 2.0, DEVICE_W + ring + 2.0, p_y + DEVICE_H + ring + 2.0)
@@ -88,6 +123,10 @@ def sdo_driver():
     cell.add(gdstk.Label("VDD", (DEVICE_W / 2, p_y + DEVICE_H + ring - 1.0), layer=METAL1_PIN[0],
                          texttype=METAL1_PIN[1]))
     gate_feed(cell, 0.0, p_bar, "SDO_P")
+    guard_ring(cell, PPLUS, -ring - 6.0, p_y - ring - 6.0, DEVICE_W + ring + 6.0, p_y + DEVICE_H + ring + 6.0)
+    cell.add(gdstk.Label("VSS", (DEVICE_W / 2, p_y + DEVICE_H + ring + 5.0), layer=METAL1_PIN[0],
+                         texttype=METAL1_PIN[1]))
+    pre_driver(cell, -36.0, 0.0)
     # Both drains on metal2, out to the bond pad.
     box(cell, METAL2, 11.8, n_drain - 0.5, 12.8, p_drain + 0.5)
     box(cell, METAL2, 11.8, 16.0, 40.0, 18.0)

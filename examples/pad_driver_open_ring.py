@@ -46,6 +46,28 @@ def guard_ring(cell, implant, x0, y0, x1, y1, gap=None):
         contact_row(cell, *side)
 
 
+def tap(cell, implant, x, y, name):
+    """A contacted 2 um tap with metal1 and the supply's label."""
+    box(cell, implant, x, y, x + 2, y + 2)
+    box(cell, ACTIVE, x, y, x + 2, y + 2)
+    box(cell, CONTACT, x + 0.8, y + 0.8, x + 1.2, y + 1.2)
+    box(cell, METAL1, x, y, x + 2, y + 2)
+    cell.add(gdstk.Label(name, (x + 1, y + 1), layer=METAL1_PIN[0], texttype=METAL1_PIN[1]))
+
+
+def pre_driver(cell, x0, y0):
+    """The core inverter that drives the gates: a PMOS in its own n-well with the well's
+    tap at the far (left) end, and an NMOS beside a substrate tap."""
+    box(cell, NWELL, x0, y0 + 8.0, x0 + 14.0, y0 + 20.0)
+    tap(cell, NPLUS, x0 + 1.0, y0 + 12.0, "VDD")
+    box(cell, PPLUS, x0 + 6.0, y0 + 12.0, x0 + 10.0, y0 + 15.0)
+    box(cell, ACTIVE, x0 + 6.0, y0 + 12.0, x0 + 10.0, y0 + 15.0)  # pre-driver PMOS
+    tap(cell, PPLUS, x0 + 1.0, y0 + 1.0, "VSS")
+    box(cell, NPLUS, x0 + 6.0, y0 + 1.0, x0 + 10.0, y0 + 4.0)
+    box(cell, ACTIVE, x0 + 6.0, y0 + 1.0, x0 + 10.0, y0 + 4.0)  # pre-driver NMOS
+    box(cell, POLY, x0 + 7.5, y0 + 0.0, x0 + 8.5, y0 + 16.0)
+
+
 def output_transistor(cell, implant, x0, y0, gate_below):
     """Three fingers; source strips run to the ring on the far side from the gate bar.
 
@@ -101,6 +123,7 @@ def sdo_driver():
     cell.add(gdstk.Label("VDD", (DEVICE_W / 2, p_y + DEVICE_H + ring - 1.0), layer=METAL1_PIN[0],
                          texttype=METAL1_PIN[1]))
     gate_feed(cell, 0.0, p_bar, "SDO_P")
+    pre_driver(cell, -36.0, 0.0)
     # Both drains on metal2, out to the bond pad.
     box(cell, METAL2, 11.8, n_drain - 0.5, 12.8, p_drain + 0.5)
     box(cell, METAL2, 11.8, 16.0, 40.0, 18.0)

@@ -33,6 +33,7 @@ import scipy.sparse as sp
 import shapely
 from scipy import ndimage
 from scipy.sparse.linalg import splu
+from scipy.spatial import cKDTree
 
 GROWTH = 2.0  # largest ratio between neighbouring cell sizes
 CELLS_ACROSS = 3  # adaptive grid: fine cells across the narrowest device or tap
@@ -74,6 +75,10 @@ class SheetProblem:
     devices: np.ndarray
     sheet: float  # ohm per square
     grid: float | None = None  # largest cell; None: adaptive
+    # A sink per unit area (1/um^2 with sheet = 1): the steady diffusion-with-recombination
+    # equation laplacian(n) = n / L^2 has reaction = 1 / L^2 (analyzers/electrical/transport.py).
+    # With a reaction, cells with no path to a tap are kept: the matrix stays regular.
+    reaction: float = 0.0
 
 
 @dataclass
@@ -147,8 +152,11 @@ def dimensions(geoms: np.ndarray) -> np.ndarray:
     return np.minimum(b[:, 2] - b[:, 0], b[:, 3] - b[:, 1])
 
 
-def make_mesh(problem: SheetProblem) -> tuple[Mesh, float]:
-    """The grid of a problem and its outline-layer thickness."""
+def make_mesh(problem: SheetProblem, max_cell: float | None = None,
+              refine: tuple[np.ndarray, float] | None = None) -> tuple[Mesh, float]:
+    """The grid of a problem and its outline-layer thickness; ``max_cell`` caps the
+    adaptive grid's largest cell (a diffusion length has to be resolved everywhere), and
+    ``refine`` = (polygons, size) caps it over each polygon's bounding box."""
     x0, y0, x1, y1 = problem.box
     side = max(x1 - x0, y1 - y0)
     if problem.grid is not None:
@@ -157,7 +165,7 @@ def make_mesh(problem: SheetProblem) -> tuple[Mesh, float]:
         dims = np.r_[dimensions(problem.devices), dimensions(problem.taps)]
         dims = dims[dims > 0]
         fine = (dims.min() if len(dims) else side) / CELLS_ACROSS
-        coarse = side * COARSE_FRACTION
+        coarse = side * COARSE_FRACTION if max_cell is None else min(side * COARSE_FRACTION, max_cell)
     fine = max(min(fine, side / 4), side * 1e-5)
     coarse = max(coarse, fine)
     layer = fine * LAYER_FRACTION
@@ -166,6 +174,12 @@ def make_mesh(problem: SheetProblem) -> tuple[Mesh, float]:
     xs = np.r_[sx, dx, dx - layer, dx + layer]
     ys = np.r_[sy, dy, dy - layer, dy + layer]
     zones_x, zones_y = _oblique_zones(problem, fine if problem.grid is not None else None, coarse)
+    if refine is not None and len(refine[0]) and problem.grid is None:
+        b = shapely.bounds(refine[0])
+        size = np.full(len(b), max(refine[1], fine))
+        extra_x, extra_y = np.c_[b[:, 0], b[:, 2], size], np.c_[b[:, 1], b[:, 3], size]
+        zones_x = extra_x if zones_x is None else np.r_[zones_x, extra_x]
+        zones_y = extra_y if zones_y is None else np.r_[zones_y, extra_y]
     mesh = Mesh(graded_lines(x0, x1, xs, fine, coarse, zones_x),
                 graded_lines(y0, y1, ys, fine, coarse, zones_y))
     return mesh, layer
@@ -243,6 +257,11 @@ class _Network:
     matrix: sp.csc_matrix
     node: np.ndarray  # (ny, nx) node number of each kept free cell, -1 elsewhere
     tap: np.ndarray  # (ny, nx) bool
+    # Every link from a free cell to a tap cell: (node, conductance, flat index of the tap
+    # cell); the current into a tap is the sum of conductance * potential over its links.
+    ground_node: np.ndarray
+    ground_g: np.ndarray
+    ground_cell: np.ndarray
 
 
 def build_network(mesh: Mesh, problem: SheetProblem) -> _Network:
@@ -258,14 +277,18 @@ def build_network(mesh: Mesh, problem: SheetProblem) -> _Network:
     beside_tap[:, 1:] |= tap[:, :-1]
     beside_tap[:-1, :] |= tap[1:, :]
     beside_tap[1:, :] |= tap[:-1, :]
-    component, _ = ndimage.label(free)
-    grounded = np.unique(component[free & beside_tap])
-    keep = free & np.isin(component, grounded[grounded > 0])
+    if problem.reaction > 0:
+        keep = free
+    else:
+        component, _ = ndimage.label(free)
+        grounded = np.unique(component[free & beside_tap])
+        keep = free & np.isin(component, grounded[grounded > 0])
     node = np.full(mesh.shape, -1, np.int64)
     n = int(keep.sum())
     node[keep] = np.arange(n)
     dx, dy, rs = np.diff(mesh.x), np.diff(mesh.y), problem.sheet
-    rows, cols, vals, ground_node, ground_g = [], [], [], [], []
+    rows, cols, vals, ground_node, ground_g, ground_cell = [], [], [], [], [], []
+    cell_index = np.arange(mesh.cells).reshape(mesh.shape)
     # Neighbours along each axis: face over centre distance; to a tap, over half the free cell.
     for axis in (1, 0):
         a, b = (np.s_[:, :-1], np.s_[:, 1:]) if axis == 1 else (np.s_[:-1, :], np.s_[1:, :])
@@ -280,15 +303,18 @@ def build_network(mesh: Mesh, problem: SheetProblem) -> _Network:
             touch = keep[here] & tap[there]
             ground_node.append(node[here][touch])
             ground_g.append(np.broadcast_to(face / (rs * half_step / 2), touch.shape)[touch])
+            ground_cell.append(cell_index[there][touch])
     r, c, v = np.concatenate(rows), np.concatenate(cols), np.concatenate(vals)
-    degree = (np.bincount(r, v, n) + np.bincount(c, v, n)
-              + np.bincount(np.concatenate(ground_node), np.concatenate(ground_g), n))
+    ground_node, ground_g = np.concatenate(ground_node), np.concatenate(ground_g)
+    degree = np.bincount(r, v, n) + np.bincount(c, v, n) + np.bincount(ground_node, ground_g, n)
+    if problem.reaction > 0:
+        degree += (dy[:, None] * dx[None, :])[keep] * problem.reaction / rs
     diag = np.arange(n)
     matrix = sp.csc_matrix((np.r_[-v, -v, degree], (np.r_[r, c, diag], np.r_[c, r, diag])), shape=(n, n))
-    return _Network(matrix, node, tap)
+    return _Network(matrix, node, tap, ground_node, ground_g, np.concatenate(ground_cell))
 
 
-def _outlines(mesh: Mesh, network: _Network, label: np.ndarray, n_devices: int):
+def outlines(mesh: Mesh, network: _Network, label: np.ndarray, n_devices: int):
     """Per device: the node numbers of its cells that border the rest of the sheet, and
     the length of that border (the weight of uniform current density)."""
     dx, dy = np.diff(mesh.x), np.diff(mesh.y)
@@ -319,7 +345,7 @@ def solve(problem: SheetProblem) -> SheetResult:
     mesh, _layer = make_mesh(problem)
     network = build_network(mesh, problem)
     label = paint(mesh, problem.devices, np.arange(n_dev))
-    dev, nodes, w, shorted = _outlines(mesh, network, label, n_dev)
+    dev, nodes, w, shorted = outlines(mesh, network, label, n_dev)
     resistance = np.full(n_dev, np.inf)
     resistance[shorted] = 0.0
     n = network.matrix.shape[0]
@@ -327,11 +353,15 @@ def solve(problem: SheetProblem) -> SheetResult:
     dev, nodes, w = dev[keep], nodes[keep], w[keep]
     if n == 0 or len(dev) == 0:
         return SheetResult(resistance, n, 0)
-    lu = splu(network.matrix, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
-              options={"SymmetricMode": True})
+    lu = factorize(network.matrix)
     devices, bound, iterations = equipotential_resistance(lu, n, dev, nodes, w)
     resistance[devices] = bound
     return SheetResult(resistance, n, iterations)
+
+
+def factorize(matrix: sp.csc_matrix):
+    """The sparse LU factorization of a symmetric positive definite network matrix."""
+    return splu(matrix, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0, options={"SymmetricMode": True})
 
 
 @dataclass
@@ -350,14 +380,14 @@ def potential_field(problem: SheetProblem, device: int = 0) -> PotentialField:
     mesh, _layer = make_mesh(problem)
     network = build_network(mesh, problem)
     label = paint(mesh, problem.devices[device:device + 1], np.array([0]))
-    dev, nodes, w, shorted = _outlines(mesh, network, label, 1)
+    dev, nodes, w, shorted = outlines(mesh, network, label, 1)
     potential = np.full(mesh.shape, np.nan)
     potential[network.tap] = 0.0
     shares = np.zeros(len(problem.taps))
     n = network.matrix.shape[0]
     if n == 0 or len(dev) == 0 or shorted[0]:
         return PotentialField(mesh, potential, shares, 0.0 if shorted[0] else np.inf)
-    lu = splu(network.matrix, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0, options={"SymmetricMode": True})
+    lu = factorize(network.matrix)
     _, bound, _ = equipotential_resistance(lu, n, dev, nodes, w, keep_q=True)
     q = bound[1]
     current = np.zeros(n)
@@ -366,26 +396,17 @@ def potential_field(problem: SheetProblem, device: int = 0) -> PotentialField:
     potential[network.node >= 0] = volts[network.node[network.node >= 0]]
     potential[label >= 0] = np.where(network.node[label >= 0] >= 0, potential[label >= 0], 1.0)
     tap_label = paint(mesh, problem.taps, np.arange(len(problem.taps)))
-    shares = _tap_currents(mesh, network, volts, tap_label, problem.sheet, len(problem.taps))
+    shares = _tap_currents(network, volts, tap_label, len(problem.taps))
     total = shares.sum()
     return PotentialField(mesh, potential, shares / total if total > 0 else shares, float(bound[0][0]))
 
 
-def _tap_currents(mesh: Mesh, network: _Network, volts: np.ndarray, tap_label: np.ndarray, rs: float,
-                  n_taps: int) -> np.ndarray:
-    """Current into each tap: over every face between a free cell and a tap cell, the
-    cell's potential times that link's conductance (the one build_network grounds)."""
-    out = np.zeros(n_taps)
-    dx, dy = np.diff(mesh.x), np.diff(mesh.y)
-    node = network.node
-    for a, b, face, half in ((np.s_[:, :-1], np.s_[:, 1:], dy[:, None], dx[None, :-1]),
-                             (np.s_[:, 1:], np.s_[:, :-1], dy[:, None], dx[None, 1:]),
-                             (np.s_[:-1, :], np.s_[1:, :], dx[None, :], dy[:-1, None]),
-                             (np.s_[1:, :], np.s_[:-1, :], dx[None, :], dy[1:, None])):
-        touch = (node[a] >= 0) & network.tap[b] & (tap_label[b] >= 0)
-        g = np.broadcast_to(face / (rs * half / 2), touch.shape)[touch]
-        np.add.at(out, tap_label[b][touch], g * volts[node[a][touch]])
-    return out
+def _tap_currents(network: _Network, volts: np.ndarray, tap_label: np.ndarray, n_taps: int) -> np.ndarray:
+    """Current into each tap: over the network's links to tap cells, conductance times the
+    free cell's potential, summed by the tap the cell belongs to."""
+    tap_of = tap_label.ravel()[network.ground_cell]
+    on = tap_of >= 0
+    return np.bincount(tap_of[on], network.ground_g[on] * volts[network.ground_node[on]], n_taps)
 
 
 def equipotential_resistance(lu, n: int, dev: np.ndarray, nodes: np.ndarray, w: np.ndarray, keep_q: bool = False):
@@ -439,3 +460,43 @@ def equipotential_resistance(lu, n: int, dev: np.ndarray, nodes: np.ndarray, w: 
         rr = rr_new
         live &= ~settled & (pap > 0)
     return devices, (bound, q) if keep_q else bound, iterations
+
+
+@dataclass
+class SourceResult:
+    """Potentials of a sheet carrying distributed sources, at its devices (the emitters)."""
+
+    peak: np.ndarray  # V per device: the highest potential over its cells (0 where none is kept)
+    at: np.ndarray  # (n_devices, 2) the centre of the cell where it occurs
+    cells: int
+
+
+def source_potentials(problem: SheetProblem, points: np.ndarray, currents: np.ndarray) -> SourceResult:
+    """Currents (A) entering the sheet at ``points`` (each at the nearest cell of the sheet
+    that reaches a tap) and leaving through the grounded taps: the potential of every
+    device's cells, its peak and where it sits. The devices are not electrodes here: an
+    emitter at its rail draws no current until it is forward-biased, so the sheet's
+    potential under it is its forward bias."""
+    n_dev = len(problem.devices)
+    peak, at = np.zeros(n_dev), np.full((n_dev, 2), np.nan)
+    mesh, _layer = make_mesh(problem)
+    network = build_network(mesh, problem)
+    n = network.matrix.shape[0]
+    if n == 0 or len(points) == 0:
+        return SourceResult(peak, at, n)
+    xc, yc = (mesh.x[:-1] + mesh.x[1:]) / 2, (mesh.y[:-1] + mesh.y[1:]) / 2
+    rows, cols = np.nonzero(network.node >= 0)
+    _, nearest = cKDTree(np.c_[xc[cols], yc[rows]]).query(points)
+    rhs = np.bincount(network.node[rows[nearest], cols[nearest]], currents, n)
+    potential = factorize(network.matrix).solve(rhs)
+    label = paint(mesh, problem.devices, np.arange(n_dev))
+    on = (label >= 0) & (network.node >= 0)
+    if not on.any():
+        return SourceResult(peak, at, n)
+    dev, value = label[on], potential[network.node[on]]
+    jj, ii = np.nonzero(on)
+    order = np.lexsort((-value, dev))
+    first = order[np.r_[True, dev[order][1:] != dev[order][:-1]]]
+    peak[dev[first]] = value[first]
+    at[dev[first]] = np.c_[xc[ii[first]], yc[jj[first]]]
+    return SourceResult(peak, at, n)

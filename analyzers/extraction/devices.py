@@ -8,6 +8,7 @@ import numpy as np
 import shapely
 
 from latchwatch.analyzers.electrical.shunt import shunt_estimates
+from latchwatch.analyzers.electrical.trigger import injections
 from latchwatch.analyzers.extraction.extract import (
     SUBSTRATE,
     Pieces,
@@ -114,6 +115,7 @@ def device_table(ctx) -> list[Device]:
         bounds = shapely.bounds(r.pieces.geoms)
         net_names = device_net_names(ctx, kind)
         shunt = shunt_estimates(ctx, exact=True)[kind]
+        injected = injections(ctx)[kind]
         ohm, trigger = _finite(shunt.ohm), _finite(shunt.trigger)
         for i in range(len(r.pieces)):
             loc = ctx.provenance.locate_shape(int(r.pieces.shape[i]))
@@ -124,6 +126,7 @@ def device_table(ctx) -> list[Device]:
                 body=body_name(kind, int(r.pieces.body[i])),
                 tap_distance_um=None if not np.isfinite(value) else round(float(value), 6),
                 net=net_names[i], shunt_ohm=ohm[i], trigger_current_a=trigger[i], corner=ctx.outcome.corner,
+                injection=injected[i].record() if i in injected else None,
             ))
     return rows
 

@@ -113,3 +113,6 @@ class Device:
     trigger_current_a: float | None = None
     net: str | None = None  # names of the labelled nets its terminals are on, comma-separated
     corner: dict | None = None  # the parameter corner of the run it came from (issue 7)
+    # Injectors (pad-connected diffusions) only: where their injected current goes
+    # (docs/report-json.md; analyzers/electrical/trigger.py, Injection.record).
+    injection: dict | None = field(default=None, compare=False, hash=False)

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from latchwatch.analyzers.rules import (
     floating_well,
+    injection_bias,
     invalid_geometry,
     io_guard_ring,
     io_spacing,
@@ -30,6 +31,7 @@ RULES: tuple[Rule, ...] = (
     io_spacing.RULE,
     isolation_tie.RULE,
     shunt_resistance.RULE,
+    injection_bias.RULE,
     script_error.RULE,
     script_timeout.RULE,
     script_limit.RULE,

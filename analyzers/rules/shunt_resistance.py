@@ -1,6 +1,6 @@
-"""shunt-resistance: the estimated well or substrate resistance from a device to its taps
-is so high that less than the current the device must withstand forward-biases its
-junction (the estimate is analyzers/electrical/shunt.py on the sheet model of analyzers/electrical/sheet.py)."""
+"""shunt-resistance: the estimated well or substrate resistance from a core device to its
+taps is so high that less than core_current forward-biases its junction (the estimate is
+analyzers/electrical/shunt.py on the sheet model of analyzers/electrical/sheet.py)."""
 
 from __future__ import annotations
 
@@ -33,8 +33,9 @@ def check(ctx):
             limit = est.vbe_on / est.required
         has_tap = np.isin(pieces.body, est.taps.body)
         # No finding without a sheet value, or without any contacted tap in the body
-        # (floating-well and tap-distance report those).
-        failing = np.flatnonzero(~np.isnan(est.ohm) & has_tap & (est.ohm > limit))
+        # (floating-well and tap-distance report those); pad-connected devices are
+        # injection-bias's, which follows their injected current to where it does harm.
+        failing = np.flatnonzero(~np.isnan(est.ohm) & has_tap & (est.ohm > limit) & ~est.pad)
         # One finding per drawn shape: its worst piece.
         order = failing[np.lexsort((-est.ohm[failing], pieces.shape[failing]))]
         first = np.r_[True, pieces.shape[order][1:] != pieces.shape[order][:-1]] if len(order) else []
@@ -74,11 +75,13 @@ RULE = Rule(
              "configured current forward-bias the junction."),
     doc=RuleDoc(
         flags=(
-            "Every P+ device diffusion in an n-well, and every N+ device diffusion in the substrate or in an "
-            "isolated p-well, whose estimated shunt resistance R to the contacted taps of its body exceeds "
-            "vbe_on / I, where I is the current the device must withstand: [electrical] injection_current "
-            "(default 0.1 A, the JEDEC JESD78 I-test level) for a pad-connected device, core_current for any "
-            "other. No standard sets a core device's current; the default core_current of 100 uA is chosen so "
+            "Every core (not pad-connected) P+ device diffusion in an n-well, and every core N+ device "
+            "diffusion in the substrate or in an isolated p-well, whose estimated shunt resistance R to the "
+            "contacted taps of its body exceeds vbe_on / I, where I is [electrical] core_current. Pad-connected "
+            "devices are left to injection-bias: comparing their whole injection_current (0.1 A) with one "
+            "shunt asked for under 7 ohm, which no well or substrate sheet gives, so every pad device warned, "
+            "however well ringed; injection-bias follows the injected carriers to the bodies that collect "
+            "them instead. No standard sets a core device's current; the default core_current of 100 uA is chosen so "
             "that a 2 um wide device 20 um down a 5 um wide n-well of 1 kohm/sq from its tap (R about 4 kohm) "
             "passes, in line with a 20 um tap-distance rule: set it from your own qualification data. The "
             "message, the hover and the --devices table give R and the trigger current vbe_on / R with three "

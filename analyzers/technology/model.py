@@ -109,6 +109,12 @@ class Electrical:
     pwell_depth: float | None = None
     psub_doping: float | None = None
     psub_depth: float | None = None  # also turns psub_resistivity into a sheet
+    # The trigger analysis (analyzers/electrical/carriers.py holds the defaults and their sources).
+    electron_diffusion_length: float | None = None  # um, electrons in the p-body
+    hole_diffusion_length: float | None = None  # um, holes in an n-well
+    electron_lifetime: float | None = None  # s; with the doping gives the length when it is unset
+    hole_lifetime: float | None = None  # s
+    temperature: float = 25.0  # C, at which vbe_on, the sheets and the lengths apply
 
     def sheet(self, body: str) -> float | None:
         """Sheet resistance (ohm/sq) of "nwell", "pwell" or "psub": the given sheet value,
@@ -132,7 +138,8 @@ ELECTRICAL_UNITS = {
     "vbe_on": "V", "nwell_sheet": "ohm/sq", "psub_sheet": "ohm/sq", "injection_current": "A",
     "pwell_sheet": "ohm/sq", "deep_nwell_sheet": "ohm/sq", "psub_resistivity": "ohm cm", "core_current": "A",
     "sheet_grid": "um", "nwell_doping": "cm^-3", "nwell_depth": "um", "pwell_doping": "cm^-3", "pwell_depth": "um",
-    "psub_doping": "cm^-3", "psub_depth": "um",
+    "psub_doping": "cm^-3", "psub_depth": "um", "electron_diffusion_length": "um",
+    "hole_diffusion_length": "um", "electron_lifetime": "s", "hole_lifetime": "s", "temperature": "C",
 }
 
 
@@ -319,6 +326,12 @@ class _Checker:
             raise self.fail(key, expected, value)
         return float(value)
 
+    def celsius(self, value: Any, key: str) -> float:
+        ok = isinstance(value, (int, float)) and not isinstance(value, bool) and -273.15 < value <= 400
+        if not ok:
+            raise self.fail(key, "a temperature in degrees Celsius above -273.15 and up to 400", value)
+        return float(value)
+
     def pair(self, value: Any, key: str) -> tuple[int, int]:
         ok = (isinstance(value, list) and len(value) == 2
               and all(isinstance(v, int) and not isinstance(v, bool) and v >= 0 for v in value))
@@ -426,7 +439,8 @@ class _Checker:
     def electrical(self, value: Any) -> Electrical:
         table = self.table(value, "electrical")
         self.known_keys(table, "electrical", ELECTRICAL_KEYS)
-        values = {k: self.number(v, f"electrical.{k}") for k, v in table.items()}
+        values = {k: self.celsius(v, f"electrical.{k}") if k == "temperature" else self.number(v, f"electrical.{k}")
+                  for k, v in table.items()}
         for body in ("nwell", "pwell", "psub"):
             doping, depth = f"{body}_doping", f"{body}_depth"
             if doping in values and not MIN_DOPING <= values[doping] <= MAX_DOPING:

@@ -29,10 +29,10 @@ from latchwatch.server.sandbox.policy import pass_env_problem
 from latchwatch.server.sandbox.runner import RunnerError
 
 CAUTION = (
-    "latchwatch is an early-warning aid for generator authors, not sign-off. Its resistance figures are "
-    "estimates from a sheet model. Tape-out needs the foundry's qualified rule deck, its latch-up and ESD "
-    "guidelines, and qualification of silicon (for example JEDEC JESD78); defer to them and to the "
-    "foundry's and your organisation's qualified practice."
+    "latchwatch is an early-warning aid for generator authors, not sign-off. Its resistance and injection "
+    "figures are estimates from sheet and diffusion models. Tape-out needs the foundry's qualified rule "
+    "deck, its latch-up and ESD guidelines, and qualification of silicon (for example JEDEC JESD78); "
+    "defer to them and to the foundry's and your organisation's qualified practice."
 )
 FAIL_LEVELS = {"error": Severity.ERROR, "warning": Severity.WARNING, "info": Severity.INFO, "never": None}
 RENDERERS = {"text": render_text, "json": render_json, "sarif": render_sarif}

@@ -24,6 +24,7 @@ from lsprotocol import types
 from pygls.uris import from_fs_path
 
 from latchwatch.analyzers.electrical.shunt import si
+from latchwatch.analyzers.electrical.trigger import describe_injection
 from latchwatch.analyzers.model.findings import Device, Finding, Severity
 from latchwatch.server.report.model import corner_label
 from latchwatch.server.report.terminal import terminal_safe
@@ -31,7 +32,8 @@ from latchwatch.server.report.terminal import terminal_safe
 SOURCE = "latchwatch"
 MAX_RELATED = 30  # per diagnostic; a loop over hundreds of shapes must not flood the editor
 MAX_OTHER_FIGURES = 5
-DEVICE_RULES = {"tap-distance": "figure", "floating-well": "count", "shunt-resistance": "figure"}
+DEVICE_RULES = {"tap-distance": "figure", "floating-well": "count", "shunt-resistance": "figure",
+                "injection-bias": "figure"}
 KIND_NOUNS = {"pdiff": "P+ diffusion", "ndiff": "N+ diffusion"}
 TAP_NAMES = {"pdiff": "n-well tap", "ndiff": "substrate tap"}
 
@@ -426,6 +428,9 @@ def hover_markdown(file: str, line: int, devices: Iterable[Device], findings: It
                         f"{si(max(shunts), 'ohm')}" + (f", down to {si(min(shunts), 'ohm')}" if len(shunts) > 1 else ""))
         if currents:
             text.append(f"- current through it that forward-biases the junction: down to {si(min(currents), 'A')}")
+        for d in of_kind:
+            if d.injection is not None:
+                text.append(f"- {describe_injection(d.injection)} (diffusion and sheet model)")
         if len(shunts) < len(of_kind):
             text.append(f"- {len(of_kind) - len(shunts)} without a shunt estimate (no contacted tap reachable, "
                         "or no sheet resistance for the body in the technology)")

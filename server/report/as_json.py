@@ -113,8 +113,8 @@ def run_to_dict(run: RunSummary) -> dict:
 
 
 def device_to_dict(device: Device) -> dict:
-    """A device row as a JSON object."""
-    return {
+    """A device row as a JSON object; an injector's row adds ``injection``."""
+    row = {
         "kind": device.kind,
         "cell": device.cell,
         "bbox": point(device.bbox),
@@ -127,6 +127,9 @@ def device_to_dict(device: Device) -> dict:
         "net": device.net,
         "corner": plain(device.corner),  # added compatibly: which corner's run the row is from
     }
+    if device.injection is not None:
+        row["injection"] = plain(device.injection)
+    return row
 
 
 def report_to_dict(report: Report, *, base: Path | None = None) -> dict:

@@ -14,6 +14,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from latchwatch.analyzers.electrical.shunt import si
+from latchwatch.analyzers.electrical.trigger import describe_injection
 from latchwatch.analyzers.layout.tops import CheckedTop
 from latchwatch.analyzers.model.findings import Device, Finding
 from latchwatch.server.report.model import Report, corner_label, for_display
@@ -93,6 +94,8 @@ def _device_fields(device: Device) -> list[str]:
         fields.append("trigger " + si(device.trigger_current_a, "A"))
     if device.net:
         fields.append(f"net {device.net}")
+    if device.injection is not None:
+        fields.append(describe_injection(device.injection))
     where = f"at {device.file} line {device.line}" if device.file and device.line else "at"
     x0, y0, x1, y1 = device.bbox
     where += f" (cell {device.cell}, {x0:.2f}, {y0:.2f} to {x1:.2f}, {y1:.2f})"

@@ -12,7 +12,8 @@ CATALOGUE = {
     "tap-distance": Severity.ERROR, "floating-well": Severity.ERROR, "uncontacted-tap": Severity.WARNING,
     "tap-contact-distance": Severity.ERROR,
     "tap-supply": Severity.WARNING, "io-guard-ring": Severity.ERROR, "io-spacing": Severity.WARNING,
-    "isolation-tie": Severity.ERROR, "shunt-resistance": Severity.WARNING, "script-error": Severity.ERROR,
+    "isolation-tie": Severity.ERROR, "shunt-resistance": Severity.WARNING,
+    "injection-bias": Severity.WARNING, "script-error": Severity.ERROR,
     "script-timeout": Severity.ERROR, "script-limit": Severity.ERROR, "invalid-geometry": Severity.WARNING,
     "no-geometry": Severity.WARNING,
 }
