@@ -17,9 +17,11 @@ from latchwatch.analyzers.rules.tap_distance import describe
 EVENT = {"electrons": "electrons injected when the pad falls below ground",
          "holes": "holes injected when the pad rises above the supply"}
 EMITTER = {"electrons": "P+ diffusion", "holes": "N+ diffusion"}
-MESSAGE = ("{what}: of {current} {event}, {collected} ({fraction}) reaches the {collector} {body}, which "
-           "builds {bias} of forward bias under the {emitter} at ({x:.2f}, {y:.2f}), above vbe_on {vbe} "
-           "at {temperature:g} C (diffusion and sheet model)")
+# The model is linear: past vbe_on the junction conducts and clamps, so a bias far above
+# it says "turns on", not that voltage; the message says so.
+MESSAGE = ("{what}: of {current} {event}, {collected} ({fraction}) reaches the {collector} {body} and "
+           "forward-biases the {emitter} at ({x:.2f}, {y:.2f}) by {bias} in a linear model, past "
+           "vbe_on {vbe} at {temperature:g} C, so it turns on (diffusion and sheet model)")
 
 
 def check(ctx):
