@@ -226,3 +226,58 @@ def test_the_gdsfactory_example(tmp_path):
     [tap] = finding["related"]
     assert tap["line"] == line_of(text, "c << gf.components.rectangle(size=(1.5, h), layer=ACTIVE)")
     assert tap["location"] == pytest.approx([35.75, 4.0], abs=1e-3)
+
+
+# A plain kfactory script (kfactory comes with the PDK's gdsfactory), no gdsfactory: a helper
+# draws a 2 um P+ device, an instance array places six of it at a 10 um pitch in one n-well
+# whose only contacted n-tap sits at the left end (demo technology, limit 20 um, invented).
+KFACTORY_ROW = '''"""A kfactory row: P+ devices as an array in one n-well, one n-tap at its left end."""
+import kfactory as kf
+
+kcl = kf.kcl
+NWELL, ACTIVE, NPLUS, PPLUS, CONTACT = (kcl.layer(1, 0), kcl.layer(2, 0), kcl.layer(4, 0), kcl.layer(5, 0),
+                                        kcl.layer(6, 0))
+
+
+def box(cell, layer, x0, y0, x1, y1):
+    cell.shapes(layer).insert(kf.kdb.DBox(x0, y0, x1, y1))
+
+
+def p_device():
+    cell = kcl.kcell("PDEV")
+    box(cell, PPLUS, 0, 0, 2, 2)
+    box(cell, ACTIVE, 0, 0, 2, 2)  # the P+ device
+    return cell
+
+
+top = kcl.kcell("ROW")
+box(top, NWELL, -6, -3, 70, 5)
+box(top, NPLUS, -4, 0, -2, 2)
+box(top, ACTIVE, -4, 0, -2, 2)
+box(top, CONTACT, -3.2, 0.8, -2.8, 1.2)
+row = top.create_inst(p_device(), a=kf.kdb.Vector(10000, 0), b=kf.kdb.Vector(0, 10000), na=6, nb=1)
+top.write("kf_row.gds")
+'''
+
+
+def test_a_kfactory_script_with_a_helper_and_an_array(tmp_path):
+    # Hand: member k spans x 10k..10k+2; its far edge is 10k + 2 - (-2) = 10k + 4 from the
+    # tap's edge: 4, 14, 24, 34, 44, 54 um, so members 2-5 fail at 20 um. Each finding is on
+    # the helper's line that drew the active, with the module line that called it and the
+    # array member as the placement.
+    (tmp_path / "kf_row.py").write_text(KFACTORY_ROW)
+    result = subprocess.run([sys.executable, "-m", "latchwatch", "check", "--tech", "demo", "--python", PDK_PYTHON,
+                             "--timeout", "120", "--format", "json", "kf_row.py"],
+                            cwd=tmp_path, capture_output=True, text=True, timeout=300)
+    assert result.returncode == 1, result.stderr
+    report = json.loads(result.stdout)
+    lines = KFACTORY_ROW.splitlines()
+    drew = lines.index("    box(cell, ACTIVE, 0, 0, 2, 2)  # the P+ device") + 1
+    placed = next(i for i, line in enumerate(lines, 1) if line.startswith("row = top.create_inst("))
+    found = sorted(report["findings"], key=lambda f: f["value"])
+    assert [f["value"] for f in found] == [24.0, 34.0, 44.0, 54.0]
+    assert {f["line"] for f in found} == {drew}
+    assert [p["instance"] for f in found for p in f["placements"]] == ["PDEV[2,0]", "PDEV[3,0]", "PDEV[4,0]",
+                                                                        "PDEV[5,0]"]
+    assert {p["line"] for f in found for p in f["placements"]} == {placed}
+    assert report["runs"][0]["tops"][0]["cell"] == "ROW"
