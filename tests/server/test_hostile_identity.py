@@ -15,15 +15,13 @@ import stat
 import subprocess
 import sys
 import tempfile
-import textwrap
 import time
-from pathlib import Path
 
 import pytest
+from sandboxes import needs, write_script
 
 from latchwatch.server.child import syscalls
 from latchwatch.server.sandbox import folders, runner
-from latchwatch.server.sandbox.workers import inspect_sandbox
 
 from procs import processes_with
 
@@ -34,25 +32,6 @@ linux_root = pytest.mark.skipif(not sys.platform.startswith("linux") or os.geteu
 @pytest.fixture(params=[False, True], ids=["fresh-child", "corner-host"])
 def run_script(request):
     return functools.partial(runner.run_script, hosted=request.param)
-
-
-@pytest.fixture(scope="module")
-def doctor():
-    report, ready, output = inspect_sandbox()
-    assert ready is not None and "import-error" not in ready, output
-    return report
-
-
-def needs(report, *names):
-    for name in names:
-        if name not in report.in_force:
-            pytest.skip(f"doctor: {name} unavailable: {report.missing.get(name, 'not reported')}")
-
-
-def _script(folder: Path, body: str, name: str = "hostile.py") -> Path:
-    path = folder / name
-    path.write_text(textwrap.dedent(body), encoding="utf-8")
-    return path
 
 
 @pytest.fixture
@@ -78,7 +57,7 @@ def test_root_only_files_cannot_be_read_and_the_run_folder_tells_the_truth(tmp_p
                                                                           run_script):
     needs(doctor, "privileges")
     _target, secret = root_owned
-    path = _script(tmp_path, f"""\
+    path = write_script(tmp_path, f"""\
         import os
         for name in ("/etc/shadow", {str(secret)!r}):
             try:
@@ -104,7 +83,7 @@ def test_a_script_folder_nobody_cannot_read_is_refused_not_run_as_root(tmp_path,
     private = tmp_path / "private"
     private.mkdir(mode=0o700)
     marker = tmp_path / "ran"
-    path = _script(private, f"open({str(marker)!r}, 'w').write('ran')\n")
+    path = write_script(private, f"open({str(marker)!r}, 'w').write('ran')\n")
     outcome = run_script(path)
     assert outcome.status == "error" and not marker.exists()
     assert "nobody (uid" in outcome.failure.message and f"cannot read {private}" in outcome.failure.message
@@ -134,7 +113,7 @@ def test_modes_times_and_attributes_of_a_file_outside_cannot_change(tmp_path, do
     needs(doctor, "syscalls")
     target, _secret = root_owned
     before = target.stat()
-    path = _script(tmp_path, f"""\
+    path = write_script(tmp_path, f"""\
         import os
         target = {str(target)!r}
         attempts = [("chmod 0666", lambda: os.chmod(target, 0o666)),
@@ -180,7 +159,7 @@ def test_a_unix_socket_outside_cannot_be_reached_but_locks_pools_and_pairs_work(
                                                                               identity, run_script):
     needs(doctor, "syscalls")
     address, server = root_socket
-    path = _script(tmp_path, f"""\
+    path = write_script(tmp_path, f"""\
         import asyncio, ctypes, multiprocessing, socket
         def main():
             for kind in (socket.SOCK_STREAM, socket.SOCK_DGRAM):
@@ -255,7 +234,7 @@ def test_a_named_interpreter_runs_only_inside_the_sandbox(tmp_path, doctor, run_
     interpreter.write_text(f"#!/bin/sh\necho \"$@\" >> {marker} 2>/dev/null\necho ran-as $(id -u) >&2\n"
                            f"exec {sys.executable} \"$@\"\n")
     interpreter.chmod(0o755)
-    path = _script(tmp_path, "import gdstk\ngdstk.Cell('T').add(gdstk.rectangle((0, 0), (1, 1)))\n")
+    path = write_script(tmp_path, "import gdstk\ngdstk.Cell('T').add(gdstk.rectangle((0, 0), (1, 1)))\n")
     outcome = run_script(path, python=str(interpreter))
     assert outcome.status == "ok", (outcome.failure, outcome.output)
     assert not marker.exists()
@@ -269,7 +248,7 @@ def test_a_named_interpreter_runs_only_inside_the_sandbox(tmp_path, doctor, run_
 @pytest.mark.parametrize("how", [signal.SIGTERM, signal.SIGKILL], ids=["SIGTERM", "SIGKILL"])
 def test_killing_latchwatch_check_leaves_no_run_and_its_folder_is_swept(tmp_path, how):
     token = f"{time.time_ns() % 10**9 + 300}.{os.getpid()}"
-    path = _script(tmp_path, f"""\
+    path = write_script(tmp_path, f"""\
         import subprocess, sys, time
         subprocess.Popen(["sleep", "{token}"])
         print("started", flush=True)

@@ -10,17 +10,15 @@ import functools
 import os
 import socket
 import sys
-import textwrap
 import threading
 import time
-from pathlib import Path
 
 import pytest
+from sandboxes import needs, write_script
 
 from latchwatch.server.sandbox import runner
 from latchwatch.server.sandbox.policy import REQUIRED, SandboxReport, SandboxSettings
 from latchwatch.server.sandbox.runner import run_script
-from latchwatch.server.sandbox.workers import inspect_sandbox
 
 from procs import processes_with as _processes_with
 
@@ -33,28 +31,6 @@ def hosted(request, monkeypatch):
     monkeypatch.setattr(sys.modules[__name__], "run_script", functools.partial(runner.run_script,
                                                                                hosted=request.param))
     return request.param
-
-
-@pytest.fixture(scope="module")
-def doctor():
-    report, ready, output = inspect_sandbox()
-    assert ready is not None and "import-error" not in ready, output
-    return report
-
-
-def needs(report, *names):
-    """Skip unless every named protection is in force, saying why (as doctor does)."""
-    for name in names:
-        if name not in report.in_force:
-            pytest.skip(f"doctor: {name} unavailable: {report.missing.get(name, 'not reported')}")
-
-
-def _script(folder: Path, body: str, name: str = "hostile.py") -> Path:
-    path = folder / name
-    path.write_text(textwrap.dedent(body), encoding="utf-8")
-    return path
-
-
 
 
 def _token() -> str:
@@ -87,7 +63,7 @@ def test_tcp_connection_to_a_loopback_listener_is_refused(tmp_path, doctor, list
     if "network" not in doctor.in_force:
         needs(doctor, "tcp")
     port = listener.getsockname()[1]
-    path = _script(tmp_path, f"""\
+    path = write_script(tmp_path, f"""\
         import socket
         try:
             socket.create_connection(("127.0.0.1", {port}), timeout=3)
@@ -107,7 +83,7 @@ def test_udp_to_a_loopback_listener_arrives_nowhere(tmp_path, doctor):
     receiver = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
     receiver.bind(("127.0.0.1", 0))
     receiver.settimeout(0.3)
-    path = _script(tmp_path, f"""\
+    path = write_script(tmp_path, f"""\
         import socket
         sender = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
         try:
@@ -128,7 +104,7 @@ def test_udp_to_a_loopback_listener_arrives_nowhere(tmp_path, doctor):
 
 def test_tcp_is_refused_by_landlock_alone_without_the_namespace(tmp_path, doctor, listener):
     needs(doctor, "tcp")
-    path = _script(tmp_path, f"""\
+    path = write_script(tmp_path, f"""\
         import socket
         try:
             socket.create_connection(("127.0.0.1", {listener.getsockname()[1]}), timeout=3)
@@ -156,7 +132,7 @@ def outside(tmp_path):
 
 def test_writes_outside_the_run_folder_are_refused(tmp_path, doctor, outside):
     needs(doctor, "writes")
-    path = _script(tmp_path, f"""\
+    path = write_script(tmp_path, f"""\
         import os, tempfile
         for target in ({str(outside / "direct.txt")!r}, {str(tmp_path / "beside-the-script.txt")!r}):
             try:
@@ -187,7 +163,7 @@ def test_locks_and_shared_memory_work_in_the_runs_own_dev_shm(tmp_path, doctor):
     in a /dev/shm of the run's own that the host never sees."""
     needs(doctor, "writes", "network")
     token = _token()
-    path = _script(tmp_path, f"""\
+    path = write_script(tmp_path, f"""\
         import multiprocessing, os
         from multiprocessing import shared_memory
         lock = multiprocessing.Lock()
@@ -208,7 +184,7 @@ def test_locks_and_shared_memory_work_in_the_runs_own_dev_shm(tmp_path, doctor):
 def test_writes_through_a_shell_are_refused(tmp_path, doctor, outside):
     needs(doctor, "writes")
     target = outside / "shell.txt"
-    path = _script(tmp_path, f"""\
+    path = write_script(tmp_path, f"""\
         import subprocess
         done = subprocess.run(["sh", "-c", "echo x > {target}; echo status $?"], capture_output=True, text=True)
         print(done.stdout.strip())
@@ -230,7 +206,7 @@ def test_double_forked_and_new_session_processes_do_not_outlive_the_run(tmp_path
     else:
         skip = ("namespaces",)  # as on a machine without namespaces: the keeper sweeps as subreaper
     token = _token()
-    path = _script(tmp_path, f"""\
+    path = write_script(tmp_path, f"""\
         import os, subprocess, sys
         subprocess.Popen(["setsid", "sleep", "{token}"], stdout=subprocess.DEVNULL)
         if os.fork() == 0:           # a classic daemon: fork, new session, fork again
@@ -251,7 +227,7 @@ def test_double_forked_and_new_session_processes_do_not_outlive_the_run(tmp_path
 def test_a_loop_of_forks_stops_at_the_process_limit(tmp_path, doctor):
     needs(doctor, "processes")
     token = _token()
-    path = _script(tmp_path, f"""\
+    path = write_script(tmp_path, f"""\
         import os
         started = 0
         try:
@@ -272,7 +248,7 @@ def test_a_loop_of_forks_stops_at_the_process_limit(tmp_path, doctor):
 
 def test_a_script_that_ignores_sigterm_is_still_ended(tmp_path):
     token = _token()
-    path = _script(tmp_path, f"""\
+    path = write_script(tmp_path, f"""\
         import signal, subprocess
         signal.signal(signal.SIGTERM, signal.SIG_IGN)
         subprocess.Popen(["sh", "-c", "trap '' TERM; exec sleep {token}"])
@@ -288,7 +264,7 @@ def test_a_script_that_ignores_sigterm_is_still_ended(tmp_path):
 
 
 def test_cancel_ends_a_script_that_ignores_sigterm(tmp_path):
-    path = _script(tmp_path, "import signal, time\nsignal.signal(signal.SIGTERM, signal.SIG_IGN)\ntime.sleep(60)\n")
+    path = write_script(tmp_path, "import signal, time\nsignal.signal(signal.SIGTERM, signal.SIG_IGN)\ntime.sleep(60)\n")
     cancel = threading.Event()
     threading.Timer(1.0, cancel.set).start()
     started = time.monotonic()
@@ -301,7 +277,7 @@ def test_cancel_ends_a_script_that_ignores_sigterm(tmp_path):
 
 def test_a_40_gib_allocation_is_a_limit_finding(tmp_path, doctor):
     needs(doctor, "memory")
-    path = _script(tmp_path, "import numpy\nblock = numpy.ones((40 << 30) // 8)\nprint('allocated')\n")
+    path = write_script(tmp_path, "import numpy\nblock = numpy.ones((40 << 30) // 8)\nprint('allocated')\n")
     outcome = run_script(path)
     assert outcome.status == "limit" and outcome.failure.exc_type in ("MemoryError", "_ArrayMemoryError")
     assert "out of memory" in outcome.failure.message and outcome.output == ""
@@ -309,7 +285,7 @@ def test_a_40_gib_allocation_is_a_limit_finding(tmp_path, doctor):
 
 
 def test_an_infinite_loop_times_out_at_its_line(tmp_path):
-    path = _script(tmp_path, "n = 0\nwhile True:\n    n += 1\n")
+    path = write_script(tmp_path, "n = 0\nwhile True:\n    n += 1\n")
     started = time.monotonic()
     outcome = run_script(path, timeout=1.0)
     assert outcome.status == "timeout" and time.monotonic() - started < 1.0 + runner.STARTUP_ALLOWANCE
@@ -319,7 +295,7 @@ def test_an_infinite_loop_times_out_at_its_line(tmp_path):
 def test_deep_recursion_past_the_c_stack_is_a_clear_error_at_its_line(tmp_path):
     # Through map() every level costs C stack too: with the recursion limit lifted the
     # interpreter overflows it (Python 3.12+ may stop it first with a RecursionError).
-    path = _script(tmp_path, "import sys\nsys.setrecursionlimit(10**8)\n\ndef down(n):\n"
+    path = write_script(tmp_path, "import sys\nsys.setrecursionlimit(10**8)\n\ndef down(n):\n"
                              "    return list(map(down, [n + 1]))\n\ndown(0)\n")
     started = time.monotonic()
     outcome = run_script(path, timeout=20)
@@ -332,7 +308,7 @@ def test_deep_recursion_past_the_c_stack_is_a_clear_error_at_its_line(tmp_path):
 
 
 def test_300_mb_of_output_stops_the_run_and_keeps_the_log_small(tmp_path):
-    path = _script(tmp_path, """\
+    path = write_script(tmp_path, """\
         import sys
         line = "x" * 1023 + "\\n"
         for _ in range(300 * 1024):
@@ -347,7 +323,7 @@ def test_300_mb_of_output_stops_the_run_and_keeps_the_log_small(tmp_path):
 
 def test_a_large_file_write_stops_at_the_file_size_limit(tmp_path, doctor):
     needs(doctor, "file-size")
-    path = _script(tmp_path, """\
+    path = write_script(tmp_path, """\
         block = b"\\0" * (1 << 20)
         with open("big.bin", "wb") as out:
             for _ in range(2048):
@@ -359,7 +335,7 @@ def test_a_large_file_write_stops_at_the_file_size_limit(tmp_path, doctor):
 
 def test_the_limits_cannot_be_lifted_and_root_is_not_regained(tmp_path, doctor):
     needs(doctor, "privileges")
-    path = _script(tmp_path, """\
+    path = write_script(tmp_path, """\
         import os, resource
         for which in (resource.RLIMIT_AS, resource.RLIMIT_NPROC, resource.RLIMIT_NOFILE, resource.RLIMIT_FSIZE):
             try:
@@ -386,7 +362,7 @@ SECRET = "lw-test-secret-6d1f0a"
 def test_secrets_in_the_environment_are_not_passed_on(tmp_path, monkeypatch):
     for name in ("AWS_SECRET_ACCESS_KEY", "GITHUB_TOKEN", "SSH_AUTH_SOCK", "LATCHWATCH_API_KEY"):
         monkeypatch.setenv(name, SECRET)
-    path = _script(tmp_path, "import os\nfor k, v in sorted(os.environ.items()):\n    print(k, v)\n")
+    path = write_script(tmp_path, "import os\nfor k, v in sorted(os.environ.items()):\n    print(k, v)\n")
     outcome = run_script(path)
     assert outcome.status == "ok" and outcome.output
     assert SECRET not in outcome.output
@@ -402,7 +378,7 @@ def test_other_processes_environments_cannot_be_read(tmp_path, doctor):
     holder = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(30)"],
                               env={**os.environ, "LW_HELD_SECRET": SECRET})
     try:
-        path = _script(tmp_path, f"""\
+        path = write_script(tmp_path, f"""\
             import os
             readable = leaked = 0
             for pid in os.listdir("/proc"):
@@ -426,7 +402,7 @@ def test_other_processes_environments_cannot_be_read(tmp_path, doctor):
 
 
 def test_garbage_written_into_the_result_pipe_is_a_clear_error(tmp_path):
-    path = _script(tmp_path, """\
+    path = write_script(tmp_path, """\
         import gdstk, os
         cell = gdstk.Cell("TOP")
         cell.add(gdstk.rectangle((0, 0), (1, 1)))
@@ -442,7 +418,7 @@ def test_garbage_written_into_the_result_pipe_is_a_clear_error(tmp_path):
 
 
 def test_a_closed_result_pipe_is_a_clear_error(tmp_path):
-    path = _script(tmp_path, """\
+    path = write_script(tmp_path, """\
         import gdstk, os
         gdstk.Cell("TOP").add(gdstk.rectangle((0, 0), (1, 1)))
         os.closerange(3, 1024)
@@ -456,7 +432,7 @@ def test_a_closed_result_pipe_is_a_clear_error(tmp_path):
 
 
 def test_the_entry_claims_only_what_doctor_reports(tmp_path, doctor):
-    outcome = run_script(_script(tmp_path, "import gdstk\n"))
+    outcome = run_script(write_script(tmp_path, "import gdstk\n"))
     entry = outcome.sandbox
     assert (entry["network"] == "blocked") == ("network" in doctor.in_force)
     assert (entry["writes"] == "confined") == ("writes" in doctor.in_force)
@@ -466,7 +442,7 @@ def test_the_entry_claims_only_what_doctor_reports(tmp_path, doctor):
 
 
 def test_without_namespaces_and_landlock_the_run_still_works_and_says_so(tmp_path):
-    path = _script(tmp_path, "import gdstk\ngdstk.Cell('T').add(gdstk.rectangle((0, 0), (1, 1)))\n")
+    path = write_script(tmp_path, "import gdstk\ngdstk.Cell('T').add(gdstk.rectangle((0, 0), (1, 1)))\n")
     outcome = run_script(path, skip_protections=("namespaces", "landlock"))
     assert outcome.status == "ok"
     entry = outcome.sandbox
@@ -477,7 +453,7 @@ def test_without_namespaces_and_landlock_the_run_still_works_and_says_so(tmp_pat
 
 def test_a_required_sandbox_with_a_protection_missing_runs_nothing(tmp_path):
     marker = tmp_path / "ran.txt"
-    path = _script(tmp_path, f"open({str(marker)!r}, 'w').write('the script ran')\n")
+    path = write_script(tmp_path, f"open({str(marker)!r}, 'w').write('the script ran')\n")
     with pytest.raises(runner.SandboxUnavailable, match=r"network access \(network\): namespaces not attempted"):
         run_script(path, require_sandbox=True, skip_protections=("namespaces",))
     assert not marker.exists()
@@ -486,7 +462,7 @@ def test_a_required_sandbox_with_a_protection_missing_runs_nothing(tmp_path):
 
 def test_a_required_sandbox_runs_where_everything_is_in_force(tmp_path, doctor):
     needs(doctor, *REQUIRED)
-    outcome = run_script(_script(tmp_path, "import gdstk\n"), require_sandbox=True)
+    outcome = run_script(write_script(tmp_path, "import gdstk\n"), require_sandbox=True)
     assert outcome.status == "ok" and "unavailable" not in outcome.sandbox, (outcome.failure, outcome.output)
 
 
