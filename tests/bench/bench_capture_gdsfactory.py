@@ -35,6 +35,7 @@ CHILD_FOLDER = HERE.parents[1] / "server" / "child"
 
 def bare_run(python: str, shapes: int) -> float:
     with tempfile.TemporaryDirectory() as folder:
+        Path(folder).chmod(0o755)  # as root, a run is nobody, and is refused a folder only root can read
         started = time.perf_counter()
         subprocess.run([python, str(GENERATOR), str(shapes)], cwd=folder, check=True, stdin=subprocess.DEVNULL,
                        stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
@@ -45,6 +46,7 @@ def captured_run(python: str, shapes: int) -> tuple[float, int]:
     from latchwatch.server.sandbox.runner import run_script
 
     with tempfile.TemporaryDirectory() as folder:
+        Path(folder).chmod(0o755)  # as root, a run is nobody, and is refused a folder only root can read
         script = Path(folder) / GENERATOR.name
         script.write_text(GENERATOR.read_text(encoding="utf-8").replace(
             "int(sys.argv[1]) if len(sys.argv) > 1 else 100_000", str(shapes)), encoding="utf-8")
@@ -59,6 +61,7 @@ def captured_run(python: str, shapes: int) -> tuple[float, int]:
 def check_run(python: str, shapes: int) -> tuple[float, str]:
     latchwatch = Path(sys.executable).with_name("latchwatch")
     with tempfile.TemporaryDirectory() as folder:
+        Path(folder).chmod(0o755)  # as root, a run is nobody, and is refused a folder only root can read
         script = Path(folder) / GENERATOR.name
         script.write_text(GENERATOR.read_text(encoding="utf-8").replace(
             "int(sys.argv[1]) if len(sys.argv) > 1 else 100_000", str(shapes)), encoding="utf-8")
@@ -91,6 +94,7 @@ def phase_child(capture: bool, shapes: int) -> None:
     code = compile(source, str(GENERATOR), "exec")
     figures = {}
     with tempfile.TemporaryDirectory() as folder:
+        Path(folder).chmod(0o755)  # as root, a run is nobody, and is refused a folder only root can read
         os.chdir(folder)
         started, cpu = time.perf_counter(), time.process_time()
         exec(code, {"__name__": "__main__"})

@@ -70,6 +70,7 @@ def report_summary(stdout: str) -> str:
 
 def bench_one(generator: str, size: int) -> dict:
     with tempfile.TemporaryDirectory(prefix="latchwatch-bench-") as tmp:
+        Path(tmp).chmod(0o755)  # as root, a run is nobody, and is refused a folder only root can read
         folder = Path(tmp)
         for name in GENERATORS:
             shutil.copy(HERE / name, folder / name)

@@ -143,6 +143,7 @@ def bare_child(repeats: int) -> list[float]:
 def main() -> None:
     edits = int(sys.argv[1]) if len(sys.argv) > 1 else 30
     with tempfile.TemporaryDirectory(prefix="latchwatch-bench-") as tmp:
+        Path(tmp).chmod(0o755)  # as root, a run is nobody, and is refused a folder only root can read
         project = Path(tmp) / "project"
         project.mkdir()
         (project / "latchwatch.toml").write_text('tech = "demo"\n')

@@ -98,6 +98,7 @@ def main(argv: list[str]) -> None:
     for size in sizes:
         for pads in (False, True):
             with tempfile.TemporaryDirectory(prefix="latchwatch-bench-nets-") as tmp:
+                Path(tmp).chmod(0o755)  # as root, a run is nobody, and is refused a folder only root can read
                 r = bench(labelled_rows(size, Path(tmp), pads), tech)
             check = r["flatten"] + r["extract"] + r["core"]
             listed = ", ".join(f"{n} {k}" for k, n in sorted(r["findings"].items()))

@@ -48,6 +48,7 @@ def write_random(path: Path, size: int) -> None:
 
 def bench_one(generator: str, size: int) -> dict:
     with tempfile.TemporaryDirectory(prefix="latchwatch-bench-page-") as tmp:
+        Path(tmp).chmod(0o755)  # as root, a run is nobody, and is refused a folder only root can read
         folder = Path(tmp)
         for name in GENERATORS:
             shutil.copy(Path(__file__).resolve().parent / name, folder / name)

@@ -68,6 +68,7 @@ def main() -> None:
     print(f"{'jobs':>4}  {'hosts':>5}  {'best s':>7}  {'median s':>8}  {'corners/s':>9}  {'in children s':>13}  "
           f"{'rest s':>6}")
     with tempfile.TemporaryDirectory() as tmp:
+        Path(tmp).chmod(0o755)  # as root, a run is nobody, and is refused a folder only root can read
         folder = Path(tmp)
         (folder / "latchwatch.toml").write_text('tech = "demo"\n')
         (folder / "fingers.py").write_text(GENERATOR)
