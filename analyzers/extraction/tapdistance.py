@@ -16,6 +16,9 @@ from dataclasses import dataclass
 
 import numpy as np
 import shapely
+from scipy.spatial import cKDTree
+
+from latchwatch.analyzers.layout.geometry import axis_aligned_rectangles
 
 DEFAULT_TOL = 1e-3  # one nanometre in micrometre units
 MAX_LEVELS = 40
@@ -31,25 +34,77 @@ class FarthestPoints:
     within_limit: np.ndarray  # bool: proven max <= limit (+ SLACK)
 
 
-class TapIndex:
-    """Nearest-tap queries restricted to the tap's body."""
+BOX_CANDIDATES = 8  # nearest tap-rectangle centres looked at per point before proving the answer
+TIE = 1e-9  # relative: two taps this close in distance are a tie, settled the general way
 
-    def __init__(self, taps: np.ndarray, body: np.ndarray):
-        self.taps, self.body = taps, body
-        self.tree = shapely.STRtree(taps) if len(taps) else None
+
+def box_distance(xy: np.ndarray, boxes: np.ndarray) -> np.ndarray:
+    """Euclidean distance from points (..., 2) to filled rectangles (..., 4: x0, y0, x1, y1); 0 inside.
+
+    >>> box_distance(np.array([[4.0, 5.0], [1.0, 0.5]]), np.array([[0.0, 0.0, 1.0, 1.0]] * 2)).tolist()
+    [5.0, 0.0]
+    """
+    dx = np.maximum(np.maximum(boxes[..., 0] - xy[..., 0], xy[..., 0] - boxes[..., 2]), 0.0)
+    dy = np.maximum(np.maximum(boxes[..., 1] - xy[..., 1], xy[..., 1] - boxes[..., 3]), 0.0)
+    return np.hypot(dx, dy)
+
+
+class _BoxNearest:
+    """Nearest axis-aligned rectangle tap of the point's body: a KD-tree over the
+    rectangles' centres, the body as a third coordinate spaced so far apart that other
+    bodies come last, and the exact rectangle distance to the nearest few centres.
+
+    The answer is proven (``sure``) when every rectangle not looked at is farther: its
+    centre is at least as far as the last one looked at, and a rectangle is no nearer
+    than its centre less its half-diagonal. Unproven points and ties go the general way."""
+
+    def __init__(self, bounds: np.ndarray, body: np.ndarray, members: np.ndarray):
+        self.bounds, self.body, self.members = bounds, body, members
+        centre = (bounds[:, :2] + bounds[:, 2:]) / 2
+        self.reach = float(np.max(np.hypot(bounds[:, 2] - bounds[:, 0], bounds[:, 3] - bounds[:, 1]))) / 2
+        extent = float(np.hypot(*(bounds[:, 2:].max(axis=0) - bounds[:, :2].min(axis=0))))
+        self.spacing = 4.0 * (extent + self.reach + 1.0)
+        self.tree = cKDTree(np.column_stack([centre, body.astype(np.float64) * self.spacing]))
+        self.bodies = np.unique(body)
+
+    def nearest(self, xy: np.ndarray, body: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(distance, tap index, sure) per point; distance inf where the body has no rectangle tap."""
+        n, k = len(xy), min(BOX_CANDIDATES, len(self.bounds))
+        centre_d, cand = self.tree.query(np.column_stack([xy, body.astype(np.float64) * self.spacing]), k=k)
+        centre_d, cand = centre_d.reshape(n, k), cand.reshape(n, k)
+        found = cand < len(self.bounds)
+        cand = np.where(found, cand, 0)
+        same = found & (self.body[cand] == body[:, None])
+        d = np.where(same, box_distance(xy[:, None, :], self.bounds[cand]), np.inf)
+        col = np.argmin(d, axis=1)
+        rows = np.arange(n)
+        best = d[rows, col]
+        second = np.partition(d, 1, axis=1)[:, 1] if k > 1 else np.full(n, np.inf)
+        unseen = centre_d[:, -1] - self.reach
+        margin = TIE * (1.0 + best)
+        sure = (unseen > best + margin) & (second > best + margin)
+        sure |= ~np.isin(body, self.bodies)  # no rectangle tap in that body at all
+        tap = np.where(np.isfinite(best), self.members[cand[rows, col]], -1)
+        return best, tap, sure
+
+
+class _TreeNearest:
+    """Nearest of a subset of the taps (``members``, global indices) by shapely's STRtree,
+    restricted to the point's body: the general path, for any tap shape."""
+
+    def __init__(self, taps: np.ndarray, body: np.ndarray, members: np.ndarray):
+        self.taps, self.body, self.members = taps[members], body[members], members
+        self.tree = shapely.STRtree(self.taps) if len(members) else None
         self._per_body: dict[int, tuple[shapely.STRtree, np.ndarray]] = {}
-        hull_area = shapely.area(shapely.convex_hull(taps)) if len(taps) else np.zeros(0)
-        self.convex = np.isclose(hull_area, shapely.area(taps), rtol=1e-9, atol=1e-12)
-        self.bodies_with_taps = set(np.unique(body).tolist())
+        self.bodies_with_taps = set(np.unique(self.body).tolist())
 
     def _body_tree(self, b: int):
         if b not in self._per_body:
-            members = np.flatnonzero(self.body == b)
-            self._per_body[b] = (shapely.STRtree(self.taps[members]), members)
+            local = np.flatnonzero(self.body == b)
+            self._per_body[b] = (shapely.STRtree(self.taps[local]), local)
         return self._per_body[b]
 
     def nearest(self, xy: np.ndarray, body: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """(distance, tap index) of each point's nearest tap of the same body."""
         n = len(xy)
         dist, tap = np.full(n, np.inf), np.full(n, -1, np.int64)
         if self.tree is None or n == 0:
@@ -64,26 +119,78 @@ class TapIndex:
             if int(b) not in self.bodies_with_taps:
                 continue
             sel = rest[body[rest] == b]
-            tree, members = self._body_tree(int(b))
+            tree, local = self._body_tree(int(b))
             (si, mi), d2 = tree.query_nearest(pts[sel], return_distance=True, all_matches=False)
-            dist[sel[si]], tap[sel[si]] = d2, members[mi]
+            dist[sel[si]], tap[sel[si]] = d2, local[mi]
+        found = tap >= 0
+        tap[found] = self.members[tap[found]]
+        return dist, tap
+
+
+class TapIndex:
+    """Nearest-tap queries restricted to the tap's body: rectangle taps through a KD-tree
+    with exact rectangle distance, other shapes (rings, L shapes) through shapely."""
+
+    def __init__(self, taps: np.ndarray, body: np.ndarray):
+        self.taps, self.body = taps, body
+        self.bounds = shapely.bounds(taps).reshape(-1, 4)
+        self.is_box = axis_aligned_rectangles(taps) if len(taps) else np.zeros(0, bool)
+        others = np.flatnonzero(~self.is_box)
+        self.convex = self.is_box.copy()
+        if len(others):
+            hull_area = shapely.area(shapely.convex_hull(taps[others]))
+            self.convex[others] = np.isclose(hull_area, shapely.area(taps[others]), rtol=1e-9, atol=1e-12)
+        boxes = np.flatnonzero(self.is_box)
+        self._boxes = _BoxNearest(self.bounds[boxes], body[boxes], boxes) if len(boxes) else None
+        self._others = _TreeNearest(taps, body, others) if len(others) and len(boxes) else None
+        self._general: _TreeNearest | None = None
+
+    def _every_tap(self) -> _TreeNearest:
+        """The general path over all taps, built the first time a point needs it."""
+        if self._general is None:
+            self._general = _TreeNearest(self.taps, self.body, np.arange(len(self.taps)))
+        return self._general
+
+    def nearest(self, xy: np.ndarray, body: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(distance, tap index) of each point's nearest tap of the same body."""
+        n = len(xy)
+        if n == 0 or len(self.taps) == 0:
+            return np.full(n, np.inf), np.full(n, -1, np.int64)
+        if self._boxes is None:
+            return self._every_tap().nearest(xy, body)
+        dist, tap, sure = self._boxes.nearest(xy, body)
+        if self._others is not None:
+            d2, t2 = self._others.nearest(xy, body)
+            both = np.isfinite(d2) & np.isfinite(dist)
+            sure[both] &= np.abs(d2[both] - dist[both]) > TIE * (1.0 + np.minimum(d2[both], dist[both]))
+            closer = d2 < dist
+            dist, tap = np.where(closer, d2, dist), np.where(closer, t2, tap)
+        redo = np.flatnonzero(~sure)
+        if len(redo):
+            dist[redo], tap[redo] = self._every_tap().nearest(xy[redo], body[redo])
         return dist, tap
 
     def corner_bound(self, corners: np.ndarray, centre_xy: np.ndarray, tap: np.ndarray) -> np.ndarray:
         """Upper bound of the distance over each cell from its 4 corners (c, 4, 2)."""
         bound = np.full(len(tap), np.inf)
-        has = tap >= 0
-        if not has.any():
+        has = np.flatnonzero(tap >= 0)
+        if len(has) == 0:
             return bound
         t = tap[has]
-        c = corners[has]
+        box = self.is_box[t]
+        # Rectangles (convex): the farthest corner's exact distance to the rectangle.
+        bound[has[box]] = box_distance(corners[has[box]], self.bounds[t[box]][:, None, :]).max(axis=1)
+        rest, t = has[~box], t[~box]
+        if len(rest) == 0:
+            return bound
+        c = corners[rest]
         tap_geom = np.repeat(self.taps[t], 4)
         d_convex = shapely.distance(shapely.points(c.reshape(-1, 2)), tap_geom).reshape(-1, 4).max(axis=1)
         nearest_pt = shapely.get_coordinates(
-            shapely.shortest_line(self.taps[t], shapely.points(centre_xy[has]))
+            shapely.shortest_line(self.taps[t], shapely.points(centre_xy[rest]))
         ).reshape(-1, 2, 2)[:, 0, :]
         d_point = np.linalg.norm(c - nearest_pt[:, None, :], axis=2).max(axis=1)
-        bound[has] = np.where(self.convex[t], d_convex, d_point)
+        bound[rest] = np.where(self.convex[t], d_convex, d_point)
         return bound
 
 

@@ -103,3 +103,46 @@ def test_matches_dense_sampling(diff, taps, angle):
     # (sqrt(2) + 1) / 2 steps of a boundary sample; distance is 1-Lipschitz.
     assert got >= ref - DEFAULT_TOL
     assert got <= ref + step * (np.sqrt(2) + 1) / 2 + DEFAULT_TOL
+
+
+def _brute_nearest(xy, body, taps, tap_body):
+    """Reference: shapely's distance from every point to every tap of its body, the least."""
+    d = shapely.distance(shapely.points(xy)[:, None], taps[None, :])
+    d = np.where(body[:, None] == tap_body[None, :], d, np.inf)
+    return d.min(axis=1)
+
+
+@settings(max_examples=40, deadline=None)
+@given(seed=st.integers(0, 2**32 - 1), bodies=st.integers(1, 4), with_ring=st.booleans())
+def test_rectangle_taps_nearest_matches_shapely(seed, bodies, with_ring):
+    # The KD-tree path for rectangle taps must give shapely's distances, restricted to the body,
+    # with rectangles of very different sizes (the proof uses the largest half-diagonal), and a
+    # ring tap (the general path) mixed in.
+    rng = np.random.default_rng(seed)
+    n = 60
+    x0, y0 = rng.uniform(0, 100, n), rng.uniform(0, 100, n)
+    w, h = rng.choice([0.5, 2.0, 40.0], n), rng.choice([0.5, 3.0], n)
+    taps = list(shapely.box(x0, y0, x0 + w, y0 + h))
+    tap_body = list(rng.integers(0, bodies, n))
+    if with_ring:
+        taps.append(shapely.box(40, 40, 60, 60).difference(shapely.box(42, 42, 58, 58)))
+        tap_body.append(0)
+    taps, tap_body = np.array(taps), np.array(tap_body)
+    xy = rng.uniform(-20, 120, (500, 2))
+    xy[:50] = np.round(xy[:50])  # on the grid: ties between equally near taps
+    body = rng.integers(0, bodies + 1, len(xy))  # the last body has no tap
+    dist, tap = TapIndex(taps, tap_body).nearest(xy, body)
+    expected = _brute_nearest(xy, body, taps, tap_body)
+    assert np.allclose(dist, expected, rtol=1e-12, atol=1e-12)
+    found = tap >= 0
+    assert np.array_equal(found, np.isfinite(expected))
+    assert np.all(tap_body[tap[found]] == body[found])
+    assert np.allclose(shapely.distance(shapely.points(xy[found]), taps[tap[found]]), dist[found], rtol=1e-12, atol=1e-12)
+
+
+def test_rectangle_corner_bound_is_the_farthest_corner_distance():
+    # Analytic: a unit tap at the origin; the cell's corners (3, 0), (3, 4), ... are at most
+    # hypot(2, 3) from it ((3, 4) to the tap corner (1, 1)).
+    index = TapIndex(np.array([shapely.box(0, 0, 1, 1)]), np.array([0]))
+    corners = np.array([[[2.0, 0.0], [3.0, 0.0], [3.0, 4.0], [2.0, 4.0]]])
+    assert index.corner_bound(corners, np.array([[2.5, 2.0]]), np.array([0])).tolist() == [np.hypot(2, 3)]
