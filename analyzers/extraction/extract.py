@@ -171,8 +171,7 @@ def _split_by_pwells(pieces: Pieces, pwells: np.ndarray) -> Pieces:
     """Pieces inside an isolated p-well move to its body; the rest stay where they were."""
     if len(pwells) == 0 or len(pieces) == 0:
         return pieces
-    inside, i_owner, i_pwell = g.clip_inside(pieces.geoms, pwells)
-    outside, o_owner = g.clip_outside(pieces.geoms, pwells)
+    (inside, i_owner, i_pwell), (outside, o_owner) = g.clip_inside_and_outside(pieces.geoms, pwells)
     return Pieces.concat([
         pieces.taken(o_owner, outside, pieces.body[o_owner]),
         pieces.taken(i_owner, inside, pwell_body(i_pwell.astype(np.int64))),
@@ -189,8 +188,7 @@ def _implanted(flat, tech, drawn_role: str, implant_role: str) -> Pieces:
 
 def _split_by_wells(pieces: Pieces, wells: np.ndarray) -> tuple[Pieces, Pieces]:
     """(parts inside wells with body = well, parts outside every well)."""
-    inside, i_owner, i_well = g.clip_inside(pieces.geoms, wells)
-    outside, o_owner = g.clip_outside(pieces.geoms, wells)
+    (inside, i_owner, i_well), (outside, o_owner) = g.clip_inside_and_outside(pieces.geoms, wells)
     return (
         pieces.taken(i_owner, inside, i_well.astype(np.int64)),
         pieces.taken(o_owner, outside, np.full(len(outside), SUBSTRATE, np.int64)),

@@ -187,20 +187,27 @@ def _covered_and_crossing(a: np.ndarray, regions: np.ndarray):
     return cov_a, cov_r, hit_a[crossing], hit_r[crossing]
 
 
-def clip_inside(a: np.ndarray, regions: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Parts of each a[i] inside each region it overlaps: (parts, a index, region index).
+def clip_outside(a: np.ndarray, regions: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Parts of each a[i] outside the union of the regions: (parts, a index)."""
+    return _outside(a, regions, *_covered_and_crossing(a, regions))
 
-    Regions must be pairwise disjoint (for example merged wells)."""
-    cov_a, cov_r, cross_a, cross_r = _covered_and_crossing(a, regions)
+
+def clip_inside_and_outside(a: np.ndarray, regions: np.ndarray):
+    """((parts, a index, region index) of each a[i] inside each region it overlaps,
+    clip_outside(a, regions)), sharing one pair query. Regions must be pairwise
+    disjoint (for example merged wells)."""
+    pairs = _covered_and_crossing(a, regions)
+    return _inside(a, regions, *pairs), _outside(a, regions, *pairs)
+
+
+def _inside(a, regions, cov_a, cov_r, cross_a, cross_r):
     pieces = shapely.intersection(a[cross_a], regions[cross_r])
     parts, owner = explode(pieces, np.arange(len(cross_a)))
     return (np.concatenate([a[cov_a], parts]), np.concatenate([cov_a, cross_a[owner]]),
             np.concatenate([cov_r, cross_r[owner]]))
 
 
-def clip_outside(a: np.ndarray, regions: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Parts of each a[i] outside the union of the regions: (parts, a index)."""
-    cov_a, _, cross_a, cross_r = _covered_and_crossing(a, regions)
+def _outside(a, regions, cov_a, cov_r, cross_a, cross_r):
     rest = a.copy()
     rest[cov_a] = None
     if len(cross_a):
