@@ -34,32 +34,18 @@ def overlap_pairs(a: np.ndarray, b: np.ndarray, *, touching: bool = False) -> tu
     """Index pairs (i, j) where a[i] and b[j] share area (or, with touching, any point)."""
     if len(a) == 0 or len(b) == 0:
         return np.zeros(0, np.int64), np.zeros(0, np.int64)
-    rect_a, rect_b = axis_aligned_rectangles(a), axis_aligned_rectangles(b)
-    ia, ib = _meeting_pairs(shapely.STRtree(b), a, rect_a, rect_b)
+    tree = shapely.STRtree(b)
+    ia, ib = tree.query(a, predicate="intersects")
     if not touching and len(ia):
-        ia, ib = _drop_touching(a, b, ia, ib, rect_a, rect_b)
+        ia, ib = _drop_touching(a, b, ia, ib)
     return ia, ib
 
 
-def _meeting_pairs(tree: shapely.STRtree, queries: np.ndarray, rect_q: np.ndarray, rect_t: np.ndarray):
-    """(query index, tree index) of the pairs that share a point, in the order of the
-    tree's own ``intersects`` query. Two axis-aligned rectangles meet exactly when their
-    (closed) bounding boxes do, which the tree's box query already says; GEOS decides
-    only the pairs with another shape."""
-    iq, it = tree.query(queries)
-    other = np.flatnonzero(~(rect_q[iq] & rect_t[it]))
-    if len(other):
-        keep = np.ones(len(iq), dtype=bool)
-        keep[other] = shapely.intersects(queries[iq[other]], tree.geometries[it[other]])
-        iq, it = iq[keep], it[keep]
-    return iq, it
-
-
-def _drop_touching(a, b, ia, ib, rect_a, rect_b):
+def _drop_touching(a, b, ia, ib):
     """Keep the pairs whose interiors meet. Two axis-aligned rectangles do exactly when
     their boxes overlap with positive width and height; GEOS decides the other pairs."""
     ba, bb = shapely.bounds(a[ia]), shapely.bounds(b[ib])
-    both_boxes = rect_a[ia] & rect_b[ib]
+    both_boxes = axis_aligned_rectangles(a)[ia] & axis_aligned_rectangles(b)[ib]
     w = np.minimum(ba[:, 2], bb[:, 2]) - np.maximum(ba[:, 0], bb[:, 0])
     h = np.minimum(ba[:, 3], bb[:, 3]) - np.maximum(ba[:, 1], bb[:, 1])
     keep = (w > 0) & (h > 0)
@@ -163,24 +149,14 @@ def explode(geoms: np.ndarray, owner: np.ndarray) -> tuple[np.ndarray, np.ndarra
 
 def _covered_and_crossing(a: np.ndarray, regions: np.ndarray):
     """Split the (a, region) intersecting pairs into a[i] wholly covered by region[j], and
-    pairs where a[i] crosses the region's edge. Pairs of axis-aligned rectangles are
-    decided on their bounding boxes (a rectangle covers another exactly when its box
-    holds the other's); GEOS decides the rest, with each (large) region prepared once."""
+    pairs where a[i] crosses the region's edge. The regions are the query inputs, so
+    GEOS prepares each (large) region once instead of testing it against every piece."""
     if len(a) == 0 or len(regions) == 0:
         empty = np.zeros(0, np.int64)
         return empty, empty, empty, empty
-    rect_a, rect_r = axis_aligned_rectangles(a), axis_aligned_rectangles(regions)
-    hit_r, hit_a = _meeting_pairs(shapely.STRtree(a), regions, rect_r, rect_a)
-    both = rect_r[hit_r] & rect_a[hit_a]
-    br, ba = shapely.bounds(regions[hit_r[both]]), shapely.bounds(a[hit_a[both]])
-    covers = np.zeros(len(hit_r), dtype=bool)
-    covers[both] = ((br[:, 0] <= ba[:, 0]) & (br[:, 1] <= ba[:, 1])
-                    & (ba[:, 2] <= br[:, 2]) & (ba[:, 3] <= br[:, 3]))
-    other = np.flatnonzero(~both)
-    if len(other):
-        shapely.prepare(regions[np.unique(hit_r[other])])
-        covers[other] = shapely.covers(regions[hit_r[other]], a[hit_a[other]])
-    cov_r, cov_a = hit_r[covers], hit_a[covers]
+    tree = shapely.STRtree(a)
+    hit_r, hit_a = tree.query(regions, predicate="intersects")
+    cov_r, cov_a = tree.query(regions, predicate="covers")
     covered = np.zeros(len(a), dtype=bool)
     covered[cov_a] = True
     crossing = ~covered[hit_a]
