@@ -54,6 +54,7 @@ def collect() -> dict[str, dict]:
     results: dict[str, dict] = {}
     with tempfile.TemporaryDirectory(prefix="latchwatch-results-") as tmp:
         folder = Path(tmp)
+        folder.chmod(0o755)  # as root, a run is nobody and must read the scripts
         for name in BENCH_GENERATORS:
             shutil.copy(BENCH / name, folder / name)
         for name in BENCH_GENERATORS:
