@@ -26,10 +26,26 @@ MESSAGE_OTHER_LAYERS = ("shapes only on layers the technology {tech} does not na
 LAYERS_SHOWN = 8  # layer/datatype pairs listed before "and N more"
 
 
+def _pair_keys(layer, datatype) -> np.ndarray:
+    """One int64 per (layer, datatype) pair, ordered as the pairs: 1-D keys sort far faster than rows."""
+    return (np.asarray(layer, dtype=np.int64) << 32) | (np.asarray(datatype, dtype=np.int64) & 0xFFFFFFFF)
+
+
+def _pairs_of_keys(keys: np.ndarray) -> np.ndarray:
+    return np.stack([keys >> 32, (keys & 0xFFFFFFFF).astype(np.int32).astype(np.int64)], axis=1)
+
+
 def drawn_pairs(layout) -> np.ndarray:
     """The distinct (layer, datatype) pairs of every polygon of every cell, sorted, as an (n, 2) array."""
-    parts = [np.stack([cell.poly_layer, cell.poly_datatype], axis=1) for cell in layout.cells if cell.polygon_count]
-    return np.unique(np.concatenate(parts), axis=0) if parts else np.zeros((0, 2), dtype=np.int32)
+    parts = [np.unique(_pair_keys(cell.poly_layer, cell.poly_datatype)) for cell in layout.cells if cell.polygon_count]
+    return _pairs_of_keys(np.unique(np.concatenate(parts))) if parts else np.zeros((0, 2), dtype=np.int64)
+
+
+def draws_any(layout, pairs) -> bool:
+    """Whether some polygon of some cell is on one of ``pairs``, without listing what was drawn."""
+    known = np.unique(_pair_keys(*np.array(sorted(pairs), dtype=np.int64).reshape(-1, 2).T))
+    return any(np.isin(_pair_keys(cell.poly_layer, cell.poly_datatype), known).any()
+               for cell in layout.cells if cell.polygon_count)
 
 
 def layer_list(pairs: np.ndarray, shown: int = LAYERS_SHOWN) -> str:
@@ -46,9 +62,9 @@ def check(ctx):
     known = {tuple(v) for v in ctx.tech.layers.values()}
     for expr in ctx.tech.derived.values():  # L/D layers a derived role names directly
         known |= named_pairs(expr)
-    drawn = drawn_pairs(layout)
-    if any(pair in known for pair in map(tuple, drawn.tolist())):
+    if known and draws_any(layout, known):
         return
+    drawn = drawn_pairs(layout)
     uncaptured = [name for name in layout.imports if name not in CAPTURED_LIBRARIES]
     if uncaptured and not len(drawn):
         yield ctx.run_finding(RULE, MESSAGE_UNCAPTURED.format(libraries=", ".join(uncaptured)))
