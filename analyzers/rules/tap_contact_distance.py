@@ -22,7 +22,10 @@ def check(ctx):
     ex = ctx.extraction
     _, contact_shape = layer_shapes(ex.flat, ctx.tech, "contact")  # in the order of ex.contacts
     for kind, taps, contacted in (("n-tap", ex.ntap, ex.ntap_contacted), ("p-tap", ex.ptap, ex.ptap_contacted)):
-        rows = np.flatnonzero(contacted)
+        # A contact lands inside its tap, so no point of the tap is farther from it than
+        # the tap's bounding-box diagonal: taps whose diagonal is within the limit pass.
+        low_x, low_y, high_x, high_y = shapely.bounds(taps.geoms).T
+        rows = np.flatnonzero(contacted & (np.hypot(high_x - low_x, high_y - low_y) > limit))
         if len(rows) == 0:
             continue
         # Each contact counts for the taps it overlaps, by the part inside each: the
