@@ -24,7 +24,11 @@ def axis_aligned_rectangles(polygons: np.ndarray) -> np.ndarray:
     >>> axis_aligned_rectangles(np.array([shapely.box(0, 0, 2, 1), shapely.Polygon([(0, 0), (2, 0), (1, 1)])])).tolist()
     [True, False]
     """
-    b = shapely.bounds(polygons)
+    return _rectangles_in_bounds(polygons, shapely.bounds(polygons))
+
+
+def _rectangles_in_bounds(polygons: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """axis_aligned_rectangles, given the polygons' bounds (computed once by the caller)."""
     box_area = (b[:, 2] - b[:, 0]) * (b[:, 3] - b[:, 1])
     return (shapely.get_num_coordinates(polygons) == 5) & (box_area > 0) & np.isclose(
         shapely.area(polygons), box_area, rtol=1e-12, atol=0.0)
@@ -44,8 +48,14 @@ def overlap_pairs(a: np.ndarray, b: np.ndarray, *, touching: bool = False) -> tu
 def _drop_touching(a, b, ia, ib):
     """Keep the pairs whose interiors meet. Two axis-aligned rectangles do exactly when
     their boxes overlap with positive width and height; GEOS decides the other pairs."""
-    ba, bb = shapely.bounds(a[ia]), shapely.bounds(b[ib])
-    both_boxes = axis_aligned_rectangles(a)[ia] & axis_aligned_rectangles(b)[ib]
+    # Bounds and rectangle flags once per array, then gathered per pair: pairs outnumber shapes.
+    bounds_a = shapely.bounds(a)
+    rect_a = _rectangles_in_bounds(a, bounds_a)
+    bounds_b, rect_b = (bounds_a, rect_a) if b is a else (shapely.bounds(b), None)
+    if rect_b is None:
+        rect_b = _rectangles_in_bounds(b, bounds_b)
+    ba, bb = bounds_a[ia], bounds_b[ib]
+    both_boxes = rect_a[ia] & rect_b[ib]
     w = np.minimum(ba[:, 2], bb[:, 2]) - np.maximum(ba[:, 0], bb[:, 0])
     h = np.minimum(ba[:, 3], bb[:, 3]) - np.maximum(ba[:, 1], bb[:, 1])
     keep = (w > 0) & (h > 0)
