@@ -27,6 +27,7 @@ from scipy.spatial import cKDTree
 from latchwatch.analyzers.electrical.sheet import SheetProblem, make_mesh, solve
 from latchwatch.analyzers.extraction.extract import SUBSTRATE, Pieces, is_pwell_body, pwell_index
 from latchwatch.analyzers.extraction.nets import pad_connected
+from latchwatch.analyzers.extraction.tapdistance import TapIndex
 from latchwatch.analyzers.layout import geometry as g
 
 SUBSTRATE_MARGIN = 5.0  # layout units (um) of substrate sheet beyond the layout's extent
@@ -139,7 +140,9 @@ def channel_bound(pieces: Pieces, taps: Pieces, sheet: np.ndarray, regions) -> n
     body = pieces.body[dev]
     bodies, body_of = np.unique(body, return_inverse=True)
     info = [regions(int(b)) for b in bodies]
-    inside = shapely.covers(np.array([i[0] for i in info], dtype=object)[body_of.ravel()], channels)
+    region = np.array([i[0] for i in info], dtype=object)
+    shapely.prepare(region)  # one prepared region per body, asked about many channels
+    inside = shapely.covers(region[body_of.ravel()], channels)
     for k, (_, cut, _) in enumerate(info):
         if len(cut):  # a channel that meets a cut-out shape at all is not used (touching too)
             sel = np.flatnonzero(body_of.ravel() == k)
@@ -233,25 +236,7 @@ _BODY_SPACING = 1e12
 
 def nearest_taps(pieces: Pieces, taps: Pieces) -> tuple[np.ndarray, np.ndarray]:
     """(distance, tap index) from each piece to the nearest tap of its own body."""
-    n = len(pieces)
-    dist, tap = np.full(n, np.inf), np.full(n, -1, np.int64)
-    if n == 0 or len(taps) == 0:
-        return dist, tap
-    (qi, ti), d = shapely.STRtree(taps.geoms).query_nearest(pieces.geoms, return_distance=True,
-                                                              all_matches=False)
-    ok = taps.body[ti] == pieces.body[qi]
-    dist[qi[ok]], tap[qi[ok]] = d[ok], ti[ok]
-    # The nearest tap overall can belong to another well: ask that body's own taps.
-    rest = qi[~ok]
-    for body in np.unique(pieces.body[rest]):
-        members = np.flatnonzero(taps.body == body)
-        if len(members) == 0:
-            continue
-        sel = rest[pieces.body[rest] == body]
-        (si, mi), d2 = shapely.STRtree(taps.geoms[members]).query_nearest(
-            pieces.geoms[sel], return_distance=True, all_matches=False)
-        dist[sel[si]], tap[sel[si]] = d2, members[mi]
-    return dist, tap
+    return TapIndex(taps.geoms, taps.body).nearest_to_shapes(pieces.geoms, pieces.body)
 
 
 # --- windows -------------------------------------------------------------------------

@@ -67,20 +67,28 @@ class _BoxNearest:
         self.tree = cKDTree(np.column_stack([centre, body.astype(np.float64) * self.spacing]))
         self.bodies = np.unique(body)
 
-    def nearest(self, xy: np.ndarray, body: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """(distance, tap index, sure) per point; distance inf where the body has no rectangle tap."""
+    def nearest(self, xy: np.ndarray, body: np.ndarray, half: np.ndarray | None = None
+                ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(distance, tap index, sure) per point; distance inf where the body has no rectangle tap.
+
+        With ``half`` (n, 2), each query is the rectangle centred on its point with those
+        half-sides: its distance to a tap rectangle is the point's distance to the tap
+        grown by them (a Minkowski sum), and it reaches its half-diagonal nearer."""
         n, k = len(xy), min(BOX_CANDIDATES, len(self.bounds))
         centre_d, cand = self.tree.query(np.column_stack([xy, body.astype(np.float64) * self.spacing]), k=k)
         centre_d, cand = centre_d.reshape(n, k), cand.reshape(n, k)
         found = cand < len(self.bounds)
         cand = np.where(found, cand, 0)
         same = found & (self.body[cand] == body[:, None])
-        d = np.where(same, box_distance(xy[:, None, :], self.bounds[cand]), np.inf)
+        boxes = self.bounds[cand]
+        if half is not None:
+            boxes = boxes + np.concatenate([-half, half], axis=1)[:, None, :]
+        d = np.where(same, box_distance(xy[:, None, :], boxes), np.inf)
         col = np.argmin(d, axis=1)
         rows = np.arange(n)
         best = d[rows, col]
         second = np.partition(d, 1, axis=1)[:, 1] if k > 1 else np.full(n, np.inf)
-        unseen = centre_d[:, -1] - self.reach
+        unseen = centre_d[:, -1] - self.reach - (0.0 if half is None else np.hypot(half[:, 0], half[:, 1]))
         margin = TIE * (1.0 + best)
         sure = (unseen > best + margin) & (second > best + margin)
         sure |= ~np.isin(body, self.bodies)  # no rectangle tap in that body at all
@@ -105,11 +113,14 @@ class _TreeNearest:
         return self._per_body[b]
 
     def nearest(self, xy: np.ndarray, body: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        n = len(xy)
+        return self.nearest_to(shapely.points(xy), body)
+
+    def nearest_to(self, pts: np.ndarray, body: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(distance, tap index) from each geometry to the nearest tap of its body."""
+        n = len(pts)
         dist, tap = np.full(n, np.inf), np.full(n, -1, np.int64)
         if self.tree is None or n == 0:
             return dist, tap
-        pts = shapely.points(xy)
         (qi, ti), d = self.tree.query_nearest(pts, return_distance=True, all_matches=False)
         ok = self.body[ti] == body[qi]
         dist[qi[ok]], tap[qi[ok]] = d[ok], ti[ok]
@@ -153,21 +164,47 @@ class TapIndex:
 
     def nearest(self, xy: np.ndarray, body: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """(distance, tap index) of each point's nearest tap of the same body."""
+        return self._nearest(xy, body, None, None)
+
+    def nearest_to_shapes(self, geoms: np.ndarray, body: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(distance, tap index) of each polygon's nearest tap of the same body: rectangles
+        through the KD-tree as rectangles, other shapes the general way."""
+        n = len(geoms)
+        if n == 0 or len(self.taps) == 0:
+            return np.full(n, np.inf), np.full(n, -1, np.int64)
+        bounds = shapely.bounds(geoms).reshape(-1, 4)
+        is_box = axis_aligned_rectangles(geoms)
+        dist, tap = np.full(n, np.inf), np.full(n, -1, np.int64)
+        boxes, others = np.flatnonzero(is_box), np.flatnonzero(~is_box)
+        b = bounds[boxes]
+        dist[boxes], tap[boxes] = self._nearest((b[:, :2] + b[:, 2:]) / 2, body[boxes], (b[:, 2:] - b[:, :2]) / 2,
+                                                geoms[boxes])
+        if len(others):
+            dist[others], tap[others] = self._every_tap().nearest_to(geoms[others], body[others])
+        return dist, tap
+
+    def _nearest(self, xy, body, half, shapes) -> tuple[np.ndarray, np.ndarray]:
+        """Points (``half`` None) or rectangles (centre, half-sides, and their ``shapes``
+        for the general way) to the nearest tap of their body."""
         n = len(xy)
         if n == 0 or len(self.taps) == 0:
             return np.full(n, np.inf), np.full(n, -1, np.int64)
+
+        def queries(rows):  # geometries only for the queries that go the general way
+            return shapely.points(xy[rows]) if shapes is None else shapes[rows]
+
         if self._boxes is None:
-            return self._every_tap().nearest(xy, body)
-        dist, tap, sure = self._boxes.nearest(xy, body)
+            return self._every_tap().nearest_to(queries(slice(None)), body)
+        dist, tap, sure = self._boxes.nearest(xy, body, half)
         if self._others is not None:
-            d2, t2 = self._others.nearest(xy, body)
+            d2, t2 = self._others.nearest_to(queries(slice(None)), body)
             both = np.isfinite(d2) & np.isfinite(dist)
             sure[both] &= np.abs(d2[both] - dist[both]) > TIE * (1.0 + np.minimum(d2[both], dist[both]))
             closer = d2 < dist
             dist, tap = np.where(closer, d2, dist), np.where(closer, t2, tap)
         redo = np.flatnonzero(~sure)
         if len(redo):
-            dist[redo], tap[redo] = self._every_tap().nearest(xy[redo], body[redo])
+            dist[redo], tap[redo] = self._every_tap().nearest_to(queries(redo), body[redo])
         return dist, tap
 
     def corner_bound(self, corners: np.ndarray, centre_xy: np.ndarray, tap: np.ndarray) -> np.ndarray:

@@ -140,6 +140,35 @@ def test_rectangle_taps_nearest_matches_shapely(seed, bodies, with_ring):
     assert np.allclose(shapely.distance(shapely.points(xy[found]), taps[tap[found]]), dist[found], rtol=1e-12, atol=1e-12)
 
 
+@settings(max_examples=40, deadline=None)
+@given(seed=st.integers(0, 2**32 - 1), bodies=st.integers(1, 4), with_ring=st.booleans())
+def test_nearest_tap_to_shapes_matches_shapely(seed, bodies, with_ring):
+    # Rectangles asked as rectangles (the Minkowski form of the KD-tree path), and a few
+    # triangles (the general path), against shapely's polygon-to-polygon distance by brute force.
+    rng = np.random.default_rng(seed)
+    n = 60
+    x0, y0 = rng.uniform(0, 100, n), rng.uniform(0, 100, n)
+    taps = list(shapely.box(x0, y0, x0 + rng.choice([0.5, 2.0, 40.0], n), y0 + rng.choice([0.5, 3.0], n)))
+    tap_body = list(rng.integers(0, bodies, n))
+    if with_ring:
+        taps.append(shapely.box(40, 40, 60, 60).difference(shapely.box(42, 42, 58, 58)))
+        tap_body.append(0)
+    taps, tap_body = np.array(taps), np.array(tap_body)
+    m = 300
+    qx, qy = np.round(rng.uniform(-20, 120, (2, m)))  # on the grid: ties between equally near taps
+    shapes = shapely.box(qx, qy, qx + rng.choice([0.5, 3.0, 25.0], m), qy + rng.choice([1.0, 8.0], m))
+    shapes[:20] = shapely.polygons(np.stack([np.c_[qx[:20], qy[:20]], np.c_[qx[:20] + 3, qy[:20]],
+                                             np.c_[qx[:20], qy[:20] + 2]], axis=1))
+    body = rng.integers(0, bodies + 1, m)  # the last body has no tap
+    dist, tap = TapIndex(taps, tap_body).nearest_to_shapes(shapes, body)
+    d = np.where(body[:, None] == tap_body[None, :], shapely.distance(shapes[:, None], taps[None, :]), np.inf)
+    expected = d.min(axis=1)
+    assert np.allclose(dist, expected, rtol=1e-12, atol=1e-12)
+    found = tap >= 0
+    assert np.array_equal(found, np.isfinite(expected))
+    assert np.allclose(shapely.distance(shapes[found], taps[tap[found]]), dist[found], rtol=1e-12, atol=1e-12)
+
+
 def test_rectangle_corner_bound_is_the_farthest_corner_distance():
     # Analytic: a unit tap at the origin; the cell's corners (3, 0), (3, 4), ... are at most
     # hypot(2, 3) from it ((3, 4) to the tap corner (1, 1)).
