@@ -73,6 +73,16 @@ class CellBuilder:
         return c
 
 
+class GdstkAdder:
+    """The benchmark generators draw through ``cell.add(gdstk polygon)``; this collects into a CellBuilder."""
+
+    def __init__(self, cell: CellBuilder):
+        self.cell = cell
+
+    def add(self, polygon):
+        self.cell.polygon((polygon.layer, polygon.datatype), polygon.points)
+
+
 def layout(*cells: CellBuilder, frames=(), stacks=(), source="test.py") -> CapturedLayout:
     return CapturedLayout([c.build() for c in cells], list(frames), [tuple(s) for s in stacks], source)
 

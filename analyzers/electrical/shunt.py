@@ -13,7 +13,8 @@ the true distance to its WINDOW_TAPS-th nearest tap beyond it (the sheet outside
 window is cut away, which can only raise the estimate; see _windowed). Windows whose
 contents are the same up to a translation (repeated cells) are solved once: each
 window's contents are hashed after clipping, relative to the device. The cost is then
-linear in the number of distinct windows.
+linear in the number of distinct windows, and a window an earlier check of this process
+solved is taken from window_memo.py.
 """
 
 from __future__ import annotations
@@ -25,6 +26,7 @@ import shapely
 from scipy.spatial import cKDTree
 
 from latchwatch.analyzers.electrical.sheet import SheetProblem, make_mesh, solve
+from latchwatch.analyzers.electrical.window_memo import SOLVED_WINDOWS, memo_keys
 from latchwatch.analyzers.extraction.extract import SUBSTRATE, Pieces, is_pwell_body, pwell_index
 from latchwatch.analyzers.extraction.nets import pad_connected
 from latchwatch.analyzers.extraction.tapdistance import TapIndex
@@ -347,14 +349,19 @@ def _solve_windows(devices, body, sheet, boxes, info, taps, grid) -> np.ndarray:
     _, first, inverse = np.unique(key, axis=0, return_index=True, return_inverse=True)
     order = np.argsort(contents.window, kind="stable")
     starts = np.searchsorted(contents.window[order], np.arange(n + 1))
-    ohm_unique = np.empty(len(first))
-    for u, w in enumerate(first):
+    memo = memo_keys(key[first], grid)
+    known = [SOLVED_WINDOWS.get(k) for k in memo]
+    ohm_unique = np.array([np.nan if v is None else v for v in known], float)
+    todo = [u for u, v in enumerate(known) if v is None]
+    for u in todo:
+        w = first[u]
         mine = order[starts[w]:starts[w + 1]]
         cat, geoms = contents.category[mine], contents.shapes(mine)
         include = np.array([box_geoms[w]], dtype=object) if substrate[w] else geoms[cat == 0]
         problem = SheetProblem(tuple(boxes[w].tolist()), include, geoms[cat == 1], geoms[cat == 2],
                                np.array([devices[w]], dtype=object), float(sheet[w]), grid)
         ohm_unique[u] = solve(problem).resistance[0]
+    SOLVED_WINDOWS.record([memo[u] for u in todo], ohm_unique[todo])
     return ohm_unique[inverse.ravel()]
 
 

@@ -33,6 +33,7 @@ from dataclasses import replace
 import numpy as np
 
 from latchwatch.analyzers.check import CheckOptions, CheckResult, check_outcome, checked_tops
+from latchwatch.analyzers.electrical.window_memo import SOLVED_WINDOWS
 from latchwatch.analyzers.layout.budget import placements
 from latchwatch.analyzers.layout.flatten import MAX_DEPTH, HierarchyError
 from latchwatch.analyzers.model.run_outcome import RunOutcome, ScriptFailure
@@ -60,17 +61,21 @@ def analyse(outcome: RunOutcome, tech: Technology, options: CheckOptions, limits
         with _GATE:
             return check_outcome(outcome, tech, options, **keywords)
     read_fd, write_fd = os.pipe()
+    mark = SOLVED_WINDOWS.mark()
     with _GATE:
         pid = os.fork()
     if pid == 0:  # pragma: no cover - the child; coverage does not follow it
-        _child(write_fd, limits.analysis_memory, lambda: check_outcome(outcome, tech, options, **keywords))
+        _child(write_fd, limits.analysis_memory,
+               lambda: (check_outcome(outcome, tech, options, **keywords), SOLVED_WINDOWS.since(mark)))
     os.close(write_fd)
     try:
         kind, value = _collect(read_fd, pid, time.monotonic() + limits.analysis_seconds, cancel)
     finally:
         os.close(read_fd)
     if kind == "ok":
-        return value
+        result, solved = value
+        SOLVED_WINDOWS.merge(solved)  # the next check, forked from here, starts with them
+        return result
     if kind == "raise":
         raise value
     if kind == "cancelled":

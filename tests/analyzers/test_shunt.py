@@ -13,6 +13,7 @@ from latchwatch.analyzers.context import CheckContext, CheckOptions
 from latchwatch.analyzers.electrical import shunt
 from latchwatch.analyzers.electrical.mobility import sheet_resistance
 from latchwatch.analyzers.electrical.shunt import shunt_estimates, si
+from latchwatch.analyzers.electrical.window_memo import SOLVED_WINDOWS
 from latchwatch.analyzers.extraction.devices import device_table
 from latchwatch.analyzers.layout.flatten import flatten
 from latchwatch.analyzers.rules.shunt_resistance import RULE
@@ -20,7 +21,7 @@ from latchwatch.analyzers.technology.model import TechnologyError, technology_fr
 from latchwatch.server.config.techfiles import load_technology
 from latchwatch.server.lsp import convert as lsp_convert
 
-from builders import ACTIVE, CONTACT, NPLUS, NWELL, PPLUS, CellBuilder, layout, outcome
+from builders import ACTIVE, CONTACT, NPLUS, NWELL, PPLUS, CellBuilder, GdstkAdder, layout, outcome
 from locations import BENCH
 
 sys.path.insert(0, str(BENCH))
@@ -159,25 +160,16 @@ def test_substrate_island_inside_a_well_ring_has_no_path(demo):
     assert device_table(ctx)[0].shunt_ohm is None
 
 
-class _Adder:
-    """gen_row draws through ``cell.add(gdstk polygon)``; this collects into a CellBuilder."""
-
-    def __init__(self, cell):
-        self.cell = cell
-
-    def add(self, polygon):
-        self.cell.polygon((polygon.layer, polygon.datatype), polygon.points)
-
-
 def row_context(tech, rows=3, groups=4):
     c = CellBuilder("ROWS")
     for row in range(rows):
-        gen_row.draw_row(_Adder(c), row, groups)
+        gen_row.draw_row(GdstkAdder(c), row, groups)
     return context(c, tech)
 
 
 def test_windows_agree_with_whole_bodies_and_repeat_cells_are_solved_once(demo, monkeypatch):
     whole = shunt_estimates(row_context(demo), exact=True)
+    SOLVED_WINDOWS.clear()  # windows an earlier test solved would not be solved again
     solves = []
     real_solve = shunt.solve
     monkeypatch.setattr(shunt, "solve", lambda problem: solves.append(1) or real_solve(problem))
@@ -187,7 +179,23 @@ def test_windows_agree_with_whole_bodies_and_repeat_cells_are_solved_once(demo, 
         ratio = windowed[kind].ohm / whole[kind].ohm
         # Cutting the sheet at the window can only raise R; the two grids differ by a few %.
         assert ratio.min() > 0.96 and ratio.max() < 1.06, (kind, ratio.min(), ratio.max())
-    assert len(solves) < len(whole["p"].ohm) + len(whole["n"].ohm)
+    assert 0 < len(solves) < len(whole["p"].ohm) + len(whole["n"].ohm)
+
+
+def test_a_second_check_takes_its_windows_from_the_memo_and_a_new_grid_does_not(demo, monkeypatch):
+    monkeypatch.setattr(shunt, "WHOLE_BODY_DEVICES", 0)
+    SOLVED_WINDOWS.clear()
+    cold = shunt_estimates(row_context(demo), exact=True)
+    solves = []
+    real_solve = shunt.solve
+    monkeypatch.setattr(shunt, "solve", lambda problem: solves.append(1) or real_solve(problem))
+    warm = shunt_estimates(row_context(demo), exact=True)
+    assert solves == []
+    for kind in ("p", "n"):
+        assert np.array_equal(warm[kind].ohm, cold[kind].ohm, equal_nan=True)
+    finer = tech_with(demo, sheet_grid=0.5)  # the default grid is adaptive (None)
+    shunt_estimates(row_context(finer), exact=True)
+    assert solves  # the grid step is part of a window's key
 
 
 def test_window_keys_see_translation_and_nothing_else():

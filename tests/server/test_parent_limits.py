@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import json
 import os
+import sys
 import threading
 import time
 
@@ -21,6 +22,8 @@ import numpy as np
 import pytest
 
 from latchwatch.analyzers.check import CheckOptions, TopCellError, check_outcome
+from latchwatch.analyzers.electrical import shunt
+from latchwatch.analyzers.electrical.window_memo import SOLVED_WINDOWS
 from latchwatch.analyzers.layout.budget import LayoutBudget, LayoutTooLarge, check_budget
 from latchwatch.analyzers.layout.flatten import flatten
 from latchwatch.analyzers.model.run_outcome import RunOutcome
@@ -32,7 +35,11 @@ from latchwatch.server.report.terminal import terminal_safe
 from latchwatch.server.runs import analysis
 from latchwatch.server.sandbox import wire
 
-from builders import ACTIVE, NPLUS, NWELL, PPLUS, CellBuilder, frame, layout
+from builders import ACTIVE, NPLUS, NWELL, PPLUS, CellBuilder, GdstkAdder, frame, layout
+from locations import BENCH
+
+sys.path.insert(0, str(BENCH))
+from gen_row import draw_row  # noqa: E402  (the benchmark rows: every device in a sheet window)
 
 TECH = load_technology("demo")
 
@@ -224,6 +231,24 @@ def test_a_forked_analysis_gives_what_the_in_process_one_gives():
     assert not analysis._small(run, CheckOptions())
     forked, direct = _analyse(run, Limits()), check_outcome(run, TECH, CheckOptions(), want_devices=True)
     assert forked.findings == direct.findings and forked.devices == direct.devices and forked.shapes == direct.shapes
+
+
+def test_windows_a_forked_analysis_solved_come_back_and_the_next_check_reuses_them(monkeypatch):
+    # The memo of solved windows lives in this process; a fork's new entries are sent back
+    # with its result, so the next fork starts with them and gives the same answer.
+    monkeypatch.setattr(shunt, "WHOLE_BODY_DEVICES", 0)  # the fork inherits it: every device in a window
+    cell = CellBuilder("ROWS")
+    for row in range(3):
+        draw_row(GdstkAdder(cell), row, 12)
+    run = _outcome(layout(cell))
+    assert not analysis._small(run, CheckOptions())
+    SOLVED_WINDOWS.clear()
+    first = _analyse(run, Limits())
+    kept = len(SOLVED_WINDOWS)
+    assert kept > 0
+    again = _analyse(run, Limits())
+    assert len(SOLVED_WINDOWS) == kept  # nothing new was solved
+    assert again.findings == first.findings and again.devices == first.devices
 
 
 MEMORY_CASE = """
