@@ -1,6 +1,10 @@
 """Edit-to-publish latency of `latchwatch serve`; prints figures, asserts nothing.
 
-    python tests/bench/bench_lsp_latency.py [EDITS]        default 30
+    python tests/bench/bench_lsp_latency.py [EDITS] [--rows SHAPES]     default 30, the small cell
+
+With ``--rows SHAPES`` the cell is that many shapes of the benchmark's standard-cell rows
+(gen_row.py, drawn by the script in place) plus the small cell's well and P+ diffusions
+beside them; the edits change the same loop line, so the rows stay as they were.
 
 A real server over stdio (pygls' client), a trusted temporary project with the demo
 technology and the debounce set to 0 (so it is excluded from the figure), and a small
@@ -25,6 +29,7 @@ from __future__ import annotations
 
 import asyncio
 import os
+import shutil
 import statistics
 import subprocess
 import sys
@@ -35,6 +40,8 @@ from pathlib import Path
 from lsprotocol import types
 from pygls.lsp.client import LanguageClient
 from pygls.uris import from_fs_path
+
+HERE = Path(__file__).resolve().parent
 
 CELL = '''\
 import gdstk
@@ -51,6 +58,25 @@ for x in (0, 12, 24, WIDTH):
 '''
 LOOP_LINE = 8
 PAUSE = 0.6
+ROWS_TAIL = '''
+from gen_row import GROUPS_PER_ROW, draw_row
+
+for row in range(ROWS):
+    draw_row(cell, row + 1, GROUPS_PER_ROW)
+'''
+
+
+def rows_cell(shapes: int) -> str:
+    """The small cell with ``shapes`` shapes of whole benchmark rows drawn above it."""
+    import gdstk
+
+    sys.path.insert(0, str(HERE))
+    from gen_row import GROUPS_PER_ROW, draw_row
+
+    one = gdstk.Cell("ONE")
+    draw_row(one, 0, GROUPS_PER_ROW)
+    rows = max(1, round(shapes / len(one.polygons)))
+    return CELL.replace("WIDTH", "36") + ROWS_TAIL.replace("ROWS", str(rows))
 
 
 def median_ms(values) -> str:
@@ -141,19 +167,30 @@ def bare_child(repeats: int) -> list[float]:
 
 
 def main() -> None:
-    edits = int(sys.argv[1]) if len(sys.argv) > 1 else 30
+    args = sys.argv[1:]
+    shapes = None
+    if "--rows" in args:
+        at = args.index("--rows")
+        shapes = int(args[at + 1])
+        del args[at:at + 2]
+    edits = int(args[0]) if args else 30
     with tempfile.TemporaryDirectory(prefix="latchwatch-bench-") as tmp:
         Path(tmp).chmod(0o755)  # as root, a run is nobody, and is refused a folder only root can read
         project = Path(tmp) / "project"
         project.mkdir()
         (project / "latchwatch.toml").write_text('tech = "demo"\n')
         script = project / "cell.py"
-        script.write_text(CELL.replace("WIDTH", "36"))
+        if shapes is None:
+            script.write_text(CELL.replace("WIDTH", "36"))
+        else:
+            shutil.copy(HERE / "gen_row.py", project / "gen_row.py")
+            script.write_text(rows_cell(shapes))
         back_to_back = asyncio.run(edit_to_publish(project, script, edits, 0.0))
         typing = asyncio.run(edit_to_publish(project, script, edits, PAUSE))
         cold, hosted, checks = pipeline_parts(project, script, min(edits, 15))
         bare = bare_child(min(edits, 15))
-    print(f"edit-to-publish over {edits} edits (debounce 0):")
+    print(f"edit-to-publish over {edits} edits (debounce 0), "
+          f"{'the small cell' if shapes is None else f'{shapes} shapes of rows and the small cell'}:")
     for name, samples in (("back-to-back", back_to_back), (f"typing ({PAUSE:g} s apart)", typing)):
         print(f"  {name:<22} median {median_ms(samples)}   min {1000 * min(samples):7.1f} ms"
               f"   max {1000 * max(samples):7.1f} ms")

@@ -38,8 +38,11 @@ def check_seconds(layout_path: Path, with_rule: bool, repeat: int = 1, rule: str
     tech = load_technology("demo")
     captured = read_layout_file(layout_path, "gds").layout
     rules = tuple(r for r in RULES if with_rule or r.id != rule)
+    from latchwatch.analyzers.electrical.window_memo import SOLVED_WINDOWS
+
     times, result = [], None
     for _ in range(repeat):
+        SOLVED_WINDOWS.clear()  # cold, as a fresh `latchwatch check` process is
         run = RunOutcome(script=str(layout_path), status="ok", seconds=0.0, layout=captured, failure=None,
                          output="", sandbox={})
         start = time.perf_counter()
