@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -117,14 +118,14 @@ def device_table(ctx) -> list[Device]:
         shunt = shunt_estimates(ctx, exact=True)[kind]
         injected = injections(ctx)[kind]
         ohm, trigger = _finite(shunt.ohm), _finite(shunt.trigger)
-        for i in range(len(r.pieces)):
-            loc = ctx.provenance.locate_shape(int(r.pieces.shape[i]))
-            value = r.result.value[i]
+        located = ctx.provenance.locate_shapes(r.pieces.shape)
+        values, bodies = r.result.value.tolist(), r.pieces.body.tolist()
+        for i, (loc, box, value) in enumerate(zip(located, bounds.tolist(), values, strict=True)):
             rows.append(Device(
                 kind=DEVICE_KIND[kind], cell=loc["cell"],
-                bbox=tuple(round(float(v), 6) for v in bounds[i]), file=loc["file"], line=loc["line"],
-                body=body_name(kind, int(r.pieces.body[i])),
-                tap_distance_um=None if not np.isfinite(value) else round(float(value), 6),
+                bbox=tuple(round(v, 6) for v in box), file=loc["file"], line=loc["line"],
+                body=body_name(kind, bodies[i]),
+                tap_distance_um=None if not math.isfinite(value) else round(value, 6),
                 net=net_names[i], shunt_ohm=ohm[i], trigger_current_a=trigger[i], corner=ctx.outcome.corner,
                 injection=injected[i].record() if i in injected else None,
             ))
