@@ -5,6 +5,7 @@ import copy
 import dataclasses
 import re
 import sys
+import threading
 
 import numpy as np
 import pytest
@@ -196,6 +197,23 @@ def test_a_second_check_takes_its_windows_from_the_memo_and_a_new_grid_does_not(
     finer = tech_with(demo, sheet_grid=0.5)  # the default grid is adaptive (None)
     shunt_estimates(row_context(finer), exact=True)
     assert solves  # the grid step is part of a window's key
+
+
+def test_both_kinds_side_by_side_give_what_one_after_the_other_gives(demo, monkeypatch):
+    monkeypatch.setattr(shunt, "WHOLE_BODY_DEVICES", 0)
+    SOLVED_WINDOWS.clear()
+    serial = shunt_estimates(row_context(demo), exact=True)
+    monkeypatch.setattr(shunt, "PARALLEL_DEVICES", 0)
+    monkeypatch.setattr(shunt.os, "sched_getaffinity", lambda pid: {0, 1}, raising=False)
+    SOLVED_WINDOWS.clear()
+    threads = []
+    real = shunt._estimate_kind
+    monkeypatch.setattr(shunt, "_estimate_kind", lambda *a, **k: threads.append(threading.current_thread().name)
+                        or real(*a, **k))
+    side_by_side = shunt_estimates(row_context(demo), exact=True)
+    assert len(threads) == 2 and all(name.startswith("latchwatch-shunt") for name in threads)
+    for kind in ("p", "n"):
+        assert np.array_equal(side_by_side[kind].ohm, serial[kind].ohm, equal_nan=True)
 
 
 def test_window_keys_see_translation_and_nothing_else():
