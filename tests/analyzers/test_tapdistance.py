@@ -112,6 +112,18 @@ def _brute_nearest(xy, body, taps, tap_body):
     return d.min(axis=1)
 
 
+def _random_taps(rng, bodies, with_ring, n=60):
+    """Rectangle taps of very different sizes (the proof uses the largest half-diagonal) in
+    ``bodies`` bodies, and with ``with_ring`` a ring tap of body 0 (the general path)."""
+    x0, y0 = rng.uniform(0, 100, n), rng.uniform(0, 100, n)
+    taps = list(shapely.box(x0, y0, x0 + rng.choice([0.5, 2.0, 40.0], n), y0 + rng.choice([0.5, 3.0], n)))
+    tap_body = list(rng.integers(0, bodies, n))
+    if with_ring:
+        taps.append(shapely.box(40, 40, 60, 60).difference(shapely.box(42, 42, 58, 58)))
+        tap_body.append(0)
+    return np.array(taps), np.array(tap_body)
+
+
 @settings(max_examples=40, deadline=None)
 @given(seed=st.integers(0, 2**32 - 1), bodies=st.integers(1, 4), with_ring=st.booleans())
 def test_rectangle_taps_nearest_matches_shapely(seed, bodies, with_ring):
@@ -119,15 +131,7 @@ def test_rectangle_taps_nearest_matches_shapely(seed, bodies, with_ring):
     # with rectangles of very different sizes (the proof uses the largest half-diagonal), and a
     # ring tap (the general path) mixed in.
     rng = np.random.default_rng(seed)
-    n = 60
-    x0, y0 = rng.uniform(0, 100, n), rng.uniform(0, 100, n)
-    w, h = rng.choice([0.5, 2.0, 40.0], n), rng.choice([0.5, 3.0], n)
-    taps = list(shapely.box(x0, y0, x0 + w, y0 + h))
-    tap_body = list(rng.integers(0, bodies, n))
-    if with_ring:
-        taps.append(shapely.box(40, 40, 60, 60).difference(shapely.box(42, 42, 58, 58)))
-        tap_body.append(0)
-    taps, tap_body = np.array(taps), np.array(tap_body)
+    taps, tap_body = _random_taps(rng, bodies, with_ring)
     xy = rng.uniform(-20, 120, (500, 2))
     xy[:50] = np.round(xy[:50])  # on the grid: ties between equally near taps
     body = rng.integers(0, bodies + 1, len(xy))  # the last body has no tap
@@ -146,14 +150,7 @@ def test_nearest_tap_to_shapes_matches_shapely(seed, bodies, with_ring):
     # Rectangles asked as rectangles (the Minkowski form of the KD-tree path), and a few
     # triangles (the general path), against shapely's polygon-to-polygon distance by brute force.
     rng = np.random.default_rng(seed)
-    n = 60
-    x0, y0 = rng.uniform(0, 100, n), rng.uniform(0, 100, n)
-    taps = list(shapely.box(x0, y0, x0 + rng.choice([0.5, 2.0, 40.0], n), y0 + rng.choice([0.5, 3.0], n)))
-    tap_body = list(rng.integers(0, bodies, n))
-    if with_ring:
-        taps.append(shapely.box(40, 40, 60, 60).difference(shapely.box(42, 42, 58, 58)))
-        tap_body.append(0)
-    taps, tap_body = np.array(taps), np.array(tap_body)
+    taps, tap_body = _random_taps(rng, bodies, with_ring)
     m = 300
     qx, qy = np.round(rng.uniform(-20, 120, (2, m)))  # on the grid: ties between equally near taps
     shapes = shapely.box(qx, qy, qx + rng.choice([0.5, 3.0, 25.0], m), qy + rng.choice([1.0, 8.0], m))
