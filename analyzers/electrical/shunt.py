@@ -409,11 +409,18 @@ def _sequence_hash(values: np.ndarray, group: np.ndarray, n_groups: int, multipl
 def window_keys(devices, boxes, origin, contents: _WindowPieces) -> np.ndarray:
     """(n, 5) uint64 rows, equal for windows whose contents are equal after translating
     each to its device's lower-left corner: two 64-bit hashes of the clipped contents,
-    of the device, and of the window size."""
+    of the device, and of the window's size and place relative to the device."""
     n = len(devices)
     keys = np.zeros((n, 5), np.uint64)
     size = np.round((boxes[:, 2:] - boxes[:, :2]) / QUANTUM).astype(np.int64)
-    keys[:, 4] = (size[:, 0].astype(np.uint64) << np.uint64(32)) ^ size[:, 1].astype(np.uint64)
+    # The window's place relative to its device counts too: a substrate window's region is
+    # the window itself, which its clipped contents do not show.
+    offset = np.round((boxes[:, :2] - origin) / QUANTUM).astype(np.int64)
+    with np.errstate(over="ignore"):
+        mixed = np.zeros(n, np.uint64)
+        for part in (size[:, 0], size[:, 1], offset[:, 0], offset[:, 1]):
+            mixed = mixed * _MULTIPLIERS[0] + part.astype(np.uint64)
+    keys[:, 4] = mixed
     rect = ~np.isnan(contents.bounds[:, 0])
     poly = np.flatnonzero(~rect)
     for h, mult in enumerate(_MULTIPLIERS):

@@ -225,6 +225,12 @@ def test_window_keys_see_translation_and_nothing_else():
     contents = shunt._WindowPieces(np.arange(3), np.full(3, 2), taps)
     keys = shunt.window_keys(device, boxes, shapely.bounds(device)[:, :2], contents)
     assert (keys[0] == keys[1]).all() and not (keys[0] == keys[2]).all()
+    # The same size and contents, the window shifted against its device (clipped on the
+    # other side): a substrate window's region is the window, so the key must differ.
+    shifted = boxes[:2] + np.array([[0, 0, 0, 0], [2, 0, 2, 0]], float)
+    pair = shunt.window_keys(device[:2], shifted, shapely.bounds(device[:2])[:, :2],
+                             shunt._WindowPieces(np.arange(2), np.full(2, 2), taps[:2]))
+    assert not (pair[0] == pair[1]).all()
 
 
 @pytest.mark.parametrize("key, value, named, expected", [
