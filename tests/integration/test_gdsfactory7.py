@@ -1,0 +1,113 @@
+"""gdsfactory 7 (built on gdstk) through `latchwatch check --python`: a parametric cell
+library with `@gf.cell` helpers, `<<` references moved after their insert, and an
+instance array made by `add_array`, as a script and as the GDS file it writes.
+
+They need an environment with gdsfactory 7: `.ci/run` builds `.venv-gf7` in the checkout
+and names its interpreter in LATCHWATCH_GF7_PYTHON; without either these tests skip,
+saying so. Build it by hand:
+
+    python3 -m venv .venv-gf7 && .venv-gf7/bin/pip install 'gdsfactory==7.8.18'
+
+The script is the examples/gdsfactory/ switch bank in gdsfactory 7's API (add_array
+instead of add_ref with columns), so the expected figures are that example's, derived
+there by hand.
+"""
+
+from __future__ import annotations
+
+import subprocess
+
+import pytest
+
+from environments import check, framework_python, latchwatch_here, line_of
+
+GF7_PYTHON, SKIP_REASON = framework_python(
+    "LATCHWATCH_GF7_PYTHON", ".venv-gf7",
+    "import gdsfactory, gdstk, importlib.metadata as m; assert m.version('gdsfactory').startswith('7.')")
+pytestmark = pytest.mark.skipif(SKIP_REASON is not None, reason=SKIP_REASON or "")
+
+SWITCHES = '''"""Fourteen PMOS switches in one n-well, a tap before each group of eight (gdsfactory 7)."""
+import gdsfactory as gf
+
+NWELL, ACTIVE, POLY, NPLUS, PPLUS, CONTACT = (1, 0), (2, 0), (3, 0), (4, 0), (5, 0), (6, 0)
+PITCH, GROUP, GAP = 4.0, 8, 2.0
+
+
+def rect(c, layer, x0, y0, x1, y1):
+    c.add_polygon([(x0, y0), (x1, y0), (x1, y1), (x0, y1)], layer=layer)
+
+
+@gf.cell
+def pmos_switch(w: float = 4.0, l: float = 0.5) -> gf.Component:
+    c = gf.Component()
+    rect(c, ACTIVE, 0.0, 0.0, 3.0, w)  # switch diffusion
+    rect(c, PPLUS, -0.2, -0.2, 3.2, w + 0.2)
+    rect(c, POLY, 1.25, -0.5, 1.25 + l, w + 0.5)
+    for x in (0.3, 2.2):
+        rect(c, CONTACT, x, w / 2 - 0.25, x + 0.5, w / 2 + 0.25)
+    return c
+
+
+@gf.cell
+def nwell_tap(h: float = 4.0) -> gf.Component:
+    c = gf.Component()
+    c << gf.components.rectangle(size=(1.5, h), layer=ACTIVE)
+    c << gf.components.rectangle(size=(1.5, h), layer=NPLUS)
+    contact = c << gf.components.rectangle(size=(0.5, 0.5), layer=CONTACT)
+    contact.move((0.5, h / 2 - 0.25))
+    return c
+
+
+@gf.cell
+def switch_bank(switches: int = 14) -> gf.Component:
+    c = gf.Component()
+    groups = [min(GROUP, switches - start) for start in range(0, switches, GROUP)]
+    group_width = GAP + GROUP * PITCH
+    rect(c, NWELL, -1.0, -1.0, len(groups) * group_width, 5.0)
+    for g, count in enumerate(groups):
+        x0 = g * group_width + GAP
+        tap = c << nwell_tap()
+        tap.move((x0 - 1.75, 0.0))
+        fingers = c.add_array(pmos_switch(), columns=count, rows=1, spacing=(PITCH, 0))
+        fingers.move((x0, 0.0))
+    return c
+
+
+bank = switch_bank()
+bank.write_gds("switches.gds")
+'''
+# By hand: a group is 2 + 8 x 4 = 34 um wide. The second group's tap lies at x 34.25..35.75
+# and its six switches at x = 36 + 4k; the far edge of the last one (k = 5, x 56..59) is
+# 59 - 35.75 = 23.25 um from that tap, the nearest (examples/gdsfactory/README.md).
+FAR_UM = 23.25
+LIMIT_UM = 20.0  # demo technology
+
+
+@pytest.fixture(scope="module")
+def bank_folder(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("gf7")
+    (folder / "switches.py").write_text(SWITCHES, encoding="utf-8")
+    return folder
+
+
+def test_the_far_switch_fails_on_its_helper_line_with_the_array_member(bank_folder):
+    report = check([latchwatch_here()], bank_folder, "--tech", "demo", "--python", GF7_PYTHON, "switches.py")
+    assert report["runs"][0]["status"] == "ok"
+    [top] = report["runs"][0]["tops"]
+    assert (top["cell"], top["how"], top["line"]) == ("switch_bank", "written", line_of(SWITCHES, "write_gds"))
+    [finding] = report["findings"]
+    assert (finding["rule"], finding["value"], finding["limit"]) == ("tap-distance", pytest.approx(FAR_UM), LIMIT_UM)
+    assert finding["line"] == line_of(SWITCHES, "# switch diffusion")
+    [placement] = finding["placements"]
+    assert placement["line"] == line_of(SWITCHES, "c.add_array(")
+    assert placement["instance"] == "pmos_switch[5,0]"
+    # All 14 switches are devices; the nearest 8 of the first group pass.
+    assert len([d for d in report["devices"] if d["kind"] == "pdiff"]) == 14
+
+
+def test_the_gds_it_writes_gives_the_same_finding(bank_folder):
+    # Run by gdsfactory 7 itself (a checked script's writes stay in its sandbox).
+    subprocess.run([GF7_PYTHON, "switches.py"], cwd=bank_folder, check=True, capture_output=True, timeout=300)
+    report = check([latchwatch_here()], bank_folder, "--tech", "demo", "switches.gds")
+    [finding] = report["findings"]
+    assert (finding["rule"], finding["value"]) == ("tap-distance", pytest.approx(FAR_UM))
