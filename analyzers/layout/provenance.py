@@ -155,7 +155,7 @@ class Provenance:
         if len(shapes) == 0:
             return []
         pairs = np.column_stack([self.flat.instance[shapes], self.flat.stack[shapes]]).astype(np.int64)
-        distinct, first, which = np.unique(pairs, axis=0, return_index=True, return_inverse=True)
+        _, first, which = np.unique(pairs, axis=0, return_index=True, return_inverse=True)
         answers = [self.locate_shape(int(shapes[i])) for i in first]
         return [answers[k] for k in which.ravel().tolist()]
 
