@@ -18,7 +18,7 @@ import numpy as np
 import shapely
 from scipy.spatial import cKDTree
 
-from latchwatch.analyzers.layout.geometry import axis_aligned_rectangles
+from latchwatch.analyzers.layout.geometry import bounds_and_rectangles
 
 DEFAULT_TOL = 1e-3  # one nanometre in micrometre units
 MAX_LEVELS = 40
@@ -144,8 +144,7 @@ class TapIndex:
 
     def __init__(self, taps: np.ndarray, body: np.ndarray):
         self.taps, self.body = taps, body
-        self.bounds = shapely.bounds(taps).reshape(-1, 4)
-        self.is_box = axis_aligned_rectangles(taps) if len(taps) else np.zeros(0, bool)
+        self.bounds, self.is_box = bounds_and_rectangles(taps)
         others = np.flatnonzero(~self.is_box)
         self.convex = self.is_box.copy()
         if len(others):
@@ -172,8 +171,7 @@ class TapIndex:
         n = len(geoms)
         if n == 0 or len(self.taps) == 0:
             return np.full(n, np.inf), np.full(n, -1, np.int64)
-        bounds = shapely.bounds(geoms).reshape(-1, 4)
-        is_box = axis_aligned_rectangles(geoms)
+        bounds, is_box = bounds_and_rectangles(geoms)
         dist, tap = np.full(n, np.inf), np.full(n, -1, np.int64)
         boxes, others = np.flatnonzero(is_box), np.flatnonzero(~is_box)
         b = bounds[boxes]

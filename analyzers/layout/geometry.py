@@ -24,13 +24,14 @@ def axis_aligned_rectangles(polygons: np.ndarray) -> np.ndarray:
     >>> axis_aligned_rectangles(np.array([shapely.box(0, 0, 2, 1), shapely.Polygon([(0, 0), (2, 0), (1, 1)])])).tolist()
     [True, False]
     """
-    return _rectangles_in_bounds(polygons, shapely.bounds(polygons))
+    return bounds_and_rectangles(polygons)[1]
 
 
-def _rectangles_in_bounds(polygons: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """axis_aligned_rectangles, given the polygons' bounds (computed once by the caller)."""
+def bounds_and_rectangles(polygons: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(bounds (n, 4), axis_aligned_rectangles) from one pass over the bounds, for callers that need both."""
+    b = shapely.bounds(polygons).reshape(-1, 4)
     box_area = (b[:, 2] - b[:, 0]) * (b[:, 3] - b[:, 1])
-    return (shapely.get_num_coordinates(polygons) == 5) & (box_area > 0) & np.isclose(
+    return b, (shapely.get_num_coordinates(polygons) == 5) & (box_area > 0) & np.isclose(
         shapely.area(polygons), box_area, rtol=1e-12, atol=0.0)
 
 
@@ -49,11 +50,8 @@ def _drop_touching(a, b, ia, ib):
     """Keep the pairs whose interiors meet. Two axis-aligned rectangles do exactly when
     their boxes overlap with positive width and height; GEOS decides the other pairs."""
     # Bounds and rectangle flags once per array, then gathered per pair: pairs outnumber shapes.
-    bounds_a = shapely.bounds(a)
-    rect_a = _rectangles_in_bounds(a, bounds_a)
-    bounds_b, rect_b = (bounds_a, rect_a) if b is a else (shapely.bounds(b), None)
-    if rect_b is None:
-        rect_b = _rectangles_in_bounds(b, bounds_b)
+    bounds_a, rect_a = bounds_and_rectangles(a)
+    bounds_b, rect_b = (bounds_a, rect_a) if b is a else bounds_and_rectangles(b)
     ba, bb = bounds_a[ia], bounds_b[ib]
     both_boxes = rect_a[ia] & rect_b[ib]
     w = np.minimum(ba[:, 2], bb[:, 2]) - np.maximum(ba[:, 0], bb[:, 0])

@@ -24,8 +24,9 @@ def check(ctx):
     for kind, taps, contacted in (("n-tap", ex.ntap, ex.ntap_contacted), ("p-tap", ex.ptap, ex.ptap_contacted)):
         # A contact lands inside its tap, so no point of the tap is farther from it than
         # the tap's bounding-box diagonal: taps whose diagonal is within the limit pass.
-        low_x, low_y, high_x, high_y = shapely.bounds(taps.geoms).T
-        rows = np.flatnonzero(contacted & (np.hypot(high_x - low_x, high_y - low_y) > limit))
+        bounds = shapely.bounds(taps.geoms)
+        diagonal = np.hypot(bounds[:, 2] - bounds[:, 0], bounds[:, 3] - bounds[:, 1])
+        rows = np.flatnonzero(contacted & (diagonal > limit))
         if len(rows) == 0:
             continue
         # Each contact counts for the taps it overlaps, by the part inside each: the
@@ -38,7 +39,6 @@ def check(ctx):
         # One finding per drawn shape: its worst piece.
         order = over[np.lexsort((-found.value[over], taps.shape[rows[over]]))]
         first = np.r_[True, taps.shape[rows[order]][1:] != taps.shape[rows[order]][:-1]] if len(order) else []
-        bounds = shapely.bounds(taps.geoms)
         for k in order[first]:
             i = int(rows[k])
             nearest = landed[found.tap[k]]
