@@ -33,31 +33,26 @@ class WindowMemo:
 
     def __init__(self, capacity: int = CAPACITY):
         self.capacity = capacity
-        self._ohm: dict[bytes, float] = {}
-        self._added = 0  # entries ever recorded: a mark is a position in that sequence
-        self._order: dict[bytes, int] = {}
+        # key -> (ohm, position in the sequence of records): a mark is such a position.
+        self._entries: dict[bytes, tuple[float, int]] = {}
+        self._added = 0
         self._lock = threading.Lock()  # the command line merges results of several checks from threads
 
     def __len__(self) -> int:
-        return len(self._ohm)
+        return len(self._entries)
 
     def get(self, key: bytes) -> float | None:
-        return self._ohm.get(key)
+        entry = self._entries.get(key)
+        return None if entry is None else entry[0]
 
     def record(self, keys: Iterable[bytes], values: Iterable[float]) -> None:
         with self._lock:
-            self._record(keys, values)
-
-    def _record(self, keys, values) -> None:
-        for key, value in zip(keys, values, strict=True):
-            self._ohm.pop(key, None)
-            self._order.pop(key, None)
-            self._ohm[key] = float(value)
-            self._order[key] = self._added
-            self._added += 1
-        while len(self._ohm) > self.capacity:
-            oldest = next(iter(self._ohm))
-            del self._ohm[oldest], self._order[oldest]
+            for key, value in zip(keys, values, strict=True):
+                self._entries.pop(key, None)  # re-recorded: it moves to the newest end
+                self._entries[key] = (float(value), self._added)
+                self._added += 1
+            while len(self._entries) > self.capacity:
+                del self._entries[next(iter(self._entries))]
 
     def mark(self) -> int:
         """A position: ``since(mark)`` gives what was recorded after it."""
@@ -65,15 +60,14 @@ class WindowMemo:
 
     def since(self, mark: int) -> dict[bytes, float]:
         with self._lock:
-            return {key: self._ohm[key] for key, added in self._order.items() if added >= mark}
+            return {key: ohm for key, (ohm, added) in self._entries.items() if added >= mark}
 
     def merge(self, entries: dict[bytes, float]) -> None:
         self.record(entries.keys(), entries.values())
 
     def clear(self) -> None:
         with self._lock:
-            self._ohm.clear()
-            self._order.clear()
+            self._entries.clear()
 
 
 def memo_keys(key_rows: np.ndarray, grid: float | None) -> list[bytes]:
