@@ -19,8 +19,6 @@ solved is taken from window_memo.py.
 
 from __future__ import annotations
 
-import os
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -33,6 +31,7 @@ from latchwatch.analyzers.extraction.extract import SUBSTRATE, Pieces, is_pwell_
 from latchwatch.analyzers.extraction.nets import pad_connected
 from latchwatch.analyzers.extraction.tapdistance import TapIndex
 from latchwatch.analyzers.layout import geometry as g
+from latchwatch.analyzers.parallel import side_by_side
 
 SUBSTRATE_MARGIN = 5.0  # layout units (um) of substrate sheet beyond the layout's extent
 WHOLE_BODY_CELLS = 6000  # grid cells up to which a body is solved whole
@@ -77,18 +76,16 @@ PARALLEL_DEVICES = 20_000  # devices of both kinds from which the two kinds are 
 
 
 def _both_kinds(ctx, prune: bool) -> dict[str, KindShunt]:
-    """The estimates of both kinds; on a large layout in two threads, since most of the
-    time is spent in GEOS, numpy and SuperLU, which release the interpreter lock (at 1M
-    shapes on 2 cores: 2.0 s serial, 1.4 s in two threads). The two kinds share nothing
-    they write but the window memo, which takes a lock."""
+    """The estimates of both kinds; on a large layout in two threads (analyzers/parallel.py;
+    at 1M shapes on 2 cores: 2.0 s serial, 1.4 s in two threads). The two kinds share
+    nothing they write but the window memo, which takes a lock."""
     ex = ctx.extraction
-    cpus = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
-    if len(ex.pdiff) + len(ex.ndiff) < PARALLEL_DEVICES or cpus < 2:
-        return {k: _estimate_kind(ctx, k, prune) for k in ("p", "n")}
-    pad_connected(ctx)  # a shared memo entry: computed once, before the threads read it
-    with ThreadPoolExecutor(2, thread_name_prefix="latchwatch-shunt") as pool:
-        futures = {k: pool.submit(_estimate_kind, ctx, k, prune) for k in ("p", "n")}
-        return {k: future.result() for k, future in futures.items()}
+    large = len(ex.pdiff) + len(ex.ndiff) >= PARALLEL_DEVICES
+    if large:
+        pad_connected(ctx)  # a shared memo entry: computed once, before the threads read it
+    p, n = side_by_side(lambda: _estimate_kind(ctx, "p", prune), lambda: _estimate_kind(ctx, "n", prune),
+                        large=large, name="latchwatch-shunt")
+    return {"p": p, "n": n}
 
 
 def _estimate_kind(ctx, kind: str, prune: bool) -> KindShunt:

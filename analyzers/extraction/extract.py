@@ -22,6 +22,7 @@ then separates them from the substrate).
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -30,6 +31,7 @@ import shapely
 from latchwatch.analyzers.extraction.layers import layer_shapes
 from latchwatch.analyzers.layout import geometry as g
 from latchwatch.analyzers.layout.flatten import FlatLayout
+from latchwatch.analyzers.parallel import side_by_side
 from latchwatch.analyzers.technology.model import Technology
 
 SUBSTRATE = -1  # body id of the p-substrate; n-wells are 0..n_wells-1
@@ -195,35 +197,50 @@ def _split_by_wells(pieces: Pieces, wells: np.ndarray) -> tuple[Pieces, Pieces]:
     )
 
 
+PARALLEL_SHAPES = 50_000  # flat shapes from which the N+ and P+ sides are extracted side by side
+
+
 def extract(flat: FlatLayout, tech: Technology) -> Extraction:
     """Turn a flattened layout's shapes into wells, device diffusions and taps with their bodies."""
     wells, well_shapes = _merge_wells(flat, tech)
-    n_active_in, n_active_out = _split_by_wells(_implanted(flat, tech, "active", "nplus"), wells)
-    p_active_in, p_active_out = _split_by_wells(_implanted(flat, tech, "active", "pplus"), wells)
-    if tech.has_layer("tap"):
-        n_tap_in, _ = _split_by_wells(_implanted(flat, tech, "tap", "nplus"), wells)
-        _, p_tap_out = _split_by_wells(_implanted(flat, tech, "tap", "pplus"), wells)
-        ntap, ptap = n_tap_in, p_tap_out
-    else:
-        ntap, ptap = n_active_in, p_active_out
-    pdiff, ndiff = p_active_in, n_active_out
     deep, deep_shapes = _merge_wells(flat, tech, "deep_nwell")
     pwells, pwell_shapes = _isolated_pwells(flat, tech, deep, deep_shapes, wells)
-    ndiff, ptap = _split_by_pwells(ndiff, pwells), _split_by_pwells(ptap, pwells)
-    pdiff, ndiff, ntap, ptap = merged(pdiff), merged(ndiff), merged(ntap), merged(ptap)
-
     contacts, _ = layer_shapes(flat, tech, "contact")
     poly, _ = layer_shapes(flat, tech, "poly")
+    # Derived layers both sides read are evaluated (and cached on ``flat``) before they start.
+    for role in ("active", "tap", "nplus", "pplus"):
+        layer_shapes(flat, tech, role)
+    sides = {implant: functools.partial(_implant_side, flat, tech, implant, wells, pwells, contacts, poly)
+             for implant in ("nplus", "pplus")}
+    (ntap, ndiff, ntap_contacted, ndiff_gated), (ptap, pdiff, ptap_contacted, pdiff_gated) = side_by_side(
+        sides["nplus"], sides["pplus"], large=len(flat.polygons) >= PARALLEL_SHAPES, name="latchwatch-extract")
     return Extraction(
         flat=flat, wells=wells, well_shapes=well_shapes,
         pdiff=pdiff, ndiff=ndiff, ntap=ntap, ptap=ptap,
-        ntap_contacted=g.area_overlap_any(ntap.geoms, contacts),
-        ptap_contacted=g.area_overlap_any(ptap.geoms, contacts),
-        pdiff_gated=g.area_overlap_any(pdiff.geoms, poly),
-        ndiff_gated=g.area_overlap_any(ndiff.geoms, poly),
+        ntap_contacted=ntap_contacted, ptap_contacted=ptap_contacted,
+        pdiff_gated=pdiff_gated, ndiff_gated=ndiff_gated,
         contacts=contacts, deep_nwells=deep, deep_nwell_shapes=deep_shapes,
         pwells=pwells, pwell_shapes=pwell_shapes,
     )
+
+
+def _implant_side(flat, tech, implant: str, wells, pwells, contacts, poly):
+    """(taps, device diffusions, taps contacted, devices gated) of one implant: for N+ the
+    n-taps inside the n-wells and the N+ devices outside them (out of the substrate where
+    an isolated p-well holds them); for P+ the p-taps outside and the P+ devices inside."""
+    inside, outside = _split_by_wells(_implanted(flat, tech, "active", implant), wells)
+    if tech.has_layer("tap"):
+        tap_inside, tap_outside = _split_by_wells(_implanted(flat, tech, "tap", implant), wells)
+        taps = tap_inside if implant == "nplus" else tap_outside
+    else:
+        taps = inside if implant == "nplus" else outside
+    devices = outside if implant == "nplus" else inside
+    if implant == "nplus":
+        devices = _split_by_pwells(devices, pwells)
+    else:
+        taps = _split_by_pwells(taps, pwells)
+    taps, devices = merged(taps), merged(devices)
+    return taps, devices, g.area_overlap_any(taps.geoms, contacts), g.area_overlap_any(devices.geoms, poly)
 
 
 def spacing_to_opposite_well(ex: Extraction, kind: str, within: float) -> np.ndarray:

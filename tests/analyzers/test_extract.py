@@ -69,3 +69,44 @@ def test_separate_tap_layer():
     ex = _extract(c, tech)
     assert len(ex.ntap) == 1 and ex.ntap.geoms[0].bounds[0] == 1
     assert len(ex.ptap) == 0
+
+
+def _same_pieces(a, b):
+    assert len(a) == len(b)
+    assert a.shape.tolist() == b.shape.tolist() and a.body.tolist() == b.body.tolist()
+    assert all(x.equals_exact(y, 0.0) for x, y in zip(a.geoms, b.geoms, strict=True))
+
+
+@pytest.mark.parametrize("tap_layer", [False, True])
+def test_both_implants_side_by_side_give_what_one_after_the_other_gives(demo, monkeypatch, tap_layer):
+    import threading
+
+    from latchwatch.analyzers import parallel
+    from latchwatch.analyzers.extraction import extract as extract_module
+
+    tech = demo
+    c = CellBuilder("T").rect(NWELL, 0, 0, 10, 10).rect((14, 0), -30, -30, 40, 40)
+    if tap_layer:
+        data = demo.to_mapping()
+        data["layers"]["tap"] = [13, 0]
+        data["layers"]["deep_nwell"] = [14, 0]
+        tech = technology_from_mapping(data, "test")
+        c.rect((13, 0), 1, 1, 3, 3).rect(NPLUS, 1, 1, 3, 3).rect((13, 0), 20, 1, 22, 3).rect(PPLUS, 20, 1, 22, 3)
+    for x in (1, 5):  # N+ and P+ on active inside the well and outside it, two abutting pieces each
+        for y0, implant in ((5, PPLUS), (0.5, NPLUS), (12, NPLUS), (-6, PPLUS)):
+            c.rect(ACTIVE, x, y0, x + 4, y0 + 2).rect(implant, x, y0, x + 4, y0 + 2)
+    c.rect(POLY, 2, -8, 2.5, 20).rect(CONTACT, 6, 5.5, 6.5, 6)
+    serial = _extract(c, tech)
+    monkeypatch.setattr(extract_module, "PARALLEL_SHAPES", 0)
+    monkeypatch.setattr(parallel, "usable_cpus", lambda: 2)
+    threads = set()
+    real = extract_module._implant_side
+    monkeypatch.setattr(extract_module, "_implant_side",
+                        lambda *a: threads.add(threading.current_thread().name) or real(*a))
+    threaded = _extract(c, tech)
+    assert len(threads) == 2 and all(name.startswith("latchwatch-extract") for name in threads)
+    for kind in ("ntap", "ptap", "pdiff", "ndiff"):
+        _same_pieces(getattr(serial, kind), getattr(threaded, kind))
+    for flags in ("ntap_contacted", "ptap_contacted", "pdiff_gated", "ndiff_gated"):
+        assert getattr(serial, flags).tolist() == getattr(threaded, flags).tolist()
+    assert len(serial.pdiff) and len(serial.ndiff) and len(serial.ptap) and len(serial.ntap)

@@ -10,6 +10,7 @@ import threading
 import numpy as np
 import pytest
 
+from latchwatch.analyzers import parallel
 from latchwatch.analyzers.context import CheckContext, CheckOptions
 from latchwatch.analyzers.electrical import shunt
 from latchwatch.analyzers.electrical.mobility import sheet_resistance
@@ -204,7 +205,7 @@ def test_both_kinds_side_by_side_give_what_one_after_the_other_gives(demo, monke
     SOLVED_WINDOWS.clear()
     serial = shunt_estimates(row_context(demo), exact=True)
     monkeypatch.setattr(shunt, "PARALLEL_DEVICES", 0)
-    monkeypatch.setattr(shunt.os, "sched_getaffinity", lambda pid: {0, 1}, raising=False)
+    monkeypatch.setattr(parallel, "usable_cpus", lambda: 2)
     SOLVED_WINDOWS.clear()
     threads = []
     real = shunt._estimate_kind
