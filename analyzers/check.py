@@ -13,6 +13,7 @@ from latchwatch.analyzers.layout.budget import LayoutTooLarge, check_budget
 from latchwatch.analyzers.layout.flatten import MAX_DEPTH, HierarchyError, flatten
 from latchwatch.analyzers.layout.tops import CheckedTop, choose_tops, option_top
 from latchwatch.analyzers.model.captured import METADATA_CELLS
+from latchwatch.analyzers.model.errors import TopCellError
 from latchwatch.analyzers.model.findings import Device, Finding, Severity
 from latchwatch.analyzers.model.run_outcome import ScriptFailure
 from latchwatch.analyzers.rules import RULES, Rule, Scope
@@ -22,10 +23,6 @@ if TYPE_CHECKING:
 from latchwatch.analyzers.technology.model import Technology
 
 DEFAULT_OPTIONS = CheckOptions()
-
-
-class TopCellError(ValueError):
-    """--top names a cell the layout does not have."""
 
 
 INCOMPLETE = ("latchwatch could not complete this check{where}: {error} (at {place}). This is a fault in "

@@ -17,12 +17,9 @@ import shapely
 from latchwatch.analyzers.layout.budget import LayoutBudget, check_budget
 from latchwatch.analyzers.layout.geometry import axis_aligned_rectangles
 from latchwatch.analyzers.model.captured import CapturedLayout
+from latchwatch.analyzers.model.errors import HierarchyError
 
 MAX_DEPTH = 64
-
-
-class HierarchyError(ValueError):
-    """The reference graph has a cycle or is deeper than MAX_DEPTH."""
 
 
 @dataclass
@@ -295,13 +292,3 @@ def flatten(captured: CapturedLayout, top: int, budget: LayoutBudget = DEFAULT_B
         label_text=cat(lt, object), label_layer=cat(ll, np.int32), label_texttype=cat(ltt, np.int32),
         label_xy=cat(lxy, float, (0, 2)), label_stack=cat(lst, np.int32), label_instance=cat(lin, np.int32),
     )
-
-
-def placement_chain(flat: FlatLayout, instance: int) -> list[tuple[int, int]]:
-    """(instance, parent cell) pairs from the top cell down to ``instance``."""
-    chain = []
-    inst = flat.instances
-    while instance >= 0 and inst.parent[instance] >= 0:
-        chain.append((instance, int(inst.cell[inst.parent[instance]])))
-        instance = int(inst.parent[instance])
-    return chain[::-1]

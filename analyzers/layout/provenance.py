@@ -13,11 +13,14 @@ from __future__ import annotations
 import os
 import sysconfig
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from latchwatch.analyzers.layout.flatten import FlatLayout, placement_chain
 from latchwatch.analyzers.model.findings import Frame, Placement
+
+if TYPE_CHECKING:  # the flattened layout's module brings shapely and scipy: not needed to name user files
+    from latchwatch.analyzers.layout.flatten import FlatLayout
 
 _LIBRARY_DIRS = tuple(
     os.path.normcase(os.path.realpath(p)) + os.sep
@@ -185,3 +188,13 @@ class Provenance:
             "end_column": frame.end_column if frame else None,
             "cell": self.flat.top_name, "stack": anchor.stack, "placements": placements,
         }
+
+
+def placement_chain(flat: FlatLayout, instance: int) -> list[tuple[int, int]]:
+    """(instance, parent cell) pairs from the top cell down to ``instance``."""
+    chain = []
+    inst = flat.instances
+    while instance >= 0 and inst.parent[instance] >= 0:
+        chain.append((instance, int(inst.cell[inst.parent[instance]])))
+        instance = int(inst.parent[instance])
+    return chain[::-1]

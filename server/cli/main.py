@@ -5,22 +5,19 @@ from __future__ import annotations
 import argparse
 import difflib
 import functools
+import importlib
 import os
 import sys
 from dataclasses import replace
 from pathlib import Path
 
 from latchwatch import __version__
-from latchwatch.analyzers.check import TopCellError
-from latchwatch.analyzers.layout.flatten import HierarchyError
+from latchwatch.analyzers.model.errors import HierarchyError, TopCellError
 from latchwatch.analyzers.model.findings import Severity
-from latchwatch.analyzers.rules import RULES, RULES_BY_ID
+from latchwatch.analyzers.rules import RULE_IDS
 from latchwatch.analyzers.technology.model import TechnologyError
 from latchwatch.server.config import techfiles
 from latchwatch.server.config.project import ConfigError, expand_includes, find_project_config, is_excluded
-from latchwatch.server.report.as_json import render_json
-from latchwatch.server.report.as_sarif import render_sarif
-from latchwatch.server.report.as_text import render_text
 from latchwatch.server.report.terminal import terminal_safe
 from latchwatch.server.runs import batch as sweep
 from latchwatch.server.runs import plan
@@ -35,7 +32,9 @@ CAUTION = (
     "defer to them and to the foundry's and your organisation's qualified practice."
 )
 FAIL_LEVELS = {"error": Severity.ERROR, "warning": Severity.WARNING, "info": Severity.INFO, "never": None}
-RENDERERS = {"text": render_text, "json": render_json, "sarif": render_sarif}
+# The writer of each --format (module, function), imported when the report is written.
+RENDERERS = {"text": ("as_text", "render_text"), "json": ("as_json", "render_json"),
+             "sarif": ("as_sarif", "render_sarif")}
 
 
 class UsageError(Exception):
@@ -45,9 +44,9 @@ class UsageError(Exception):
 def _rule_list(text: str, flag: str) -> tuple[str, ...]:
     ids = tuple(r.strip() for r in text.split(",") if r.strip())
     for rule in ids:
-        if rule not in RULES_BY_ID:
-            close = difflib.get_close_matches(rule, list(RULES_BY_ID), n=1)
-            hint = f"; did you mean {close[0]!r}?" if close else f" (known: {', '.join(RULES_BY_ID)})"
+        if rule not in RULE_IDS:
+            close = difflib.get_close_matches(rule, list(RULE_IDS), n=1)
+            hint = f"; did you mean {close[0]!r}?" if close else f" (known: {', '.join(RULE_IDS)})"
             raise UsageError(f"{flag}: unknown rule {rule!r}{hint}")
     return ids
 
@@ -151,7 +150,7 @@ def _guess_root(paths) -> Path:
 
 def _check(args) -> int:
     start = args.paths[0] if args.paths else Path.cwd()
-    config = find_project_config(start if start.exists() else Path.cwd(), known_rules=set(RULES_BY_ID))
+    config = find_project_config(start if start.exists() else Path.cwd(), known_rules=set(RULE_IDS))
     settings = _settings(args, config)
     missing = [p for p in args.paths if not p.exists()]
     if missing:
@@ -173,7 +172,7 @@ def _check(args) -> int:
         settings = replace(settings, draw=capture)
     report = sweep.check_all(paths, settings, _sweeps(args, config, paths), jobs=args.jobs, corners=args.corners,
                              progress=sweep.ProgressBar(sys.stderr), unlisted=not args.paths)
-    text = RENDERERS[args.format](report)
+    text = _render(args.format, report)
     if args.output:
         args.output.write_text(text if text.endswith("\n") else text + "\n", encoding="utf-8")
     else:
@@ -205,7 +204,14 @@ def _sweeps(args, config, paths) -> list:
     return [s for s in sweeps if s not in plan.sweeps_for(paths[0], sweeps)] + [chosen]
 
 
+def _render(format_name: str, report) -> str:
+    module, function = RENDERERS[format_name]
+    return getattr(importlib.import_module(f"latchwatch.server.report.{module}"), function)(report)
+
+
 def _rules(args) -> int:
+    from latchwatch.analyzers.rules import RULES, RULES_BY_ID
+
     if args.rule:
         rule = RULES_BY_ID.get(args.rule)
         if rule is None:

@@ -18,10 +18,9 @@ from pathlib import Path
 from typing import TextIO
 
 from latchwatch.analyzers.model.findings import Device, Finding
-from latchwatch.analyzers.rules import RULES
 from latchwatch.server.report.model import Report, RunSummary, corner_label
 from latchwatch.server.report.terminal import terminal_safe
-from latchwatch.server.runs.pipeline import CheckSettings, check_run, read_text_or_none, run_path
+from latchwatch.server.runs.pipeline import CheckSettings, check_run, import_analysis, read_text_or_none, run_path
 from latchwatch.server.runs.plan import Sweep, Task, plan_script, preview_functions
 from latchwatch.server.sandbox.hosts import available_cpus
 from latchwatch.server.sandbox.runner import run_script
@@ -115,6 +114,7 @@ def execute(plan: _Plan, settings: CheckSettings, *, jobs: int | None = None, ca
             return pool.submit(run_task, task, settings, source, either, read_source)
 
         pending = {submit((i, j), task): (i, j) for i, tasks in enumerate(plan.tasks) for j, task in enumerate(tasks)}
+        import_analysis()  # here, while the first scripts run, not after them
         try:
             while pending:
                 finished, _ = wait(pending, return_when=FIRST_COMPLETED)
@@ -190,6 +190,8 @@ def check_all(paths: list[Path], settings: CheckSettings, sweeps: Iterable[Sweep
 
 def report_of(runs: list[RunResult], settings: CheckSettings) -> Report:
     """The report of finished runs, in their order (with their drawings when settings.draw was set)."""
+    from latchwatch.analyzers.rules import RULES
+
     devices = [d for r in runs for d in r.devices]
     return Report(technology=settings.tech.name, runs=tuple(r.summary for r in runs),
                   findings=tuple(f for r in runs for f in r.findings),

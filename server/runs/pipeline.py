@@ -8,14 +8,12 @@ from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from latchwatch.analyzers.check import CheckOptions, select_rules
 from latchwatch.analyzers.model.findings import Finding, Severity
 from latchwatch.analyzers.model.run_outcome import LAYOUT_SUFFIXES, RunOutcome, ScriptFailure
 from latchwatch.analyzers.technology.model import Technology
 from latchwatch.server.config.files import file_problem, read_text
 from latchwatch.server.config.limits import DEFAULT_LIMITS, Limits
 from latchwatch.server.report.model import RunSummary
-from latchwatch.server.runs.analysis import analyse
 from latchwatch.server.runs.suppression import apply_suppressions
 from latchwatch.server.sandbox.runner import read_layout_file, run_script
 
@@ -89,11 +87,20 @@ def _refusal(path: Path, limits: Limits) -> str | None:
         return None  # the run itself reports a file it cannot read
 
 
+def import_analysis() -> None:
+    """Import the analysis (the rules, and numpy, shapely and scipy behind them): a third of
+    a second that the command line spends while its first scripts run, not after them."""
+    import latchwatch.server.runs.analysis  # noqa: F401
+
+
 def check_run(outcome: RunOutcome, settings: CheckSettings, read_source=None,
               cancel=None) -> tuple[list[Finding], list, RunSummary, list] | None:
     """The findings, devices, summary and drawings (with ``settings.draw``) of one run under
     the settings (suppression comments applied), checked in an analysis process under the
     [limits] (server/runs/analysis.py). None when ``cancel`` was set during the check."""
+    from latchwatch.analyzers.check import CheckOptions, select_rules
+    from latchwatch.server.runs.analysis import analyse
+
     rules = select_rules(settings.select or None, settings.ignore, settings.disable)
     options = CheckOptions(
         project_root=str(settings.project_root) if settings.project_root else None,

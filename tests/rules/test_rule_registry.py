@@ -5,7 +5,7 @@ import pkgutil
 
 import latchwatch.analyzers.rules as rules_pkg
 from latchwatch.analyzers.model.findings import Severity
-from latchwatch.analyzers.rules import RULES, RULES_BY_ID
+from latchwatch.analyzers.rules import RULE_IDS, RULE_MODULES, RULES, RULES_BY_ID
 
 # docs/rules.md catalogue: id -> default severity (rules of later work are added as they land).
 CATALOGUE = {
@@ -26,6 +26,22 @@ def test_every_rule_module_is_registered():
     for name in modules:
         module = importlib.import_module(f"latchwatch.analyzers.rules.{name}")
         assert module.RULE in RULES
+
+
+def test_each_id_is_its_module_name_so_the_ids_are_known_before_any_rule_is_imported():
+    assert [rule.id for rule in RULES] == list(RULE_IDS)
+    assert [rule.check.__module__.rsplit(".", 1)[1] for rule in RULES] == list(RULE_MODULES)
+
+
+def test_naming_the_rules_imports_none_of_them():
+    import subprocess
+    import sys
+
+    probe = ("import sys; from latchwatch.analyzers.rules import RULE_IDS; "
+             "print(sorted(m for m in sys.modules if m.startswith('latchwatch.analyzers.rules.')), "
+             "'shapely' in sys.modules, len(RULE_IDS))")
+    out = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, check=True).stdout.split()
+    assert out == ["['latchwatch.analyzers.rules.base']", "False", str(len(RULE_MODULES))]
 
 
 def test_rules_match_the_catalogue_and_are_documented():
