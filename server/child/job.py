@@ -24,6 +24,7 @@ import os
 import sys
 
 from . import backends, naming
+from .collector import pace_for_layouts
 from .stacks import STACK_DEPTH, StackTables, traceback_frames
 from .wire_format import failure_header, write_payload
 
@@ -132,6 +133,7 @@ def run(options):
     if IMPORT_ERROR is not None:
         return failure_header("error", "ImportError", IMPORT_ERROR), []
     control = Control(options.control_fd)
+    pace_for_layouts()
     if options.layout is not None:
         return read_layout_file(options, control)
     script = options.script

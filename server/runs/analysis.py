@@ -21,6 +21,7 @@ Where there is no fork, every check runs in process.
 
 from __future__ import annotations
 
+import gc
 import os
 import pickle
 import resource
@@ -38,6 +39,7 @@ from latchwatch.analyzers.layout.budget import placements
 from latchwatch.analyzers.layout.flatten import MAX_DEPTH, HierarchyError
 from latchwatch.analyzers.model.run_outcome import RunOutcome, ScriptFailure
 from latchwatch.analyzers.technology.model import Technology
+from latchwatch.server.child.collector import pace_for_layouts
 from latchwatch.server.config.limits import Limits
 
 _POLL = 0.05  # s between checks of the cancel event and the deadline
@@ -170,6 +172,10 @@ def _child(write_fd: int, memory: int, check) -> None:  # pragma: no cover - run
         if hard != resource.RLIM_INFINITY:
             cap = min(cap, hard)  # an unprivileged process cannot raise its hard limit
         resource.setrlimit(resource.RLIMIT_AS, (cap, cap))
+        # What the parent holds is never garbage here: left out of every collection (and
+        # so never written to, which keeps its pages shared); new objects at a layout's pace.
+        gc.freeze()
+        pace_for_layouts()
         try:
             answer = ("ok", check())
         except MemoryError as error:

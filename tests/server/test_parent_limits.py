@@ -233,6 +233,18 @@ def test_a_forked_analysis_gives_what_the_in_process_one_gives():
     assert forked.findings == direct.findings and forked.devices == direct.devices and forked.shapes == direct.shapes
 
 
+def test_a_forked_analysis_collects_garbage_at_the_layout_pace_and_this_process_keeps_its_own():
+    import gc
+
+    from latchwatch.server.child.collector import THRESHOLDS
+
+    ours = gc.get_threshold()
+    big, small = _row(analysis.SMALL_SHAPES), _row(3)
+    seen = [analysis.analyse(run, TECH, CheckOptions(), Limits(), rules=RULES, severity={}, want_devices=False,
+                             on_top=lambda ctx, found: gc.get_threshold()).per_top for run in (big, small)]
+    assert seen == [[THRESHOLDS], [ours]] and gc.get_threshold() == ours
+
+
 def test_windows_a_forked_analysis_solved_come_back_and_the_next_check_reuses_them(monkeypatch):
     # The memo of solved windows lives in this process; a fork's new entries are sent back
     # with its result, so the next fork starts with them and gives the same answer.

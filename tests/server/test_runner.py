@@ -54,6 +54,29 @@ def test_ok_run_reports_layout_output_and_sandbox(tmp_path):
     assert {"cpu", "memory"} <= set(outcome.sandbox["limits"])
 
 
+def test_a_script_runs_with_the_collector_at_the_layout_pace_and_still_collects_cycles(tmp_path):
+    from latchwatch.server.child.collector import THRESHOLDS
+
+    path = _script(tmp_path, """\
+        import gc, weakref
+        import gdstk
+        print(gc.get_threshold())
+
+        class Node:
+            pass
+
+        node = Node()
+        node.itself = node  # a cycle: only the collector frees it
+        gone = weakref.ref(node)
+        del node
+        gc.collect()
+        print(gone() is None)
+        gdstk.Cell("TOP").add(gdstk.rectangle((0, 0), (1, 1)))
+        """)
+    outcome = run_script(path)
+    assert outcome.status == "ok" and outcome.output.splitlines() == [str(THRESHOLDS), "True"]
+
+
 def test_unsaved_source_runs_under_the_files_name(tmp_path):
     path = _script(tmp_path, "raise SystemExit('the file on disk must not run')\n")
     buffer = "import gdstk\n\ncell = gdstk.Cell('BUF')\ncell.add(gdstk.rectangle((0, 0), (1, 1)))\n"
