@@ -99,10 +99,10 @@ def test_both_implants_side_by_side_give_what_one_after_the_other_gives(demo, mo
     serial = _extract(c, tech)
     monkeypatch.setattr(extract_module, "PARALLEL_SHAPES", 0)
     monkeypatch.setattr(parallel, "usable_cpus", lambda: 2)
-    threads = set()
+    threads = []
     real = extract_module._implant_side
     monkeypatch.setattr(extract_module, "_implant_side",
-                        lambda *a: threads.add(threading.current_thread().name) or real(*a))
+                        lambda *a: threads.append(threading.current_thread().name) or real(*a))
     threaded = _extract(c, tech)
     assert len(threads) == 2 and all(name.startswith("latchwatch-extract") for name in threads)
     for kind in ("ntap", "ptap", "pdiff", "ndiff"):
