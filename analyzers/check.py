@@ -93,7 +93,7 @@ def check_outcome(outcome: RunOutcome, tech: Technology, options: CheckOptions =
     per_top = []
     for top in tops:
         flat = flatten(layout, top.cell, options.budget)
-        shapes += len(flat.polygons)
+        shapes += flat.shape_count
         ctx = CheckContext(outcome, tech, options, flat)
         found = [f for rule in layout_rules for f in _checked(rule, ctx, top.name)]
         findings.extend(found)

@@ -195,7 +195,7 @@ def _sheet_of(elec, kind: str, body: int) -> float:
 
 def substrate_box(ex) -> tuple[float, float, float, float]:
     """The substrate region: the layout's extent grown by SUBSTRATE_MARGIN on every side."""
-    x0, y0, x1, y1 = shapely.total_bounds(ex.flat.polygons)
+    x0, y0, x1, y1 = ex.flat.extent()
     m = SUBSTRATE_MARGIN
     return (float(x0 - m), float(y0 - m), float(x1 + m), float(y1 + m))
 

@@ -213,7 +213,7 @@ def extract(flat: FlatLayout, tech: Technology) -> Extraction:
     sides = {implant: functools.partial(_implant_side, flat, tech, implant, wells, pwells, contacts, poly)
              for implant in ("nplus", "pplus")}
     (ntap, ndiff, ntap_contacted, ndiff_gated), (ptap, pdiff, ptap_contacted, pdiff_gated) = side_by_side(
-        sides["nplus"], sides["pplus"], large=len(flat.polygons) >= PARALLEL_SHAPES, name="latchwatch-extract")
+        sides["nplus"], sides["pplus"], large=flat.shape_count >= PARALLEL_SHAPES, name="latchwatch-extract")
     return Extraction(
         flat=flat, wells=wells, well_shapes=well_shapes,
         pdiff=pdiff, ndiff=ndiff, ntap=ntap, ptap=ptap,

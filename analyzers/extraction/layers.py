@@ -39,7 +39,7 @@ def layer_shapes(flat: FlatLayout, tech: Technology, role: str) -> Shapes:
 
 def _drawn(flat: FlatLayout, pair: tuple[int, int]) -> Shapes:
     idx = flat.on_layer(pair)
-    return flat.polygons[idx], idx
+    return flat.polygons_at(idx), idx
 
 
 def _evaluate(flat: FlatLayout, tech: Technology, expr: d.Expr) -> Shapes:

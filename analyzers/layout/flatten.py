@@ -15,7 +15,7 @@ import numpy as np
 import shapely
 
 from latchwatch.analyzers.layout.budget import LayoutBudget, check_budget
-from latchwatch.analyzers.layout.geometry import axis_aligned_rectangles
+from latchwatch.analyzers.layout.polygons import LazyPolygons, non_finite_rings, rectangle_rings
 from latchwatch.analyzers.model.captured import CapturedLayout
 from latchwatch.analyzers.model.errors import HierarchyError
 
@@ -44,7 +44,8 @@ class FlatLayout:
     captured: CapturedLayout
     top: int
     instances: Instances
-    polygons: np.ndarray  # shapely Polygons in top-cell coordinates
+    shapes: LazyPolygons  # the polygons in top-cell coordinates, built on first use (layout/polygons.py)
+    rectangles: np.ndarray  # bool per shape: its ring is an axis-aligned rectangle
     layer: np.ndarray  # int32
     datatype: np.ndarray  # int32
     stack: np.ndarray  # int32, stack id of the source polygon
@@ -61,6 +62,23 @@ class FlatLayout:
     invalid_area: np.ndarray  # (k, 2): area as drawn (signed rings summed) and after the repair
     # Shapes computed from these once per layout, such as derived layers (extraction/layers.py).
     cache: dict = field(default_factory=dict, repr=False, compare=False)
+
+    @property
+    def polygons(self) -> np.ndarray:
+        """Every shape's shapely polygon (all of them built: ask ``polygons_at`` for some)."""
+        return self.shapes.every()
+
+    def polygons_at(self, idx: np.ndarray) -> np.ndarray:
+        """The shapely polygons of shapes ``idx``."""
+        return self.shapes.at(idx)
+
+    @property
+    def shape_count(self) -> int:
+        return len(self.layer)
+
+    def extent(self) -> np.ndarray:
+        """(xmin, ymin, xmax, ymax) of every non-empty shape (nan without one)."""
+        return self.shapes.extent(self.rectangles)
 
     @property
     def top_name(self) -> str:
@@ -161,39 +179,6 @@ def _transform_points(points, matrix, offset, grid):
     return np.round(moved / grid) * grid if grid > 0 else moved
 
 
-def _polygons_from_rings(coords, offsets):
-    """Shapely polygons from concatenated ring vertices, in one ragged-array call (five
-    times faster than shapely.polygons on a million rectangles). Rings are closed here,
-    so no shapely version has to; fewer than three vertices give an empty polygon,
-    which repair() reports."""
-    counts = np.diff(offsets)
-    out = np.empty(len(counts), dtype=object)
-    degenerate = counts < 3
-    if degenerate.any():
-        out[degenerate] = [shapely.Polygon()] * int(degenerate.sum())
-    keep = np.flatnonzero(~degenerate)
-    if len(keep) == 0:
-        return out
-    closed = counts[keep] + 1
-    ring_offsets = np.zeros(len(keep) + 1, np.int64)
-    np.cumsum(closed, out=ring_offsets[1:])
-    within = np.arange(ring_offsets[-1]) - np.repeat(ring_offsets[:-1], closed)
-    within[ring_offsets[1:] - 1] = 0  # each ring ends on its first vertex
-    vertices = coords[np.repeat(offsets[:-1][keep], closed) + within]
-    out[keep] = shapely.from_ragged_array(shapely.GeometryType.POLYGON, vertices,
-                                          (ring_offsets, np.arange(len(keep) + 1)))
-    return out
-
-
-def _non_finite_rings(coords, offsets):
-    """Boolean per ring: a NaN or infinite vertex (one check of the whole array when none)."""
-    finite = np.isfinite(coords).all(axis=1)
-    if finite.all():
-        return np.zeros(len(offsets) - 1, dtype=bool)
-    bad_vertex = np.concatenate([[0], np.cumsum(~finite)])
-    return bad_vertex[offsets[1:]] > bad_vertex[offsets[:-1]]
-
-
 def repair(polygons: np.ndarray, non_finite: np.ndarray | None = None):
     """Make invalid polygons valid, keeping only their polygonal parts; returns
     (broken indices, GEOS's reason for each, their (drawn, repaired) areas, the polygons).
@@ -205,16 +190,13 @@ def repair(polygons: np.ndarray, non_finite: np.ndarray | None = None):
     a change of representation and is not counted as broken. A bow tie or a
     doubly-wound outline changes area under repair; a degenerate polygon (zero area)
     becomes an empty geometry that no query hits, and so does one marked in
-    ``non_finite`` (NaN or infinite coordinates), which GEOS cannot repair."""
-    broken = np.zeros(len(polygons), dtype=bool) if non_finite is None else non_finite
-    # Rectangles are valid by construction; GEOS validity is costly, so test the rest only.
-    others = np.flatnonzero(~axis_aligned_rectangles(polygons) | broken)
-    sub = polygons[others]
-    non_finite = broken[others]
+    ``non_finite`` (NaN or infinite coordinates), which GEOS cannot repair. Rectangles are
+    valid by construction and GEOS validity is costly: flatten passes only the others."""
+    non_finite = np.zeros(len(polygons), dtype=bool) if non_finite is None else non_finite
     flawed = non_finite.copy()
-    finite = sub[~non_finite]
+    finite = polygons[~non_finite]
     flawed[~non_finite] = ~shapely.is_valid(finite) | (shapely.area(finite) <= 0)
-    invalid = others[flawed]
+    invalid = np.flatnonzero(flawed)
     if len(invalid) == 0:
         return invalid, np.empty(0, dtype=object), np.zeros((0, 2)), polygons
     unusable = non_finite[flawed]
@@ -254,18 +236,14 @@ def flatten(captured: CapturedLayout, top: int, budget: LayoutBudget = DEFAULT_B
     grid = captured.precision / captured.unit
     order = np.argsort(inst.cell, kind="stable")
     groups = np.split(order, np.flatnonzero(np.diff(inst.cell[order])) + 1) if len(order) else []
-    polys, layers, dts, stacks, owners, sources, non_finite = [], [], [], [], [], [], []
+    coords, counts, layers, dts, stacks, owners, sources = [], [], [], [], [], [], []
     lt, ll, ltt, lxy, lst, lin = [], [], [], [], [], []
     for members in groups:
         cell = captured.cells[inst.cell[members[0]]]
         k = len(members)
         if cell.polygon_count:
-            pts = _transform_points(cell.points, inst.matrix[members], inst.offset[members], grid)
-            counts = np.diff(cell.poly_offsets)
-            all_offsets = np.concatenate([[0], np.cumsum(np.tile(counts, k))])
-            non_finite.append(_non_finite_rings(pts.reshape(-1, 2), all_offsets))
-            with np.errstate(invalid="ignore" if non_finite[-1].any() else "warn"):  # repair() reports them
-                polys.append(_polygons_from_rings(pts.reshape(-1, 2), all_offsets))
+            coords.append(_transform_points(cell.points, inst.matrix[members], inst.offset[members], grid).reshape(-1, 2))
+            counts.append(np.tile(np.diff(cell.poly_offsets), k))
             layers.append(np.tile(cell.poly_layer, k))
             dts.append(np.tile(cell.poly_datatype, k))
             stacks.append(np.tile(cell.poly_stack, k))
@@ -283,11 +261,19 @@ def flatten(captured: CapturedLayout, top: int, budget: LayoutBudget = DEFAULT_B
     def cat(parts, dtype, shape=(0,)):
         return np.concatenate(parts) if parts else np.zeros(shape, dtype=dtype)
 
-    polygons = cat(polys, object)
-    invalid, reasons, areas, polygons = repair(polygons, cat(non_finite, bool))
+    vertices = cat(coords, float, (0, 2))
+    offsets = np.zeros(sum(len(c) for c in counts) + 1, np.int64)
+    np.cumsum(cat(counts, np.int64), out=offsets[1:])
+    shapes = LazyPolygons(vertices, offsets)
+    rectangles = rectangle_rings(vertices, offsets)
+    non_finite = non_finite_rings(vertices, offsets)
+    # Only shapes that are no rectangle (or have a NaN) are built now, to be tested and repaired.
+    tested = np.flatnonzero(~rectangles | non_finite)
+    invalid, reasons, areas, repaired = repair(shapes.at(tested), non_finite[tested])
+    shapes.replace(tested, repaired)
     return FlatLayout(
-        captured=captured, top=top, instances=inst, invalid=invalid, invalid_reason=reasons, invalid_area=areas,
-        polygons=polygons, layer=cat(layers, np.int32), datatype=cat(dts, np.int32),
+        captured=captured, top=top, instances=inst, invalid=tested[invalid], invalid_reason=reasons,
+        invalid_area=areas, shapes=shapes, rectangles=rectangles, layer=cat(layers, np.int32), datatype=cat(dts, np.int32),
         stack=cat(stacks, np.int32), instance=cat(owners, np.int32), source_polygon=cat(sources, np.int64),
         label_text=cat(lt, object), label_layer=cat(ll, np.int32), label_texttype=cat(ltt, np.int32),
         label_xy=cat(lxy, float, (0, 2)), label_stack=cat(lst, np.int32), label_instance=cat(lin, np.int32),

@@ -33,7 +33,7 @@ def check(ctx):
 def _bounds(flat, shape):
     import shapely
 
-    b = shapely.bounds(flat.polygons[shape])
+    b = shapely.bounds(flat.polygons_at(shape))
     return None if np.isnan(b).any() else b
 
 

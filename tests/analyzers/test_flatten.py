@@ -7,7 +7,7 @@ import shapely
 
 from latchwatch.analyzers.layout.flatten import HierarchyError, flatten
 
-from builders import ACTIVE, CellBuilder, layout
+from builders import ACTIVE, NWELL, CellBuilder, layout
 
 CASES = [
     dict(origin=(10, 5)),
@@ -85,14 +85,15 @@ def test_invalid_polygon_is_repaired_and_recorded():
 def test_polygons_from_rings_match_shapely_polygons_one_by_one():
     """The ragged-array build against shapely.polygons (the reference library) on rings
     of 1 to 9 vertices, non-convex ones and a NaN vertex included."""
-    from latchwatch.analyzers.layout.flatten import _polygons_from_rings
+    from latchwatch.analyzers.layout.polygons import polygons_from_rings
 
     rng = np.random.default_rng(3)
     counts = rng.integers(1, 10, 400)
     coords = rng.uniform(-50, 50, (int(counts.sum()), 2))
     coords[7] = np.nan
     offsets = np.concatenate([[0], np.cumsum(counts)])
-    built = _polygons_from_rings(coords, offsets)
+    with np.errstate(invalid="ignore"):  # the NaN vertex
+        built = polygons_from_rings(coords, offsets[:-1], np.diff(offsets))
     for i, count in enumerate(counts):
         ring = coords[offsets[i]:offsets[i + 1]]
         if count < 3:
@@ -102,6 +103,47 @@ def test_polygons_from_rings_match_shapely_polygons_one_by_one():
                 reference = shapely.polygons(ring)
             assert np.array_equal(shapely.get_coordinates(built[i]), shapely.get_coordinates(reference),
                                   equal_nan=True), i
+
+
+def test_rectangles_told_from_their_vertices_are_the_ones_shapely_finds():
+    """rectangle_rings against geometry.axis_aligned_rectangles (shapely's bounds, area and
+    vertex count) on rectangles, rotated and degenerate ones, triangles and bow ties."""
+    from latchwatch.analyzers.layout.geometry import axis_aligned_rectangles
+    from latchwatch.analyzers.layout.polygons import polygons_from_rings, rectangle_rings
+
+    rng = np.random.default_rng(5)
+    rings = []
+    for _ in range(300):
+        x0, y0 = rng.integers(-20, 20, 2).astype(float)
+        w, h = rng.integers(0, 4, 2).astype(float)
+        corners = [(x0, y0), (x0 + w, y0), (x0 + w, y0 + h), (x0, y0 + h)]
+        pick = rng.integers(0, 5)
+        if pick == 0:
+            corners = corners[::-1]  # clockwise
+        elif pick == 1:
+            corners = corners[2:] + corners[:2]  # starting elsewhere
+        elif pick == 2:
+            corners = [corners[0], corners[2], corners[1], corners[3]]  # a bow tie
+        elif pick == 3:
+            corners = corners[:3]  # a triangle
+        rings.append(np.array(corners, float))
+    rings.append(np.array([(0, 0), (2, 0.5), (2, 1.5), (0, 1)]))  # a parallelogram, not axis-aligned
+    counts = np.array([len(r) for r in rings])
+    offsets = np.concatenate([[0], np.cumsum(counts)])
+    coords = np.concatenate(rings)
+    reference = axis_aligned_rectangles(polygons_from_rings(coords, offsets[:-1], counts))
+    assert rectangle_rings(coords, offsets).tolist() == reference.tolist()
+    assert 50 < reference.sum() < 250  # both kinds are there
+
+
+def test_only_the_layers_asked_for_are_built():
+    c = CellBuilder("TOP").rect(ACTIVE, 0, 0, 2, 1).rect(NWELL, 0, 0, 5, 5).polygon(ACTIVE, [(0, 0), (3, 0), (0, 3)])
+    flat = flatten(layout(c), top=0)
+    assert flat.shapes._missing.tolist() == [True, True, False]  # the triangle was built to be tested
+    assert flat.polygons_at(flat.on_layer(ACTIVE))[0].bounds == (0.0, 0.0, 2.0, 1.0)
+    assert flat.shapes._missing.tolist() == [False, True, False]
+    assert flat.extent().tolist() == [0.0, 0.0, 5.0, 5.0] and flat.shapes._missing.tolist() == [False, True, False]
+    assert flat.polygons[1].bounds == (0.0, 0.0, 5.0, 5.0) and not flat.shapes._missing.any()
 
 
 # A ring as gdstk.boolean(rectangle((0, 0), (10, 10)), rectangle((2, 2), (8, 8)), "not") writes it:

@@ -1,0 +1,126 @@
+"""A flattened layout's polygons, kept as ring vertices and made into shapely polygons
+only when asked for, a layer at a time.
+
+Making a shapely polygon costs about a microsecond, the largest single part of
+flattening a million shapes, and a check asks only for the layers its technology
+names: the metal of a layout without labels, say, is never needed as geometry. So
+the rings stay numpy arrays; ``at`` builds the polygons of the shapes asked for once
+and keeps them. Which rings are axis-aligned rectangles is read from the vertices
+too, so that only the other shapes are built to be tested for validity.
+"""
+
+from __future__ import annotations
+
+import threading
+
+import numpy as np
+import shapely
+
+
+def polygons_from_rings(coords: np.ndarray, starts: np.ndarray, counts: np.ndarray) -> np.ndarray:
+    """Shapely polygons of the rings ``coords[starts[k]:starts[k] + counts[k]]``, in one
+    ragged-array call (five times faster than shapely.polygons on a million rectangles).
+    Rings are closed here, so no shapely version has to; fewer than three vertices give
+    an empty polygon, which the flattening's repair reports."""
+    out = np.empty(len(counts), dtype=object)
+    degenerate = counts < 3
+    if degenerate.any():
+        out[degenerate] = [shapely.Polygon()] * int(degenerate.sum())
+    keep = np.flatnonzero(~degenerate)
+    if len(keep) == 0:
+        return out
+    closed = counts[keep] + 1
+    ring_offsets = np.zeros(len(keep) + 1, np.int64)
+    np.cumsum(closed, out=ring_offsets[1:])
+    within = np.arange(ring_offsets[-1]) - np.repeat(ring_offsets[:-1], closed)
+    within[ring_offsets[1:] - 1] = 0  # each ring ends on its first vertex
+    vertices = coords[np.repeat(starts[keep], closed) + within]
+    out[keep] = shapely.from_ragged_array(shapely.GeometryType.POLYGON, vertices,
+                                          (ring_offsets, np.arange(len(keep) + 1)))
+    return out
+
+
+def non_finite_rings(coords: np.ndarray, offsets: np.ndarray) -> np.ndarray:
+    """Boolean per ring: a NaN or infinite vertex (one check of the whole array when none)."""
+    finite = np.isfinite(coords).all(axis=1)
+    if finite.all():
+        return np.zeros(len(offsets) - 1, dtype=bool)
+    bad_vertex = np.concatenate([[0], np.cumsum(~finite)])
+    return bad_vertex[offsets[1:]] > bad_vertex[offsets[:-1]]
+
+
+def rectangle_rings(coords: np.ndarray, offsets: np.ndarray) -> np.ndarray:
+    """Boolean per ring: four vertices that make an axis-aligned rectangle of positive area
+    (the shapes geometry.axis_aligned_rectangles finds, told from their vertices).
+
+    >>> ring = np.array([[0, 0], [2, 0], [2, 1], [0, 1], [0, 0], [1, 1], [0, 1], [1, 0.]])
+    >>> rectangle_rings(ring, np.array([0, 4, 8])).tolist()
+    [True, False]
+    """
+    n = len(offsets) - 1
+    four = np.flatnonzero(np.diff(offsets) == 4)
+    out = np.zeros(n, dtype=bool)
+    if len(four) == 0:
+        return out
+    v = coords[offsets[four][:, None] + np.arange(4)]  # (k, 4, 2)
+    x, y = v[:, :, 0], v[:, :, 1]
+    # Edges alternate horizontal and vertical, starting either way.
+    x_first = (y[:, 0] == y[:, 1]) & (x[:, 1] == x[:, 2]) & (y[:, 2] == y[:, 3]) & (x[:, 3] == x[:, 0])
+    y_first = (x[:, 0] == x[:, 1]) & (y[:, 1] == y[:, 2]) & (x[:, 2] == x[:, 3]) & (y[:, 3] == y[:, 0])
+    sized = (x.max(axis=1) > x.min(axis=1)) & (y.max(axis=1) > y.min(axis=1))
+    out[four] = (x_first | y_first) & sized
+    return out
+
+
+class LazyPolygons:
+    """The polygons of a flattened layout's shapes, built from their rings on first use."""
+
+    def __init__(self, coords: np.ndarray, offsets: np.ndarray):
+        self.coords = coords  # (vertices, 2), every ring's vertices in shape order
+        self.offsets = offsets  # (shapes + 1,): ring k is coords[offsets[k]:offsets[k + 1]]
+        self._built = np.full(len(offsets) - 1, None, dtype=object)
+        self._missing = np.ones(len(offsets) - 1, dtype=bool)
+        self._lock = threading.Lock()  # extraction asks from two threads
+
+    def __len__(self) -> int:
+        return len(self._built)
+
+    def at(self, idx: np.ndarray) -> np.ndarray:
+        """The polygons of shapes ``idx`` (an index array, or one index for one polygon),
+        built now where not yet built."""
+        idx = np.asarray(idx, dtype=np.int64)
+        if idx.ndim == 0:
+            return self.at(idx[None])[0]
+        with self._lock:
+            todo = np.unique(idx[self._missing[idx]])
+            if len(todo):
+                with np.errstate(invalid="ignore"):  # non-finite rings are the repair's to report
+                    self._built[todo] = polygons_from_rings(
+                        self.coords, self.offsets[todo], self.offsets[todo + 1] - self.offsets[todo])
+                self._missing[todo] = False
+            return self._built[idx]
+
+    def every(self) -> np.ndarray:
+        """All the polygons (built now where not yet built)."""
+        return self.at(np.arange(len(self)))
+
+    def replace(self, idx: np.ndarray, polygons: np.ndarray) -> None:
+        """Put repaired polygons in place of shapes ``idx``."""
+        with self._lock:
+            self._built[idx] = polygons
+            self._missing[idx] = False
+
+    def extent(self, rectangles: np.ndarray) -> np.ndarray:
+        """(xmin, ymin, xmax, ymax) of every non-empty polygon, as shapely.total_bounds
+        would give it; ``rectangles`` flags the shapes whose rings are rectangles, whose
+        vertices are their polygon's, so only the others are asked."""
+        boxes = [shapely.total_bounds(self.at(np.flatnonzero(~rectangles)))] if (~rectangles).any() else []
+        if rectangles.any():
+            starts = self.offsets[:-1][rectangles]
+            v = self.coords[starts[:, None] + np.arange(4)]
+            boxes.append(np.r_[v.min(axis=(0, 1)), v.max(axis=(0, 1))])
+        boxes = [b for b in boxes if np.isfinite(b).all()]
+        if not boxes:
+            return np.full(4, np.nan)
+        stacked = np.array(boxes)
+        return np.r_[stacked[:, :2].min(axis=0), stacked[:, 2:].max(axis=0)]
