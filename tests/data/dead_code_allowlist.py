@@ -21,3 +21,5 @@ _._stop_event  # LanguageServer._stop_event: what pygls's shutdown() sets to end
 _.initialize, _.did_open, _.did_change, _.did_save, _.did_close
 _.did_change_configuration, _.pull_diagnostics, _.code_action
 _._start_io_async  # pygls's stdio server, replaced to frame with server/lsp/transport.py
+_.__getattr__  # analyzers/rules/__init__.py: the module's PEP 562 hook that imports the rules on first use
+_.render_text, _.render_json, _.render_sarif  # server/cli/main.py RENDERERS: imported by name when a report is written
