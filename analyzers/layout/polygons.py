@@ -114,13 +114,28 @@ class LazyPolygons:
         """(xmin, ymin, xmax, ymax) of every non-empty polygon, as shapely.total_bounds
         would give it; ``rectangles`` flags the shapes whose rings are rectangles, whose
         vertices are their polygon's, so only the others are asked."""
-        boxes = [shapely.total_bounds(self.at(np.flatnonzero(~rectangles)))] if (~rectangles).any() else []
-        if rectangles.any():
-            starts = self.offsets[:-1][rectangles]
-            v = self.coords[starts[:, None] + np.arange(4)]
-            boxes.append(np.r_[v.min(axis=(0, 1)), v.max(axis=(0, 1))])
+        others = np.flatnonzero(~rectangles)
+        boxes = [shapely.total_bounds(self.at(others))] if len(others) else []
+        if len(others) < len(rectangles):
+            boxes.append(self._rectangles_extent(others))
         boxes = [b for b in boxes if np.isfinite(b).all()]
         if not boxes:
             return np.full(4, np.nan)
         stacked = np.array(boxes)
         return np.r_[stacked[:, :2].min(axis=0), stacked[:, 2:].max(axis=0)]
+
+    def _rectangles_extent(self, others: np.ndarray) -> np.ndarray:
+        """The extent of the rectangles' vertices. Usually every vertex's: when the other
+        rings' vertices (few, as a rule) reach no extreme of the whole array, the
+        rectangles' reach them all; otherwise the rectangles' vertices are gathered."""
+        coords = self.coords
+        counts = self.offsets[others + 1] - self.offsets[others]
+        theirs = coords[np.repeat(self.offsets[others], counts) + np.arange(counts.sum())
+                        - np.repeat(np.cumsum(counts) - counts, counts)]
+        if np.isfinite(coords).all():
+            low, high = coords.min(axis=0), coords.max(axis=0)
+            if not len(theirs) or ((theirs > low).all() and (theirs < high).all()):
+                return np.r_[low, high]
+        starts = np.delete(self.offsets[:-1], others)
+        v = coords[starts[:, None] + np.arange(4)].reshape(-1, 2)
+        return np.r_[v.min(axis=0), v.max(axis=0)]

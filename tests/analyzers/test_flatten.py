@@ -171,3 +171,14 @@ def test_a_repair_that_changes_the_area_is_broken_and_records_both_areas():
     assert flat.invalid_area[0].tolist() == pytest.approx([0.0, 2.0])
     assert flat.invalid_area[1, 1] == pytest.approx(16.0)
     assert flat.invalid_area[1, 0] != pytest.approx(16.0)
+
+
+@pytest.mark.parametrize("other", [[(0, 0), (3, 0), (0, 3)], [(-9, 0), (3, 0), (0, 3)], [(0, 0), (1, 1)],
+                                   [(0, 0), (1, 1), (1, 0), (0, 1)], [(0, 0), (30, 40)]])
+def test_the_extent_is_shapely_total_bounds_of_the_polygons(other):
+    """The extent told mostly from vertices against shapely.total_bounds (the reference
+    library) of every polygon: a triangle inside or reaching out, a degenerate ring (empty,
+    so left out) whose vertices reach farther, and a bow tie."""
+    c = CellBuilder("TOP").rect(ACTIVE, 0, 0, 2, 1).rect(NWELL, -1, -2, 5, 5).polygon(ACTIVE, other)
+    flat = flatten(layout(c), top=0)
+    assert flat.extent().tolist() == shapely.total_bounds(flat.polygons).tolist()
