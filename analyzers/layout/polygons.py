@@ -58,17 +58,21 @@ def rectangle_rings(coords: np.ndarray, offsets: np.ndarray) -> np.ndarray:
     [True, False]
     """
     n = len(offsets) - 1
-    four = np.flatnonzero(np.diff(offsets) == 4)
+    counts = np.diff(offsets)
+    if n and (counts == 4).all():  # rectangles only, as a rule: a view of the vertices, no gather
+        four, v = slice(None), coords.reshape(n, 4, 2)
+    else:
+        four = np.flatnonzero(counts == 4)
+        v = coords[offsets[four][:, None] + np.arange(4)]  # (k, 4, 2)
     out = np.zeros(n, dtype=bool)
-    if len(four) == 0:
+    if len(v) == 0:
         return out
-    v = coords[offsets[four][:, None] + np.arange(4)]  # (k, 4, 2)
-    x, y = v[:, :, 0], v[:, :, 1]
-    # Edges alternate horizontal and vertical, starting either way.
-    x_first = (y[:, 0] == y[:, 1]) & (x[:, 1] == x[:, 2]) & (y[:, 2] == y[:, 3]) & (x[:, 3] == x[:, 0])
-    y_first = (x[:, 0] == x[:, 1]) & (y[:, 1] == y[:, 2]) & (x[:, 2] == x[:, 3]) & (y[:, 3] == y[:, 0])
-    sized = (x.max(axis=1) > x.min(axis=1)) & (y.max(axis=1) > y.min(axis=1))
-    out[four] = (x_first | y_first) & sized
+    x0, x1, x2, x3 = (v[:, k, 0] for k in range(4))
+    y0, y1, y2, y3 = (v[:, k, 1] for k in range(4))
+    # Edges alternate horizontal and vertical, starting either way, and neither side is zero.
+    x_first = (y0 == y1) & (x1 == x2) & (y2 == y3) & (x3 == x0) & (x0 != x1) & (y1 != y2)
+    y_first = (x0 == x1) & (y1 == y2) & (x2 == x3) & (y3 == y0) & (y0 != y1) & (x1 != x2)
+    out[four] = x_first | y_first
     return out
 
 
@@ -92,7 +96,9 @@ class LazyPolygons:
         if idx.ndim == 0:
             return self.at(idx[None])[0]
         with self._lock:
-            todo = np.unique(idx[self._missing[idx]])
+            todo = idx[self._missing[idx]]
+            if len(todo) > 1 and not (todo[1:] > todo[:-1]).all():  # layers come in order, as a rule
+                todo = np.unique(todo)
             if len(todo):
                 with np.errstate(invalid="ignore"):  # non-finite rings are the repair's to report
                     self._built[todo] = polygons_from_rings(
