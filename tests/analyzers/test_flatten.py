@@ -182,3 +182,31 @@ def test_the_extent_is_shapely_total_bounds_of_the_polygons(other):
     c = CellBuilder("TOP").rect(ACTIVE, 0, 0, 2, 1).rect(NWELL, -1, -2, 5, 5).polygon(ACTIVE, other)
     flat = flatten(layout(c), top=0)
     assert flat.extent().tolist() == shapely.total_bounds(flat.polygons).tolist()
+
+
+def test_two_threads_asking_for_overlapping_layers_get_every_polygon_built_once():
+    import threading
+
+    from latchwatch.analyzers.layout.polygons import LazyPolygons
+
+    rng = np.random.default_rng(11)
+    n = 20_000
+    x, y = rng.uniform(0, 1000, (2, n))
+    rings = np.stack([np.c_[x, y], np.c_[x + 1, y], np.c_[x + 1, y + 2], np.c_[x, y + 2]], axis=1).reshape(-1, 2)
+    shapes = LazyPolygons(rings, np.arange(0, 4 * n + 1, 4))
+    asks = [np.arange(0, n, 2), np.arange(0, n, 3)]
+    got = [None, None]
+
+    def ask(k):
+        got[k] = shapes.at(asks[k])
+
+    threads = [threading.Thread(target=ask, args=(k,)) for k in range(2)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    both = np.intersect1d(*asks)
+    first = dict(zip(asks[0].tolist(), got[0], strict=True))
+    second = dict(zip(asks[1].tolist(), got[1], strict=True))
+    assert all(first[i] is second[i] for i in both.tolist())  # one polygon object per shape
+    assert shapely.bounds(shapes.every()).tolist() == np.c_[x, y, x + 1, y + 2].tolist()
