@@ -22,7 +22,6 @@ then separates them from the substrate).
 
 from __future__ import annotations
 
-import functools
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -210,10 +209,10 @@ def extract(flat: FlatLayout, tech: Technology) -> Extraction:
     # Derived layers both sides read are evaluated (and cached on ``flat``) before they start.
     for role in ("active", "tap", "nplus", "pplus"):
         layer_shapes(flat, tech, role)
-    sides = {implant: functools.partial(_implant_side, flat, tech, implant, wells, pwells, contacts, poly)
-             for implant in ("nplus", "pplus")}
+    shared = (wells, pwells, contacts, poly)
     (ntap, ndiff, ntap_contacted, ndiff_gated), (ptap, pdiff, ptap_contacted, pdiff_gated) = side_by_side(
-        sides["nplus"], sides["pplus"], large=flat.shape_count >= PARALLEL_SHAPES, name="latchwatch-extract")
+        lambda: _implant_side(flat, tech, "nplus", *shared), lambda: _implant_side(flat, tech, "pplus", *shared),
+        large=flat.shape_count >= PARALLEL_SHAPES, name="latchwatch-extract")
     return Extraction(
         flat=flat, wells=wells, well_shapes=well_shapes,
         pdiff=pdiff, ndiff=ndiff, ntap=ntap, ptap=ptap,
