@@ -1,11 +1,11 @@
 """How often the cyclic garbage collector runs in a run, and in the analysis of its layout.
 
 A capture keeps a record per shape drawn and an analysis holds millions of shapely
-geometries. At Python's default pace (a collection every 700 new objects, every
-hundredth of them a full pass over every live object) the collector took 0.7-0.9 s of
-a 1M-shape script under capture and 0.4-1.4 s of its check (tests/bench/bench_gc.py).
-A collection every 100,000 new objects still collects every cycle, and costs nothing
-that can be measured. Standard library only: this runs in the user's interpreter.
+geometries. At Python's default pace (a collection every 700 new objects, about every
+hundredth of them a full pass over every live object) the collector took about 0.5 s of
+a 1M-shape capture and 0.8 s of its check (tests/bench/bench_gc.py: medians, paired
+ratios 0.79-0.91 and 0.76-0.94). A collection every 100,000 new objects still collects
+every cycle. Standard library only: this runs in the user's interpreter.
 """
 
 from __future__ import annotations
