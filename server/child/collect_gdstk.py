@@ -59,18 +59,22 @@ class _CellLog:
         # Columns of the log, one key (code, lasti, lasti above, chain) per record. Runs
         # of equal keys are common; the distinct keys of the run starts are found by one
         # sort, and only those (a few hundred, typically) get their stack built.
-        codes = list(map(_record_code, records))
-        columns = [np.fromiter(map(id, codes), np.int64, n)]
+        # Column by column throughout: stacking them into rows and comparing along the rows
+        # cost more than the sort itself (0.29 s of a 1M-record log).
+        columns = [np.fromiter(map(id, map(_record_code, records)), np.int64, n)]
         columns += [np.fromiter(map(getter, records), np.int64, n) for getter in _RECORD_INTS]
         starts = np.zeros(n, bool)
         starts[0] = True
         for column in columns:
             starts[1:] |= column[1:] != column[:-1]
         start_index = np.flatnonzero(starts)
-        rows = np.column_stack([column[start_index] for column in columns])
-        order = np.lexsort(rows.T[::-1])
-        ordered = rows[order]
-        new_key = np.r_[True, (ordered[1:] != ordered[:-1]).any(axis=1)]
+        keys = [column[start_index] for column in columns]
+        order = np.lexsort(keys[::-1])  # by code, then offset, offset above, chain
+        same = np.ones(len(order) - 1, bool)  # each sorted key equal to the one before it
+        for key in keys:
+            ordered = key[order]
+            same &= ordered[1:] == ordered[:-1]
+        new_key = np.r_[True, ~same]
         run_key = np.empty(len(order), np.int64)
         run_key[order] = np.cumsum(new_key) - 1
         key_sid = np.empty(int(new_key.sum()), np.int32)
