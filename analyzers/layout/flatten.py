@@ -15,7 +15,7 @@ import numpy as np
 import shapely
 
 from latchwatch.analyzers.layout.budget import LayoutBudget, check_budget
-from latchwatch.analyzers.layout.polygons import LazyPolygons, non_finite_rings, rectangle_rings
+from latchwatch.analyzers.layout.polygons import LazyPolygons, rectangle_rings
 from latchwatch.analyzers.model.captured import CapturedLayout
 from latchwatch.analyzers.model.errors import HierarchyError
 
@@ -265,10 +265,10 @@ def flatten(captured: CapturedLayout, top: int, budget: LayoutBudget = DEFAULT_B
     offsets = np.zeros(sum(len(c) for c in counts) + 1, np.int64)
     np.cumsum(cat(counts, np.int64), out=offsets[1:])
     shapes = LazyPolygons(vertices, offsets)
-    rectangles = rectangle_rings(vertices, offsets)
-    non_finite = non_finite_rings(vertices, offsets)
-    # Only shapes that are no rectangle (or have a NaN) are built now, to be tested and repaired.
-    tested = np.flatnonzero(~rectangles | non_finite)
+    non_finite = shapes.non_finite
+    rectangles = rectangle_rings(vertices, offsets) & ~non_finite
+    # Only shapes that are no rectangle are built now, to be tested and repaired.
+    tested = np.flatnonzero(~rectangles)
     invalid, reasons, areas, repaired = repair(shapes.at(tested), non_finite[tested])
     shapes.replace(tested, repaired)
     return FlatLayout(

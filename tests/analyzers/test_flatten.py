@@ -210,3 +210,16 @@ def test_two_threads_asking_for_overlapping_layers_get_every_polygon_built_once(
     second = dict(zip(asks[1].tolist(), got[1], strict=True))
     assert all(first[i] is second[i] for i in both.tolist())  # one polygon object per shape
     assert shapely.bounds(shapes.every()).tolist() == np.c_[x, y, x + 1, y + 2].tolist()
+
+
+def test_rings_with_a_nan_or_infinite_first_vertex_are_reported_not_built():
+    """GEOS refuses to close a ring whose first vertex is NaN (an infinite coordinate turns
+    into NaN under a placement's transform): such rings are broken shapes, reported as such."""
+    c = (CellBuilder("TOP").rect(ACTIVE, 0, 0, 2, 1)
+         .polygon(ACTIVE, [(np.nan, 0), (3, 0), (3, 3)])
+         .polygon(NWELL, [(-np.inf, 0), (np.inf, 0), (np.inf, 1), (-np.inf, 1)]))
+    flat = flatten(layout(c), top=0)
+    assert flat.invalid.tolist() == [1, 2]
+    assert flat.invalid_reason.tolist() == ["NaN or infinite coordinates"] * 2
+    assert flat.polygons[1].is_empty and flat.polygons[2].is_empty and not flat.rectangles[1:].any()
+    assert flat.extent().tolist() == [0.0, 0.0, 2.0, 1.0]
